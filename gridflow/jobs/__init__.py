@@ -1,0 +1,1 @@
+"""Whole jobs behind the commands: ``check`` and ``run``."""
