@@ -1,1 +1,14 @@
-"""gridflow.hydraulics"""
+"""Steady-state hydraulics: head-loss laws and the global gradient solver.
+
+This package works on :class:`gridflow.network.Network` arrays only; it imports no GIS library.
+"""
+
+from gridflow.hydraulics.solver import (
+    LINK_STATE_NAMES,
+    HydraulicResult,
+    HydraulicSystem,
+    SolveOptions,
+    solve,
+)
+
+__all__ = ["solve", "SolveOptions", "HydraulicResult", "HydraulicSystem", "LINK_STATE_NAMES"]

@@ -1,0 +1,581 @@
+"""Steady-state hydraulics by the global gradient algorithm.
+
+Unknowns are link flows ``Q`` and node heads ``H``. With the link-node incidence ``A``
+(+1 at a link's from node, -1 at its to node) split into unknown-head columns ``A12`` and
+fixed-head columns ``A10``, each Newton step solves one sparse symmetric positive definite
+system for the new heads and then updates the flows (Todini and Pilati, 1988)::
+
+    (A12' G^-1 A12) H = -A12' (Q - G^-1 h(Q)) - A12' G^-1 A10 H0 - d
+    Q_new = Q - G^-1 h(Q) + G^-1 (A12 H + A10 H0)
+
+with ``h(Q)`` the head loss of each link in the direction of positive flow and ``G = dh/dQ``.
+Here the matrix spans all nodes; fixed-head nodes (sources, tanks, nodes pinned by an active
+pressure-reducing valve or by a fire-flow test) are Dirichlet rows: diagonal 1, off-diagonals
+explicit zeros, so the pattern never changes and the ordering is computed once.
+
+Statuses (check valves, pumps that cannot lift, pressure-reducing valves) are resolved in an
+outer loop: converge with the statuses fixed, then change those whose conditions say so (with a
+head tolerance as hysteresis), and converge again; a status set seen before means the statuses
+cycle, which is reported as non-convergence naming the valve.
+
+Converged means both residuals are below tolerance (a flow-change test alone can stop at
+inaccurate results):
+
+    max_i |sum_in Q - sum_out Q - d_i| <= flow_tolerance   (every unknown-head node)
+    max_l |h_l(Q_l) - (H_from - H_to)| <= head_tolerance   (every open link)
+"""
+
+from __future__ import annotations
+
+import logging
+import time
+from dataclasses import dataclass, field
+
+import numpy as np
+import scipy.sparse as sp
+from scipy.sparse.csgraph import connected_components
+
+from gridflow.errors import ConvergenceError, NetworkError, SolverError
+from gridflow.hydraulics.headloss import (
+    HW_EXPONENT,
+    darcy_weisbach,
+    hw_resistance,
+    minor_coefficient,
+    power_law,
+)
+from gridflow.hydraulics.sparse import Backend, FixedPatternSPD
+from gridflow.network.model import (
+    LINK_PIPE,
+    LINK_PUMP,
+    LINK_VALVE,
+    STATUS_CLOSED,
+    STATUS_CV,
+    VALVE_PRV,
+    VALVE_TCV,
+    Network,
+)
+
+__all__ = ["SolveOptions", "HydraulicResult", "HydraulicSystem", "solve",
+           "LINK_STATE_NAMES"]
+
+log = logging.getLogger("gridflow.hydraulics")
+
+# link states in results
+OPEN, CLOSED, ACTIVE = 0, 1, 2
+LINK_STATE_NAMES = ("open", "closed", "active")
+
+#: smallest dh/dq [s/m2] allowed, for links with (nearly) no resistance
+G_FLOOR = 1e-6
+
+
+@dataclass(frozen=True, kw_only=True)
+class SolveOptions:
+    """Solver options (SI).
+
+    Attributes
+    ----------
+    max_iter : int
+        Newton iterations allowed per status trial.
+    max_trials : int
+        Status trials (converge, check statuses, repeat).
+    flow_tolerance : float
+        Largest mass imbalance at a node [m3/s].
+    head_tolerance : float
+        Largest head-loss residual on a link [m].
+    status_tolerance : float
+        Head margin [m] before a valve or pump changes status (hysteresis).
+    pressure_driven : bool
+        Deliver demand by pressure (Wagner, Shamir and Marks, 1988).
+    pdd_min_pressure, pdd_required_pressure : float
+        [m of head]: nothing delivered below the first, all at or above the second.
+    backend : {'qdldl', 'splu'}
+    """
+
+    max_iter: int = 100
+    max_trials: int = 20
+    flow_tolerance: float = 1e-6
+    head_tolerance: float = 1e-4
+    status_tolerance: float = 1e-3
+    pressure_driven: bool = False
+    pdd_min_pressure: float = 0.0
+    pdd_required_pressure: float = 14.06
+    backend: Backend = "qdldl"
+
+
+@dataclass(kw_only=True)
+class HydraulicResult:
+    """Heads, pressures, flows and how the solve went (SI).
+
+    Sign conventions: ``flow_m3s`` is positive from a link's from node to its to node;
+    ``headloss_m`` is ``H_from - H_to`` (negative across a pump that lifts);
+    ``demand_m3s`` is delivered outflow at a node (positive); ``node_inflow_m3s`` is the net
+    inflow from links at every node (equal to the delivered demand at unknown-head nodes;
+    minus the supply at sources and tanks; the drawn flow at a pinned fire-flow node).
+    """
+
+    head_m: np.ndarray
+    pressure_m: np.ndarray
+    demand_m3s: np.ndarray
+    required_demand_m3s: np.ndarray
+    node_inflow_m3s: np.ndarray
+    supplied: np.ndarray
+    flow_m3s: np.ndarray
+    velocity_ms: np.ndarray
+    headloss_m: np.ndarray
+    unit_headloss: np.ndarray
+    link_state: np.ndarray
+    iterations: int
+    trials: int
+    mass_residual_m3s: float
+    head_residual_m: float
+    worst_node_idx: int
+    worst_link_idx: int
+    converged: bool
+    seconds: float = 0.0
+    factorizations: int = 0
+    message: str = ""
+    extra: dict = field(default_factory=dict)
+
+
+class HydraulicSystem:
+    """A network prepared for repeated solves: the sparse pattern and ordering are built once.
+
+    Parameters
+    ----------
+    net : Network
+    options : SolveOptions, optional
+
+    Examples
+    --------
+    >>> from gridflow.network import Network
+    >>> net = Network.from_arrays(node_id=["R", "J"], link_id=["P1"], from_idx=[0], to_idx=[1],
+    ...     fixed_head_m=[100.0, float("nan")], demand_m3s=[0.0, 0.1], length_m=[1000.0],
+    ...     diameter_m=[0.3], roughness=[130.0])
+    >>> r = solve(net)
+    >>> round(float(r.headloss_m[0]), 2)   # 10.67 L Q^1.852 / (C^1.852 D^4.87)
+    6.42
+    """
+
+    def __init__(self, net: Network, options: SolveOptions | None = None) -> None:
+        self.net = net
+        self.opt = options or SolveOptions()
+        nl, nn = net.n_links, net.n_nodes
+        self.nn, self.nl = nn, nl
+        self.fr = net.from_idx
+        self.to = net.to_idx
+        self.pattern = FixedPatternSPD(nn, self.fr, self.to, backend=self.opt.backend)
+        self._prepare_links()
+        self._factored = False
+
+    # ------------------------------------------------------------------ link laws
+    def _prepare_links(self) -> None:
+        net = self.net
+        kind = net.link_kind
+        self.is_pipe = kind == LINK_PIPE
+        self.is_pump = kind == LINK_PUMP
+        self.is_valve = kind == LINK_VALVE
+        self.is_prv = self.is_valve & (net.valve_type == VALVE_PRV)
+        self.is_tcv = self.is_valve & (net.valve_type == VALVE_TCV)
+        self.is_cv = net.status == STATUS_CV
+        nl = self.nl
+        d = np.where(np.isfinite(net.diameter_m), net.diameter_m, 1.0)
+        self.area = np.pi * d**2 / 4.0
+        k = net.minor_k.copy()
+        k[self.is_tcv] += net.valve_setting[self.is_tcv]
+        self.m_minor = np.where((k > 0) & ~self.is_pump, minor_coefficient(k, d), 0.0)
+        self.r_hw = np.zeros(nl)
+        self.dw = net.headloss_model == "darcy-weisbach"
+        if not self.dw:
+            self.r_hw[self.is_pipe] = hw_resistance(net.length_m[self.is_pipe],
+                                                    net.diameter_m[self.is_pipe],
+                                                    net.roughness[self.is_pipe])
+        # pumps: gain s^2 a - b s^(2-c) q^c, written as a head loss -s^2 a + r q (q^2+e^2)^...
+        s = np.where(self.is_pump, net.pump_speed, 0.0)
+        self.pump_on = self.is_pump & (s > 0)
+        self.pump_shutoff = np.where(self.pump_on, s**2 * np.nan_to_num(net.pump_a), 0.0)
+        self.pump_r = np.where(self.pump_on,
+                               np.nan_to_num(net.pump_b) * s ** (2 - np.nan_to_num(net.pump_c,
+                                                                                   nan=2.0)),
+                               0.0)
+        self.pump_n = np.where(self.pump_on, np.nan_to_num(net.pump_c, nan=2.0), 2.0)
+        self.prv_head = np.full(nl, np.nan)
+        self.prv_head[self.is_prv] = (net.elevation_m[self.to[self.is_prv]]
+                                      + net.valve_setting[self.is_prv])
+
+    def link_headloss(self, q: np.ndarray):
+        """Head loss ``H_from - H_to`` of every link at flows ``q`` and its derivative."""
+        net = self.net
+        h = np.zeros(self.nl)
+        g = np.zeros(self.nl)
+        p = self.is_pipe
+        if self.dw:
+            hh, gg = darcy_weisbach(q[p], net.length_m[p], net.diameter_m[p],
+                                    net.roughness[p])
+            h[p], g[p] = hh, gg
+        else:
+            h[p], g[p] = power_law(q[p], self.r_hw[p], HW_EXPONENT)
+        mm = self.m_minor > 0
+        if mm.any():
+            hm, gm = power_law(q[mm], self.m_minor[mm], 2.0)
+            h[mm] += hm
+            g[mm] += gm
+        pu = self.pump_on
+        if pu.any():
+            hp, gp = power_law(q[pu], self.pump_r[pu], self.pump_n[pu])
+            h[pu] = hp - self.pump_shutoff[pu]
+            g[pu] = gp
+        return h, np.maximum(g, G_FLOOR)
+
+    # ------------------------------------------------------------------ the solve
+    def solve(self, *, demand_m3s: np.ndarray | None = None,
+              pin_idx: np.ndarray | None = None, pin_head_m: np.ndarray | None = None,
+              warm: HydraulicResult | None = None, raise_on_failure: bool = True
+              ) -> HydraulicResult:
+        """Solve for heads and flows.
+
+        Parameters
+        ----------
+        demand_m3s : ndarray, optional
+            Required demand per node [m3/s]; default the network's.
+        pin_idx, pin_head_m : ndarray, optional
+            Extra nodes whose head is fixed for this solve (e.g. a hydrant at its residual
+            target); their ``node_inflow_m3s`` is the flow drawn there.
+        warm : HydraulicResult, optional
+            A previous solution of the same network to start from (flows and statuses).
+        raise_on_failure : bool
+            Raise :class:`ConvergenceError` (default) or return a result with
+            ``converged=False``.
+
+        Raises
+        ------
+        ConvergenceError
+            Naming the node and link with the largest residuals.
+        SolverError
+            If no node has a fixed head.
+        """
+        t0 = time.perf_counter()
+        f0 = self.pattern.factorizations
+        net, opt = self.net, self.opt
+        nn, nl = self.nn, self.nl
+        demand = net.demand_m3s if demand_m3s is None else np.asarray(demand_m3s, float)
+        fixed = net.is_fixed.copy()
+        fixed_head = np.where(fixed, net.fixed_head_m, np.nan)
+        if pin_idx is not None:
+            pin_idx = np.atleast_1d(np.asarray(pin_idx, dtype=np.int64))
+            fixed[pin_idx] = True
+            fixed_head[pin_idx] = pin_head_m
+        if not fixed.any():
+            raise SolverError("the network has no source or tank: no node has a fixed head, so "
+                              "heads are undetermined")
+
+        # statuses
+        state = np.zeros(nl, dtype=np.int8)
+        state[net.status == STATUS_CLOSED] = CLOSED
+        state[self.is_pump & ~self.pump_on] = CLOSED
+        state[self.is_prv & (net.status != STATUS_CLOSED)] = ACTIVE
+        always_closed = state == CLOSED
+        always_closed &= ~self.is_cv  # a check valve given as closed may open
+        if warm is not None:
+            q = warm.flow_m3s.copy()
+            h_now = np.where(np.isfinite(warm.head_m), warm.head_m, np.nanmax(fixed_head))
+            state = np.where(always_closed, CLOSED, warm.link_state).astype(np.int8)
+        else:
+            q = self._initial_flows()
+            h_now = np.full(nn, np.nanmax(fixed_head[fixed]))
+        h_now[fixed] = fixed_head[fixed]
+
+        seen: set[bytes] = set()
+        iterations = 0
+        result = None
+        trial = 0
+        for trial in range(1, opt.max_trials + 1):
+            q, h_now, it, conv, supplied = self._newton(q, h_now, state, fixed, fixed_head,
+                                                        demand)
+            iterations += it
+            if not conv:
+                break
+            changed = self._update_status(state, q, h_now, always_closed, supplied)
+            if not changed:
+                break
+            key = state.tobytes()
+            if key in seen:
+                conv = False
+                break
+            seen.add(key)
+        result = self._result(q, h_now, state, fixed, fixed_head, demand, supplied,
+                              iterations, trial, conv)
+        result.seconds = time.perf_counter() - t0
+        result.factorizations = self.pattern.factorizations - f0
+        if not result.converged and raise_on_failure:
+            raise ConvergenceError(result.message, node_id=net.node_id[result.worst_node_idx],
+                                   link_id=net.link_id[result.worst_link_idx], result=result)
+        return result
+
+    def _initial_flows(self) -> np.ndarray:
+        # 0.3 m/s in pipes and valves; pumps at half their shut-off head
+        q = 0.3 * self.area
+        pu = self.pump_on
+        if pu.any():
+            q[pu] = (0.5 * self.pump_shutoff[pu] / self.pump_r[pu]) ** (1.0 / self.pump_n[pu])
+        return q
+
+    def _supplied(self, state, fixed) -> np.ndarray:
+        """Nodes connected through conducting links to a fixed-head (or pinned) node."""
+        conducting = state == OPEN
+        fr, to = self.fr[conducting], self.to[conducting]
+        nn = self.nn
+        adj = sp.coo_matrix((np.ones(len(fr)), (fr, to)), shape=(nn, nn))
+        ncomp, label = connected_components(adj, directed=False)
+        has_fixed = np.zeros(ncomp, dtype=bool)
+        has_fixed[label[fixed]] = True
+        return has_fixed[label]
+
+    def _newton(self, q, h_now, state, fixed_given, fixed_head_given, demand):
+        """Newton iterations with statuses fixed. Returns q, h, iterations, converged, supplied."""
+        opt = self.opt
+        nn = self.nn
+        fr, to = self.fr, self.to
+        pat = self.pattern
+        fixed = fixed_given.copy()
+        fixed_head = fixed_head_given.copy()
+        active = (state == ACTIVE) & self.is_prv
+        prv_to = to[active]
+        fixed[prv_to] = True
+        fixed_head[prv_to] = self.prv_head[active]
+        supplied = self._supplied(state, fixed)
+        dirichlet = fixed | ~supplied
+        free = ~dirichlet
+        h = h_now.copy()
+        h[fixed] = fixed_head[fixed]
+        h[~supplied] = 0.0
+        conducting = (state == OPEN) & supplied[fr] & supplied[to]
+        q = np.where(conducting | active, q, 0.0)
+        pdd = opt.pressure_driven
+        elev = self.net.elevation_m
+        converged = False
+        it = 0
+        for it in range(1, opt.max_iter + 1):
+            hl, g = self.link_headloss(q)
+            w = np.where(conducting, 1.0 / g, 0.0)
+            y = np.where(conducting, q - w * hl, 0.0)
+            y = np.where(active, q, y)
+            # assemble
+            free_f, free_t = free[fr], free[to]
+            diag = (np.bincount(fr, weights=w * free_f, minlength=nn)
+                    + np.bincount(to, weights=w * free_t, minlength=nn))
+            # rhs at node: -(sum over links from it of y) + (sum over links into it of y)
+            rhs = -np.bincount(fr, weights=y, minlength=nn) + np.bincount(to, weights=y,
+                                                                          minlength=nn)
+            hf = np.where(dirichlet, h, 0.0)
+            rhs += np.bincount(fr, weights=w * hf[to] * free_f, minlength=nn)
+            rhs += np.bincount(to, weights=w * hf[fr] * free_t, minlength=nn)
+            if pdd:
+                dq, ddq = self._pdd(h - elev, demand)
+                diag += np.where(free, ddq, 0.0)
+                rhs -= dq - ddq * h
+            else:
+                rhs -= demand
+            off = np.where(free_f & free_t, -w, 0.0)
+            data = np.bincount(pat.off_pos, weights=off, minlength=pat.nnz)
+            data[pat.diag_pos] = np.where(dirichlet, 1.0, diag)
+            rhs = np.where(dirichlet, h, rhs)
+            pat.factor(data)
+            h_new = pat.solve(rhs)
+            h_new[dirichlet] = h[dirichlet]
+            q_new = np.where(conducting, y + w * (h_new[fr] - h_new[to]), 0.0)
+            if pdd:
+                # demand that depends on pressure can make full Newton steps overshoot between
+                # "delivers nothing" and "delivers all": backtrack on a merit function
+                q_new, h_new = self._backtrack(q, h, q_new, h_new, free, conducting, demand,
+                                               elev, w)
+            h = h_new
+            # active PRVs carry what their pinned downstream node needs
+            if active.any():
+                q_new = np.where(active, 0.0, q_new)
+                need = self._net_outflow(q_new, h, demand, elev, pdd)
+                q_new[active] = need[prv_to]
+            q = q_new
+            mass, head = self._residuals(q, h, free, conducting, demand, elev, pdd)
+            if mass <= opt.flow_tolerance and head <= opt.head_tolerance and it > 1:
+                converged = True
+                break
+        return q, h, it, converged, supplied
+
+    def _merit(self, q, h, free, conducting, demand, elev, w):
+        """Sum of squared residuals in flow units: mass imbalance and G^-1 times head error."""
+        imb = self._net_outflow(q, h, demand, elev, True)[free]
+        hl, _ = self.link_headloss(q)
+        e = np.where(conducting, (hl - (h[self.fr] - h[self.to])) * w, 0.0)
+        return float(imb @ imb + e @ e)
+
+    def _backtrack(self, q, h, q_new, h_new, free, conducting, demand, elev, w):
+        phi0 = self._merit(q, h, free, conducting, demand, elev, w)
+        alpha = 1.0
+        for _ in range(8):
+            qa = q + alpha * (q_new - q)
+            ha = h + alpha * (h_new - h)
+            if self._merit(qa, ha, free, conducting, demand, elev, w) < phi0:
+                return qa, ha
+            alpha *= 0.5
+        return q_new, h_new
+
+    def _net_outflow(self, q, h, demand, elev, pdd):
+        """Per node: outflow through links plus delivered demand minus inflow."""
+        nn = self.nn
+        out = np.bincount(self.fr, weights=q, minlength=nn) - np.bincount(self.to, weights=q,
+                                                                          minlength=nn)
+        if pdd:
+            out += self._pdd(h - elev, demand)[0]
+        else:
+            out += demand
+        return out
+
+    def _residuals(self, q, h, free, conducting, demand, elev, pdd):
+        imbalance = self._net_outflow(q, h, demand, elev, pdd)
+        mass = float(np.max(np.abs(imbalance[free]), initial=0.0))
+        hl, _ = self.link_headloss(q)
+        e = np.where(conducting, hl - (h[self.fr] - h[self.to]), 0.0)
+        head = float(np.max(np.abs(e), initial=0.0))
+        return mass, head
+
+    def _pdd(self, p, demand):
+        """Delivered demand and its derivative by pressure (Wagner et al., 1988), smoothed."""
+        opt = self.opt
+        span = opt.pdd_required_pressure - opt.pdd_min_pressure
+        s = (p - opt.pdd_min_pressure) / span
+        f, df = smooth_sqrt_ramp(s)
+        return demand * f, demand * df / span
+
+    def _update_status(self, state, q, h, always_closed, supplied) -> bool:
+        """Change link statuses whose conditions say so; True if anything changed."""
+        tol = self.opt.status_tolerance
+        qtol = self.opt.flow_tolerance
+        fr, to = self.fr, self.to
+        dh = h[fr] - h[to]
+        old = state.copy()
+        ok = supplied[fr] & supplied[to]
+        # check valves
+        cv = self.is_cv & ~always_closed
+        state[cv & (old == OPEN) & (q < -qtol)] = CLOSED
+        state[cv & (old == CLOSED) & (dh > tol) & ok] = OPEN
+        # pumps: close when they cannot lift (flow would reverse); open when head allows
+        pu = self.pump_on
+        state[pu & (old == OPEN) & (q < -qtol)] = CLOSED
+        state[pu & (old == CLOSED) & (-dh < self.pump_shutoff - tol) & ok] = OPEN
+        # pressure-reducing valves
+        prv = self.is_prv & ~always_closed
+        hs = self.prv_head
+        hu, hd = h[fr], h[to]
+        a = prv & (old == ACTIVE)
+        state[a & (q < -qtol)] = CLOSED
+        state[a & (q >= -qtol) & (hu < hs - tol)] = OPEN
+        o = prv & (old == OPEN)
+        state[o & (q < -qtol)] = CLOSED
+        state[o & (q >= -qtol) & (hd > hs + tol)] = ACTIVE
+        c = prv & (old == CLOSED)
+        state[c & (hu > hs + tol) & (hd < hs - tol)] = ACTIVE
+        state[c & (hu <= hs + tol) & (hu > hd + tol)] = OPEN
+        return bool((state != old).any())
+
+    def _result(self, q, h, state, fixed, fixed_head, demand, supplied, iterations, trials,
+                conv) -> HydraulicResult:
+        net, opt = self.net, self.opt
+        fr, to = self.fr, self.to
+        elev = net.elevation_m
+        pdd = opt.pressure_driven
+        active = (state == ACTIVE) & self.is_prv
+        pinned = fixed.copy()
+        pinned[to[active]] = True
+        free = ~pinned & supplied
+        conducting = (state == OPEN) & supplied[fr] & supplied[to]
+        head = np.where(supplied, h, np.nan)
+        pressure = head - elev
+        if pdd:
+            delivered = np.where(supplied, self._pdd(h - elev, demand)[0], 0.0)
+        else:
+            delivered = np.where(supplied, demand, 0.0)
+        inflow = np.bincount(to, weights=q, minlength=self.nn) - np.bincount(
+            fr, weights=q, minlength=self.nn)
+        imbalance = inflow - delivered
+        imbalance[~free] = 0.0
+        hl_model, _ = self.link_headloss(q)
+        dh = np.where(conducting | active, head[fr] - head[to], np.nan)
+        e = np.where(conducting, np.abs(hl_model - dh), 0.0)
+        wn = int(np.argmax(np.abs(imbalance))) if self.nn else 0
+        wl = int(np.argmax(e)) if self.nl else 0
+        mass = float(np.abs(imbalance[wn])) if self.nn else 0.0
+        headres = float(e[wl]) if self.nl else 0.0
+        finite = np.isfinite(head[supplied]).all() and np.isfinite(q).all()
+        converged = bool(conv and finite)
+        velocity = np.where(self.is_pump, np.nan, q / self.area)
+        length = net.length_m
+        with np.errstate(divide="ignore", invalid="ignore"):
+            unit = np.where(self.is_pipe & (length > 0), np.abs(dh) / length, np.nan)
+        unsupplied_n = int((~supplied).sum())
+        if converged:
+            msg = (f"converged in {iterations} iterations ({trials} status trial(s)); "
+                   f"mass residual {mass:.2e} m3/s, head residual {headres:.2e} m"
+                   + (f"; {unsupplied_n} node(s) unsupplied" if unsupplied_n else ""))
+        else:
+            msg = (f"did not converge after {iterations} iterations ({trials} status trial(s)): "
+                   f"largest mass imbalance {mass:.3g} m3/s at node {net.node_id[wn]}, largest "
+                   f"head-loss residual {headres:.3g} m on link {net.link_id[wl]}")
+        return HydraulicResult(
+            head_m=head, pressure_m=pressure, demand_m3s=delivered,
+            required_demand_m3s=np.asarray(demand, float).copy(), node_inflow_m3s=inflow,
+            supplied=supplied, flow_m3s=q, velocity_ms=velocity, headloss_m=dh,
+            unit_headloss=unit, link_state=state.copy(), iterations=iterations, trials=trials,
+            mass_residual_m3s=mass, head_residual_m=headres, worst_node_idx=wn,
+            worst_link_idx=wl, converged=converged, message=msg)
+
+
+def smooth_sqrt_ramp(s: np.ndarray, delta: float = 0.02):
+    """``sqrt(s)`` clipped to [0, 1] with its corners smoothed for Newton.
+
+    Exact on ``[delta, 1 - delta]``; a cubic Hermite blend on ``[0, delta]`` (value and slope
+    0 at 0, matching sqrt at delta) and on ``[1 - delta, 1]`` (matching sqrt at 1 - delta,
+    value 1 and slope 0 at 1). Returns the value and the derivative.
+    """
+    s = np.asarray(s, dtype=float)
+    f = np.zeros_like(s)
+    df = np.zeros_like(s)
+    mid = (s >= delta) & (s <= 1 - delta)
+    f[mid] = np.sqrt(s[mid])
+    df[mid] = 0.5 / np.sqrt(s[mid])
+    f[s > 1] = 1.0
+    lo = (s > 0) & (s < delta)
+    if lo.any():
+        f[lo], df[lo] = _hermite(s[lo], 0.0, delta, 0.0, 0.0, np.sqrt(delta),
+                                 0.5 / np.sqrt(delta))
+    hi = (s > 1 - delta) & (s <= 1)
+    if hi.any():
+        a = 1 - delta
+        f[hi], df[hi] = _hermite(s[hi], a, 1.0, np.sqrt(a), 0.5 / np.sqrt(a), 1.0, 0.0)
+    return f, df
+
+
+def _hermite(x, x0, x1, y0, m0, y1, m1):
+    hlen = x1 - x0
+    t = (x - x0) / hlen
+    t2, t3 = t * t, t * t * t
+    h00, h10, h01, h11 = 2 * t3 - 3 * t2 + 1, t3 - 2 * t2 + t, -2 * t3 + 3 * t2, t3 - t2
+    val = h00 * y0 + h10 * hlen * m0 + h01 * y1 + h11 * hlen * m1
+    d00, d10, d01, d11 = 6 * t2 - 6 * t, 3 * t2 - 4 * t + 1, -6 * t2 + 6 * t, 3 * t2 - 2 * t
+    der = (d00 * y0 + d10 * hlen * m0 + d01 * y1 + d11 * hlen * m1) / hlen
+    return val, der
+
+
+def solve(net: Network, *, options: SolveOptions | None = None,
+          demand_m3s: np.ndarray | None = None, raise_on_failure: bool = True
+          ) -> HydraulicResult:
+    """Solve a network once. See :class:`HydraulicSystem` for repeated solves.
+
+    Raises
+    ------
+    ConvergenceError, SolverError, NetworkError
+    """
+    if not isinstance(net, Network):
+        raise NetworkError("solve() needs a gridflow Network")
+    return HydraulicSystem(net, options).solve(demand_m3s=demand_m3s,
+                                               raise_on_failure=raise_on_failure)
+

@@ -1,0 +1,90 @@
+"""Sparse symmetric positive definite solves on a fixed pattern.
+
+The head matrix of the global gradient algorithm keeps one sparsity pattern for every
+iteration, status change and fire-flow solve (Dirichlet rows change values, never the pattern),
+so the ordering and symbolic analysis are done once and each iteration pays one numeric
+refactorization plus a triangular solve.
+
+Backends, chosen by measurement (DEVELOPERS.md, ``scripts/bench_solver.py``):
+
+- ``qdldl`` (default): LDL' with AMD ordering; ``Solver.update`` refactors on the same pattern.
+- ``splu``: scipy's SuperLU with COLAMD, no symbolic reuse; a fallback and a reference.
+"""
+
+from __future__ import annotations
+
+from typing import Literal
+
+import numpy as np
+import scipy.sparse as sp
+
+__all__ = ["FixedPatternSPD", "Backend"]
+
+Backend = Literal["qdldl", "splu"]
+
+
+class FixedPatternSPD:
+    """An upper-triangular CSC pattern and a factorization refreshed by values only.
+
+    Parameters
+    ----------
+    n : int
+        Matrix size.
+    rows, cols : ndarray of int
+        Off-diagonal entries (any order, duplicates and either triangle allowed).
+    backend : {'qdldl', 'splu'}
+
+    Attributes
+    ----------
+    diag_pos : ndarray
+        Position of each diagonal entry in the data array.
+    off_pos : ndarray
+        Position in the data array of each given off-diagonal entry (same order as inputs).
+    """
+
+    def __init__(self, n: int, rows: np.ndarray, cols: np.ndarray, *,
+                 backend: Backend = "qdldl") -> None:
+        self.n = n
+        self.backend = backend
+        lo = np.minimum(rows, cols).astype(np.int64)
+        hi = np.maximum(rows, cols).astype(np.int64)
+        diag = np.arange(n, dtype=np.int64)
+        r = np.concatenate([diag, lo])
+        c = np.concatenate([diag, hi])
+        key = c * n + r  # column-major order, row within column
+        uniq, inverse = np.unique(key, return_inverse=True)
+        self.indices = (uniq % n).astype(np.int32)
+        col_of = (uniq // n).astype(np.int64)
+        self.indptr = np.zeros(n + 1, dtype=np.int32)
+        np.cumsum(np.bincount(col_of, minlength=n), out=self.indptr[1:])
+        self.nnz = len(uniq)
+        self.diag_pos = inverse[:n]
+        self.off_pos = inverse[n:]
+        self._solver = None
+        self.factorizations = 0
+
+    def matrix(self, data: np.ndarray) -> sp.csc_matrix:
+        """The upper triangle as a CSC matrix holding ``data`` (explicit zeros kept)."""
+        return sp.csc_matrix((data, self.indices, self.indptr), shape=(self.n, self.n))
+
+    def factor(self, data: np.ndarray) -> None:
+        """Numeric factorization of the matrix with values ``data``."""
+        self.factorizations += 1
+        if self.backend == "qdldl":
+            import qdldl
+
+            m = self.matrix(data)
+            if self._solver is None:
+                self._solver = qdldl.Solver(m, upper=True)
+            else:
+                self._solver.update(m, upper=True)
+        else:
+            import scipy.sparse.linalg as spla
+
+            upper = self.matrix(data)
+            full = (upper + sp.triu(upper, k=1).T).tocsc()
+            self._solver = spla.splu(full, permc_spec="COLAMD")
+
+    def solve(self, b: np.ndarray) -> np.ndarray:
+        """Solve with the current factorization."""
+        return np.asarray(self._solver.solve(np.ascontiguousarray(b, dtype=float)))

@@ -1,0 +1,79 @@
+"""Benchmark the hydraulic solver on synthetic street-grid networks.
+
+For each size: iterations, solve time, the time of one numeric factorization of the same
+matrix by the same backend (measured in the same run), the ratio
+solve / (iterations x factorization), and peak memory (each size runs in its own process).
+
+Usage: python scripts/bench_solver.py [10000 100000 500000] [--backend qdldl|splu]
+"""
+
+from __future__ import annotations
+
+import json
+import resource
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+
+
+def one(n_pipes: int, backend: str) -> dict:
+    import numpy as np
+
+    from gridflow.hydraulics import HydraulicSystem, SolveOptions
+    from synthetic import grid_network
+
+    net, _ = grid_network(n_pipes)
+    opts = SolveOptions(backend=backend)
+    t0 = time.perf_counter()
+    system = HydraulicSystem(net, opts)
+    t_setup = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    r = system.solve()
+    t_solve = time.perf_counter() - t0
+    # floor: one numeric factorization of the converged matrix by the same backend
+    pat = system.pattern
+    rng = np.random.default_rng(0)
+    data = np.zeros(pat.nnz)
+    w = 1.0 / (1e-3 + rng.random(net.n_links))
+    np.add.at(data, pat.off_pos, -w)
+    diag = np.bincount(net.from_idx, w, net.n_nodes) + np.bincount(net.to_idx, w, net.n_nodes)
+    data[pat.diag_pos] = np.where(net.is_fixed, 1.0, diag + 1e-9)
+    times = []
+    for _ in range(3):
+        t0 = time.perf_counter()
+        pat.factor(data)
+        times.append(time.perf_counter() - t0)
+    t_fact = float(np.median(times))
+    peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+    return {"pipes": net.n_links, "nodes": net.n_nodes, "backend": backend,
+            "iterations": r.iterations, "setup_s": round(t_setup, 3),
+            "solve_s": round(t_solve, 3), "factor_s": round(t_fact, 4),
+            "ratio": round(t_solve / (r.iterations * t_fact), 2),
+            "peak_mb": round(peak_mb), "mass_residual": r.mass_residual_m3s,
+            "head_residual": r.head_residual_m}
+
+
+def main() -> None:
+    args = [a for a in sys.argv[1:] if not a.startswith("--")]
+    backend = "splu" if "--backend=splu" in sys.argv or "splu" in sys.argv else "qdldl"
+    if "--one" in sys.argv:
+        print(json.dumps(one(int(args[0]), backend)))
+        return
+    sizes = [int(a) for a in args if a.isdigit()] or [10_000, 100_000, 500_000]
+    print(f"{'pipes':>8} {'backend':>7} {'iter':>4} {'setup s':>8} {'solve s':>8} "
+          f"{'factor s':>9} {'ratio':>6} {'peak MB':>8}")
+    for n in sizes:
+        out = subprocess.run([sys.executable, __file__, str(n), f"--backend={backend}", "--one"],
+                             capture_output=True, text=True, check=True)
+        d = json.loads(out.stdout.strip().splitlines()[-1])
+        print(f"{d['pipes']:>8} {d['backend']:>7} {d['iterations']:>4} {d['setup_s']:>8} "
+              f"{d['solve_s']:>8} {d['factor_s']:>9} {d['ratio']:>6} {d['peak_mb']:>8}",
+              flush=True)
+
+
+if __name__ == "__main__":
+    main()

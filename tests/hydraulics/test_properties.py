@@ -1,0 +1,84 @@
+"""Property tests: random looped networks converge to verified, order-independent solutions."""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+
+import numpy as np
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from gridflow.hydraulics import SolveOptions, solve
+from gridflow.network import Network
+
+from .netbuild import assert_physics
+
+OPTS = SolveOptions(head_tolerance=1e-7, flow_tolerance=1e-9)
+
+
+def random_network(seed: int, n: int) -> Network:
+    """A random connected looped network: a spanning tree plus extra links, one or two sources."""
+    rng = np.random.default_rng(seed)
+    parent = np.array([rng.integers(0, i) for i in range(1, n)])
+    fr = list(parent)
+    to = list(range(1, n))
+    extra = rng.integers(1, max(2, n // 2))
+    for _ in range(extra):
+        a, b = rng.choice(n, 2, replace=False)
+        fr.append(int(a))
+        to.append(int(b))
+    nl = len(fr)
+    fixed = np.full(n, np.nan)
+    fixed[0] = 60 + 40 * rng.random()
+    if n > 6 and rng.random() < 0.5:
+        fixed[n - 1] = 50 + 40 * rng.random()
+    elev = 20 * rng.random(n)
+    demand = np.where(np.isnan(fixed), rng.random(n) * 0.01, 0.0)
+    diam = rng.choice([2, 4, 6, 8, 12, 16, 24, 48], nl) * 0.0254
+    return Network.from_arrays(
+        node_id=[f"n{i}" for i in range(n)], link_id=[f"l{i}" for i in range(nl)],
+        from_idx=fr, to_idx=to, fixed_head_m=fixed, elevation_m=elev, demand_m3s=demand,
+        length_m=50 + 500 * rng.random(nl), diameter_m=diam,
+        roughness=rng.uniform(60, 150, nl))
+
+
+@settings(max_examples=40, deadline=None)
+@given(seed=st.integers(0, 10**6), n=st.integers(2, 40))
+def test_random_networks_satisfy_mass_and_energy(seed, n):
+    net = random_network(seed, n)
+    r = solve(net, options=OPTS)
+    assert r.converged
+    assert np.isfinite(r.head_m).all() and np.isfinite(r.flow_m3s).all()
+    assert_physics(net, r, mass_tol=1e-8, head_tol=1e-5)
+
+
+@settings(max_examples=25, deadline=None)
+@given(seed=st.integers(0, 10**6), n=st.integers(3, 30), perm_seed=st.integers(0, 1000))
+def test_solution_independent_of_node_and_link_order_and_reversal(seed, n, perm_seed):
+    net = random_network(seed, n)
+    r = solve(net, options=OPTS)
+    rng = np.random.default_rng(perm_seed)
+    pn = rng.permutation(net.n_nodes)  # new position k holds old node pn[k]
+    inv = np.empty_like(pn)
+    inv[pn] = np.arange(len(pn))
+    pl = rng.permutation(net.n_links)
+    flip = rng.random(net.n_links) < 0.5
+    fr = np.where(flip, net.to_idx, net.from_idx)[pl]
+    to = np.where(flip, net.from_idx, net.to_idx)[pl]
+    net2 = Network.from_arrays(
+        node_id=net.node_id[pn], link_id=net.link_id[pl], from_idx=inv[fr], to_idx=inv[to],
+        fixed_head_m=net.fixed_head_m[pn], elevation_m=net.elevation_m[pn],
+        demand_m3s=net.demand_m3s[pn], length_m=net.length_m[pl],
+        diameter_m=net.diameter_m[pl], roughness=net.roughness[pl])
+    r2 = solve(net2, options=OPTS)
+    np.testing.assert_allclose(r2.head_m, r.head_m[pn], atol=1e-5)
+    q_back = np.where(flip[pl], -r2.flow_m3s, r2.flow_m3s)
+    np.testing.assert_allclose(q_back, r.flow_m3s[pl], atol=1e-7)
+
+
+def test_hydraulics_imports_no_gis_library():
+    code = ("import sys, gridflow.hydraulics; bad = [m for m in ('geopandas', 'shapely', 'fiona',"
+            " 'pyogrio', 'networkx') if m in sys.modules]; print(','.join(bad))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == ""
