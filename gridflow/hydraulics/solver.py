@@ -354,8 +354,8 @@ class HydraulicSystem:
         elev = self.net.elevation_m
         converged = False
         it = 0
+        hl, g = self.link_headloss(q)
         for it in range(1, opt.max_iter + 1):
-            hl, g = self.link_headloss(q)
             w = np.where(conducting, 1.0 / g, 0.0)
             y = np.where(conducting, q - w * hl, 0.0)
             y = np.where(active, q, y)
@@ -395,7 +395,8 @@ class HydraulicSystem:
                 need = self._net_outflow(q_new, h, demand, elev, pdd)
                 q_new[active] = need[prv_to]
             q = q_new
-            mass, head = self._residuals(q, h, free, conducting, demand, elev, pdd)
+            hl, g = self.link_headloss(q)  # reused by the next iteration's assembly
+            mass, head = self._residuals(q, h, free, conducting, demand, elev, pdd, hl)
             if mass <= opt.flow_tolerance and head <= opt.head_tolerance and it > 1:
                 converged = True
                 break
@@ -430,10 +431,9 @@ class HydraulicSystem:
             out += demand
         return out
 
-    def _residuals(self, q, h, free, conducting, demand, elev, pdd):
+    def _residuals(self, q, h, free, conducting, demand, elev, pdd, hl):
         imbalance = self._net_outflow(q, h, demand, elev, pdd)
         mass = float(np.max(np.abs(imbalance[free]), initial=0.0))
-        hl, _ = self.link_headloss(q)
         e = np.where(conducting, hl - (h[self.fr] - h[self.to]), 0.0)
         head = float(np.max(np.abs(e), initial=0.0))
         return mass, head

@@ -15,6 +15,7 @@ from gridflow.network import Network
 from .netbuild import assert_physics
 
 OPTS = SolveOptions(head_tolerance=1e-7, flow_tolerance=1e-9)
+TIGHT = SolveOptions(head_tolerance=1e-10, flow_tolerance=1e-10)
 
 
 def random_network(seed: int, n: int) -> Network:
@@ -57,7 +58,9 @@ def test_random_networks_satisfy_mass_and_energy(seed, n):
 @given(seed=st.integers(0, 10**6), n=st.integers(3, 30), perm_seed=st.integers(0, 1000))
 def test_solution_independent_of_node_and_link_order_and_reversal(seed, n, perm_seed):
     net = random_network(seed, n)
-    r = solve(net, options=OPTS)
+    # flows are only as accurate as the head residual over dh/dq, which is tiny on wide pipes
+    # with little flow: compare tightly converged solutions
+    r = solve(net, options=TIGHT)
     rng = np.random.default_rng(perm_seed)
     pn = rng.permutation(net.n_nodes)  # new position k holds old node pn[k]
     inv = np.empty_like(pn)
@@ -71,7 +74,7 @@ def test_solution_independent_of_node_and_link_order_and_reversal(seed, n, perm_
         fixed_head_m=net.fixed_head_m[pn], elevation_m=net.elevation_m[pn],
         demand_m3s=net.demand_m3s[pn], length_m=net.length_m[pl],
         diameter_m=net.diameter_m[pl], roughness=net.roughness[pl])
-    r2 = solve(net2, options=OPTS)
+    r2 = solve(net2, options=TIGHT)
     np.testing.assert_allclose(r2.head_m, r.head_m[pn], atol=1e-5)
     q_back = np.where(flip[pl], -r2.flow_m3s, r2.flow_m3s)
     np.testing.assert_allclose(q_back, r.flow_m3s[pl], atol=1e-7)

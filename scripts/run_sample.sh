@@ -1,0 +1,10 @@
+#!/usr/bin/env bash
+# Install gridflow into .venv and run the nightly job on the bundled sample town.
+set -euo pipefail
+cd "$(dirname "$0")/.."
+python3 -m venv .venv
+.venv/bin/python -m pip install --quiet --upgrade pip
+.venv/bin/python -m pip install --quiet -e .
+mkdir -p out
+.venv/bin/gridflow run sample_gis/millbrook.toml --out out/millbrook_results.gpkg "$@"
+echo "results: out/millbrook_results.gpkg and out/millbrook_results.html"
