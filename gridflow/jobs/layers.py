@@ -1,0 +1,104 @@
+"""Result layers in the contract's fields and the run's unit system.
+
+SI arrays in, GeoDataFrames out; units are converted here, once, with the suffix in each
+field name (``pressure_psi`` / ``pressure_kpa`` ...).
+"""
+
+from __future__ import annotations
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+
+from gridflow.analysis.flags import node_flags, pipe_flags
+from gridflow.config.sections import CriteriaSection
+from gridflow.hydraulics import LINK_STATE_NAMES, HydraulicResult
+from gridflow.network import LINK_KINDS, NODE_KINDS, Network
+from gridflow.units import FT, UnitSystem, out_field
+
+__all__ = ["nodes_layer", "pipes_layer", "hydrants_layer", "field_name"]
+
+
+def field_name(quantity: str, system: UnitSystem, stem: str | None = None) -> str:
+    suffix, _ = out_field(quantity, system)
+    return f"{stem or quantity}_{suffix}"
+
+
+def _conv(values, quantity: str, system: UnitSystem) -> np.ndarray:
+    _, factor = out_field(quantity, system)
+    return np.asarray(values, dtype=float) * factor
+
+
+def nodes_layer(net: Network, r: HydraulicResult, geometry, crs, criteria: CriteriaSection,
+                system: UnitSystem) -> gpd.GeoDataFrame:
+    """``nodes_<scenario>``: one row per node, in network order."""
+    flags = node_flags(net, r, criteria)
+    cols = {
+        "node_id": net.node_id.astype(str),
+        "kind": np.asarray(NODE_KINDS, dtype=object)[net.node_kind],
+        "fixed_head": net.is_fixed.astype(np.int32),
+        "zone": net.zone.astype(str),
+        field_name("elevation", system): _conv(net.elevation_m, "elevation", system),
+        field_name("demand", system, "required_demand"): _conv(r.required_demand_m3s, "demand",
+                                                               system),
+        field_name("demand", system): _conv(r.demand_m3s, "demand", system),
+        field_name("head", system): _conv(r.head_m, "head", system),
+        field_name("pressure", system): _conv(r.pressure_m, "pressure", system),
+        **flags,
+    }
+    return gpd.GeoDataFrame(cols, geometry=gpd.GeoSeries(geometry, crs=crs), crs=crs)
+
+
+def pipes_layer(net: Network, r: HydraulicResult, geometry, crs, criteria: CriteriaSection,
+                system: UnitSystem, pressure_rating_m=None) -> gpd.GeoDataFrame:
+    """``pipes_<scenario>``: one row per link, in network order."""
+    flags = pipe_flags(net, r, criteria)
+    dw = net.headloss_model == "darcy-weisbach"
+    if dw:  # absolute roughness: mm for SI runs, ft for US runs (the contract)
+        rough = net.roughness * (1000.0 if system == "SI" else 1.0 / FT)
+    else:
+        rough = net.roughness
+    cols = {
+        "pipe_id": net.link_id.astype(str),
+        "kind": np.asarray(LINK_KINDS, dtype=object)[net.link_kind],
+        "from_node": net.node_id[net.from_idx].astype(str),
+        "to_node": net.node_id[net.to_idx].astype(str),
+        field_name("length", system): _conv(net.length_m, "length", system),
+        field_name("diameter", system): _conv(net.diameter_m, "diameter", system),
+        "roughness": rough,
+        "roughness_model": net.headloss_model,
+        "minor_loss_k": net.minor_k,
+        "status": np.asarray(LINK_STATE_NAMES, dtype=object)[r.link_state],
+        field_name("flow", system): _conv(r.flow_m3s, "flow", system),
+        field_name("velocity", system): _conv(r.velocity_ms, "velocity", system),
+        field_name("headloss", system): _conv(r.headloss_m, "headloss", system),
+        field_name("unit_headloss", system): _conv(r.unit_headloss, "unit_headloss", system),
+        **flags,
+    }
+    if pressure_rating_m is not None:
+        cols[field_name("pressure", system, "pressure_rating")] = _conv(pressure_rating_m,
+                                                                        "pressure", system)
+    return gpd.GeoDataFrame(cols, geometry=gpd.GeoSeries(geometry, crs=crs), crs=crs)
+
+
+def hydrants_layer(ff: pd.DataFrame, geometry, crs, system: UnitSystem) -> gpd.GeoDataFrame:
+    """``hydrants_fireflow`` from the sweep's SI table."""
+    cols = {
+        "hydrant_id": ff["hydrant_id"].astype(str).to_numpy(),
+        "node_id": ff["node_id"].astype(str).to_numpy(),
+        "zone": ff["zone"].astype(str).to_numpy(),
+        field_name("pressure", system, "static_pressure"): _conv(ff["static_pressure_m"],
+                                                                 "pressure", system),
+        field_name("flow", system, "required_flow"): _conv(ff["required_flow_m3s"], "flow",
+                                                           system),
+        field_name("flow", system, "available_flow"): _conv(ff["available_flow_m3s"], "flow",
+                                                            system),
+        field_name("pressure", system, "residual_pressure_at_required"): _conv(
+            ff["residual_pressure_at_required_m"], "pressure", system),
+        "meets_required": ff["meets_required"].astype(np.int32).to_numpy(),
+        "limited_by": ff["limited_by"].astype(str).to_numpy(),
+        "nfpa_class": ff["nfpa_class"].astype(str).to_numpy(),
+    }
+    return gpd.GeoDataFrame(cols, geometry=gpd.GeoSeries(geometry, crs=crs), crs=crs)
+
+

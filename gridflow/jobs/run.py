@@ -1,0 +1,270 @@
+"""The nightly job: read, clean, allocate, solve every scenario, flag, fire flow, write.
+
+Exit codes (the contract): 0 done; 2 unusable config or input (nothing written); 3 a scenario did
+not converge (diagnostics written: findings name the worst node and link); 1 unexpected.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import hashlib
+import logging
+import os
+import time
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from gridflow import __version__
+from gridflow.config import Config, load_config
+from gridflow.errors import ConvergenceError, OutputError
+from gridflow.findings import Findings
+from gridflow.hydraulics import HydraulicSystem, SolveOptions
+from gridflow.hydraulics.solver import HydraulicResult
+from gridflow.network import Network
+
+__all__ = ["run_job", "solve_options", "verify_solution"]
+
+log = logging.getLogger("gridflow")
+
+
+def solve_options(cfg: Config) -> SolveOptions:
+    s = cfg.solver
+    return SolveOptions(max_iter=s.max_iter, flow_tolerance=s.flow_tolerance,
+                        head_tolerance=s.head_tolerance, pressure_driven=s.pressure_driven,
+                        pdd_min_pressure=s.pdd_min_pressure,
+                        pdd_required_pressure=s.pdd_required_pressure)
+
+
+def verify_solution(system: HydraulicSystem, r: HydraulicResult) -> tuple[float, float, int, int]:
+    """Recheck a solution on the values about to be written.
+
+    Returns the largest mass imbalance [m3/s] over supplied unknown-head nodes, the largest
+    head-loss residual [m] over open links, and the worst node and link positions.
+    """
+    net = system.net
+    nn = net.n_nodes
+    q = r.flow_m3s
+    inflow = np.bincount(net.to_idx, q, nn) - np.bincount(net.from_idx, q, nn)
+    pinned = net.is_fixed.copy()
+    active = r.link_state == 2
+    pinned[net.to_idx[active]] = True
+    check = r.supplied & ~pinned
+    imb = np.where(check, np.abs(inflow - r.demand_m3s), 0.0)
+    hl, _ = system.link_headloss(q)
+    open_ = (r.link_state == 0) & r.supplied[net.from_idx] & r.supplied[net.to_idx]
+    dh = r.head_m[net.from_idx] - r.head_m[net.to_idx]
+    e = np.where(open_, np.abs(hl - dh), 0.0)
+    wn = int(np.argmax(imb)) if nn else 0
+    wl = int(np.argmax(e)) if len(e) else 0
+    return float(imb[wn]) if nn else 0.0, float(e[wl]) if len(e) else 0.0, wn, wl
+
+
+def _file_sha256(path: Path) -> str:
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for chunk in iter(lambda: fh.read(1 << 20), b""):
+            h.update(chunk)
+    return h.hexdigest()
+
+
+def _attach_log_file(out_path: Path) -> logging.Handler | None:
+    log_path = out_path.with_suffix(".log")
+    try:
+        handler = logging.FileHandler(log_path, mode="w", encoding="utf-8")
+    except OSError:
+        return None
+    handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(name)s %(message)s"))
+    handler.setLevel(logging.DEBUG)
+    logging.getLogger("gridflow").addHandler(handler)
+    return handler
+
+
+def check_output_path(out_path: Path, cfg: Config) -> None:
+    """Refuse an output that is an input, or a folder that cannot be written."""
+    out_abs = out_path.resolve()
+    for name, p in cfg.inputs.items():
+        if cfg.resolve(p).resolve() == out_abs:
+            raise OutputError(f"output {out_path} is the input file {name!r}: gridflow never "
+                              "writes to an input; choose another --out", file=str(out_path))
+    folder = out_abs.parent
+    if not folder.is_dir():
+        raise OutputError(f"output folder {folder} does not exist", file=str(out_path))
+    if not os.access(folder, os.W_OK):
+        raise OutputError(f"output folder {folder} is not writable", file=str(out_path))
+
+
+def run_job(config_path: str | Path, *, out: str | Path | None = None,
+            previous: str | Path | None = None, workers: int | None = None,
+            scheduler: str | None = None) -> int:
+    """Run the nightly job; returns 0 or raises a :class:`GridflowError` (see exit codes)."""
+    from gridflow.analysis.changes import compare_flags, flag_set, read_previous_flags
+    from gridflow.demand import allocate, run_info_rows, scenario_network
+    from gridflow.io.write import write_geopackage
+    from gridflow.jobs.layers import hydrants_layer, nodes_layer, pipes_layer
+    from gridflow.topology import build_network
+
+    t_start = time.perf_counter()
+    started = _dt.datetime.now(_dt.timezone.utc)
+    cfg = load_config(config_path)
+    out_path = Path(out) if out else cfg.resolve(cfg.run.output)
+    check_output_path(out_path, cfg)
+    handler = _attach_log_file(out_path)
+    try:
+        prev_flags = read_previous_flags(previous) if previous else None
+        system_units = cfg.run.units
+        findings = Findings()
+        info: list[tuple[str, str]] = [
+            ("tool_version", __version__), ("config", str(cfg.path)),
+            ("config_sha256", cfg.sha256), ("unit_system", system_units),
+            ("headloss_model", cfg.run.headloss_model),
+        ]
+        for name, p in cfg.inputs.items():
+            info.append((f"input_sha256:{name}", _file_sha256(cfg.resolve(p))))
+
+        t0 = time.perf_counter()
+        log.info("reading and cleaning the GIS")
+        clean = build_network(cfg, findings)
+        info.append(("seconds_read_clean", f"{time.perf_counter() - t0:.2f}"))
+        log.info("network: %d nodes, %d links", clean.network.n_nodes, clean.network.n_links)
+        t0 = time.perf_counter()
+        alloc = allocate(cfg, clean, findings)
+        info += run_info_rows(alloc)
+        info.append(("seconds_demand", f"{time.perf_counter() - t0:.2f}"))
+
+        opts = solve_options(cfg)
+        layers: dict[str, object] = {}
+        results: dict[str, tuple[Network, HydraulicResult, HydraulicSystem]] = {}
+        rating = getattr(clean.links, "pressure_rating_m", None)
+        rating = None if rating is None else np.asarray(rating, dtype=float)
+        failure: ConvergenceError | None = None
+        for name in cfg.scenarios:
+            t0 = time.perf_counter()
+            net = scenario_network(cfg, clean, alloc, name)
+            system = HydraulicSystem(net, opts)
+            try:
+                r = system.solve()
+            except ConvergenceError as exc:
+                r = exc.result
+                worst = _worst_nodes(net, system, r, 10)
+                findings.add_many("not_converged", "error", f"nodes_{name}", worst,
+                                  [f"scenario {name}: {r.message}"] * len(worst),
+                                  list(clean.nodes.geometry.values[net.node_index(worst)]))
+                failure = ConvergenceError(f"scenario {name} did not converge: {r.message}",
+                                           node_id=exc.fields.get("node_id"),
+                                           link_id=exc.fields.get("link_id"))
+                info.append((f"{name}:converged", "0"))
+                break
+            mass, headres, wn, wl = verify_solution(system, r)
+            info += [(f"{name}:iterations", str(r.iterations)),
+                     (f"{name}:status_trials", str(r.trials)),
+                     (f"{name}:mass_residual_m3s", f"{mass:.3e}"),
+                     (f"{name}:head_residual_m", f"{headres:.3e}"),
+                     (f"{name}:converged", "1"),
+                     (f"{name}:seconds", f"{time.perf_counter() - t0:.2f}")]
+            if mass > 10 * opts.flow_tolerance or headres > 10 * opts.head_tolerance:
+                failure = ConvergenceError(
+                    f"scenario {name}: the solution failed its check (mass imbalance {mass:.3g} "
+                    f"m3/s at node {net.node_id[wn]}, head-loss residual {headres:.3g} m on link "
+                    f"{net.link_id[wl]})", node_id=net.node_id[wn], link_id=net.link_id[wl])
+                break
+            nodes = nodes_layer(net, r, clean.nodes.geometry.values, clean.crs, cfg.criteria,
+                                system_units)
+            pipes = pipes_layer(net, r, clean.links.geometry.values, clean.crs, cfg.criteria,
+                                system_units, rating)
+            for flag in ("low_pressure", "high_pressure", "negative_pressure"):
+                info.append((f"{name}:{flag}", str(int(nodes[flag].sum()))))
+            info.append((f"{name}:unsupplied", str(int((nodes["supplied"] == 0).sum()))))
+            for flag in ("high_velocity", "high_headloss"):
+                info.append((f"{name}:{flag}", str(int(pipes[flag].sum()))))
+            layers[f"nodes_{name}"] = nodes
+            layers[f"pipes_{name}"] = pipes
+            results[name] = (net, r, system)
+            log.info("scenario %s: %s", name, r.message)
+
+        if failure is None and cfg.fireflow.enabled and len(clean.hydrants):
+            layers["hydrants_fireflow"] = _fireflow(cfg, clean, results, opts, workers,
+                                                    scheduler, findings, info)
+
+        findings_gdf = findings.to_geodataframe(crs=clean.crs)
+        layers["findings"] = findings_gdf
+        if prev_flags is not None:
+            changes = compare_flags(flag_set(layers), prev_flags)
+            layers["changes"] = changes
+            n_new = int((changes["change"] == "new").sum())
+            n_res = int((changes["change"] == "resolved").sum())
+            info += [("changes_new", str(n_new)), ("changes_resolved", str(n_res))]
+            log.info("since the previous run: %d new flag(s), %d resolved", n_new, n_res)
+        info += [("findings", str(len(findings))),
+                 ("started_utc", started.isoformat(timespec="seconds")),
+                 ("ended_utc", _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")),
+                 ("seconds_total", f"{time.perf_counter() - t_start:.2f}")]
+        layers["run_info"] = pd.DataFrame(info, columns=["key", "value"])
+        inputs = [cfg.resolve(p) for p in cfg.inputs.values()]
+        write_geopackage(out_path, layers, inputs=inputs, styles=True)
+        log.info("wrote %s", out_path)
+        if cfg.report.enabled and failure is None:
+            _report(cfg, out_path, layers, info)
+        if failure is not None:
+            raise failure
+        return 0
+    finally:
+        if handler is not None:
+            logging.getLogger("gridflow").removeHandler(handler)
+            handler.close()
+
+
+def _worst_nodes(net: Network, system: HydraulicSystem, r: HydraulicResult, k: int) -> list:
+    nn = net.n_nodes
+    q = r.flow_m3s
+    inflow = np.bincount(net.to_idx, q, nn) - np.bincount(net.from_idx, q, nn)
+    imb = np.where(r.supplied & ~net.is_fixed, np.abs(inflow - r.demand_m3s), 0.0)
+    order = np.argsort(-imb, kind="stable")[:k]
+    return list(net.node_id[order])
+
+
+def _fireflow(cfg, clean, results, opts, workers, scheduler, findings, info):
+    from gridflow.analysis.fireflow import sweep
+    from gridflow.jobs.layers import hydrants_layer
+
+    name = cfg.fireflow.scenario
+    net, base, _ = results[name]
+    t0 = time.perf_counter()
+    hyd = clean.hydrants
+    ff = sweep(net, base, pd.DataFrame(hyd.drop(columns="geometry")), cfg.fireflow,
+               cfg.criteria, options=opts, workers=workers, scheduler=scheduler)
+    below = ff.attrs.get("base_below_minimum", [])
+    if len(below):
+        idx = net.node_index(below)
+        findings.add_many("below_minimum_before_fire", "warning", f"nodes_{name}", list(below),
+                          f"pressure is below the fire-flow system minimum in scenario {name} "
+                          "before any fire draw; not counted as limiting each hydrant",
+                          list(clean.nodes.geometry.values[idx]))
+    order = pd.Index(ff["hydrant_id"].astype(str))
+    geo = hyd.set_index(hyd["hydrant_id"].astype(str)).geometry.reindex(order).values
+    layer = hydrants_layer(ff, geo, clean.crs, cfg.run.units)
+    info += [("fireflow:scenario", name), ("fireflow:hydrants", str(len(ff))),
+             ("fireflow:failing", str(int((ff["meets_required"] == 0).sum()))),
+             ("fireflow:seconds", f"{time.perf_counter() - t0:.2f}")]
+    return layer
+
+
+def _report(cfg, out_path, layers, info):
+    from gridflow.report import write_report
+
+    html = out_path.with_suffix(".html")
+    c = cfg.criteria
+    from gridflow.units import M_HEAD_PER_PSI, KPA_PER_M_HEAD, FT
+
+    if cfg.run.units == "US":
+        crit = {"min_pressure": f"{c.min_pressure / M_HEAD_PER_PSI:.0f} psi",
+                "max_pressure": f"{c.max_pressure / M_HEAD_PER_PSI:.0f} psi",
+                "max_velocity": f"{c.max_velocity / FT:.1f} ft/s"}
+    else:
+        crit = {"min_pressure": f"{c.min_pressure * KPA_PER_M_HEAD:.0f} kPa",
+                "max_pressure": f"{c.max_pressure * KPA_PER_M_HEAD:.0f} kPa",
+                "max_velocity": f"{c.max_velocity:.2f} m/s"}
+    write_report(html, layers, info, units=cfg.run.units, hgl_path=cfg.report.hgl_path or None,
+                 worst_rows=cfg.report.worst_rows, criteria=crit)
+    log.info("wrote %s", html)
