@@ -609,7 +609,7 @@ def _spread_zones(ctx: _Context, node_zone: np.ndarray, junction: np.ndarray,
         key = f"demand.zones.{name}"
         in_zone = (node_zone == name) & junction
         if not in_zone.any():
-            listed = ", ".join(repr(z) for z in known if z) or "none"
+            listed = ", ".join(repr(str(z)) for z in known if z) or "none"
             raise ConfigError(f"config key {key} names zone {name!r}, which has no junctions in "
                               f"the network (zones: {listed})", key=key)
         use_z = float(used[in_zone].sum()) if used is not None else 0.0
