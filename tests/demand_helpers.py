@@ -158,6 +158,8 @@ def make_cfg(demand: dict | None = None, scenarios: dict | None = None, units: s
     }
     if scenarios is not None:
         table["scenarios"] = scenarios
+        if "max_day" not in scenarios:
+            table["fireflow"] = {"scenario": next(iter(scenarios))}
     return parse_config(table)
 
 
