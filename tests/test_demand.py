@@ -415,3 +415,25 @@ def test_inputs_are_not_modified():
     assert np.array_equal(clean.network.demand_m3s, net_demand)
     assert shapely.equals(clean.meters.geometry.array, before.geometry.array).all()
     assert clean.meters.crs == CRS
+
+
+def test_zone_total_spreads_production_by_meter_share_without_adding_billing():
+    meters = make_meters([("M1", 100.0, 5.0, 300.0, "RES", "north"),
+                          ("M2", 300.0, 5.0, 100.0, "RES", "north")])
+    clean = make_clean(meters)
+    cfg = make_cfg({"method": "zone_total", "spread": "meters",
+                    "zones": {"north": {"production": "1000 gal/day"}}})
+    alloc = allocate(cfg, clean, Findings())
+    d = alloc.node_demand_m3s
+    assert d.sum() == pytest.approx(1000 * GPD, rel=1e-12)  # production only
+    assert d[node_pos(clean, "A")] == pytest.approx(0.75 * 1000 * GPD, rel=1e-12)
+    assert d[node_pos(clean, "C")] == pytest.approx(0.25 * 1000 * GPD, rel=1e-12)
+    assert [r.metered_m3s for r in alloc.totals] == [0.0]
+
+
+def test_zero_search_distance_means_no_limit():
+    meters = make_meters([("FAR", 1000.0, 1000.0, 10.0, "RES")])
+    clean = make_clean(meters)
+    alloc = allocate(make_cfg({"search_distance": "0 m"}), clean, Findings())
+    assert alloc.meter_link_idx[0] == 2  # P3, ending at C (300, 0), the nearest main
+    assert demand_of(alloc, clean, "C") == pytest.approx(10.0 * GPD, rel=1e-12)

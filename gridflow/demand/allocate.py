@@ -171,12 +171,10 @@ def allocate(cfg, clean, findings: Findings) -> DemandAllocation:
             categories = tuple(dict.fromkeys(categories + tuple(meters.categories)))
             metered = _accumulate(meters, net)
         point = _point_demands(ctx, clean, meters)
-        if dem.method == "zone_total":
-            weights_from_meters = metered
+        meter_weights = metered  # spread = "meters" weighs by billing under either method
+        if dem.method == "zone_total":  # billing places the spread but is not added to it
             metered = {}
-        else:
-            weights_from_meters = metered
-        spread = _spread_zones(ctx, node_zone, junction, metered, point, weights_from_meters)
+        spread = _spread_zones(ctx, node_zone, junction, metered, point, meter_weights)
 
     node_cat: dict[str, np.ndarray] = {}
     for part in (metered, spread, point):
@@ -186,7 +184,7 @@ def allocate(cfg, clean, findings: Findings) -> DemandAllocation:
 
     total = sum(float(a.sum()) for a in node_cat.values())
     if dem.method != "none" and total == 0.0:
-        findings.add("no_demand", "warning", ctx.meter_layer, "",
+        findings.add("no_demand", "warning", "demand", "",
                      "no demand was allocated: no usable meters, zone totals or point demands")
     return DemandAllocation(
         node_category_m3s=node_cat, totals=totals, node_id=np.asarray(net.node_id),
