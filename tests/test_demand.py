@@ -15,7 +15,7 @@ import pint
 import pytest
 import shapely
 
-from demand_helpers import CRS, make_cfg, make_clean, make_meters, node_pos
+from .demand_helpers import CRS, make_cfg, make_clean, make_meters, node_pos
 from gridflow.demand import allocate, run_info_rows
 from gridflow.errors import ConfigError, InputError
 from gridflow.findings import Findings
