@@ -130,7 +130,7 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
         log.info("network: %d nodes, %d links", clean.network.n_nodes, clean.network.n_links)
         t0 = time.perf_counter()
         alloc = allocate(cfg, clean, findings)
-        info += run_info_rows(alloc)
+        info += run_info_rows(alloc, cfg.run.units)
         info.append(("seconds_demand", f"{time.perf_counter() - t0:.2f}"))
 
         opts = solve_options(cfg)
