@@ -630,12 +630,12 @@ class Attacher:
         fr = self.hyd
         if fr is None or len(fr) == 0:
             return gpd.GeoDataFrame(
-                {"hydrant_id": pd.Series([], dtype=object), "node_idx": pd.Series([], int),
+                {"hydrant_id": pd.Series([], dtype=object), "node_idx": pd.Series([], dtype="int64"),
                  "node_id": pd.Series([], dtype=object), "zone": pd.Series([], dtype=object),
-                 "required_fire_flow_m3s": pd.Series([], float),
+                 "required_fire_flow_m3s": pd.Series([], dtype=float),
                  "land_use": pd.Series([], dtype=object),
-                 "lateral_length_m": pd.Series([], float),
-                 "lateral_diameter_m": pd.Series([], float)},
+                 "lateral_length_m": pd.Series([], dtype=float),
+                 "lateral_diameter_m": pd.Series([], dtype=float)},
                 geometry=gpd.GeoSeries([], crs=crs), crs=crs)
         ok = self.hyd_key >= 0
         ni = idx_of_key[self.hyd_key[ok]]
