@@ -293,9 +293,10 @@ class Attacher:
         last = p_k == n_ev[p_line]
         first = p_k == 0
         e_end = ev_before[p_line] + p_k  # event ending this piece (when not last)
-        p_from = np.where(first, start_key[p_line], ev_down[np.clip(e_end - 1, 0, None)])
-        p_to = np.where(last, end_key[p_line], ev_up[np.clip(e_end, 0, max(len(ev_up) - 1, 0))]
-                        if len(ev_up) else end_key[p_line])
+        ev_up = np.r_[ev_up, -1].astype(np.int64)  # a sentinel keeps the indexing in range
+        ev_down = np.r_[ev_down, -1].astype(np.int64)
+        p_from = np.where(first, start_key[p_line], ev_down[np.maximum(e_end - 1, 0)])
+        p_to = np.where(last, end_key[p_line], ev_up[np.minimum(e_end, len(ev_up) - 1)])
         split_n = n_ev[p_line] > 0
         pid = b.ids[p_line].astype(object)
         pid[split_n] = [f"{a}.{k + 1}" for a, k in zip(pid[split_n], p_k[split_n])]
