@@ -262,21 +262,23 @@ def _numbers(col: pd.Series, ids: np.ndarray, info: LayerInfo, fname: str) -> np
 def _texts(col: pd.Series, role: str, role_name: str, codes: dict | None, ids, info,
            findings: Findings) -> np.ndarray:
     """Text values; codes mapped; CODE_TARGETS roles checked (unknown -> None, a finding)."""
-    vals = col.to_numpy(dtype=object)
     missing = pd.isna(col).to_numpy()
-    out = np.empty(len(vals), dtype=object)
-    txt = np.array([_code_text(v) for v in vals[~missing]], dtype=object)
+    if col.dtype.kind == "f":  # integral numbers as codes: 3.0 -> "3"
+        whole = col.where(col.isna() | (col % 1 != 0), col.round().astype("Int64").astype(str))
+        txt = whole.astype(str)
+    else:
+        txt = col.astype(str)
+    txt = txt.str.strip()
     if codes:
-        mapped = pd.Series(txt, dtype=object).map(codes).to_numpy(dtype=object)
-        keep = pd.isna(mapped)
-        mapped[keep] = txt[keep]
-        txt = mapped
-    out[~missing] = txt
+        mapped = txt.map(codes)
+        txt = mapped.where(mapped.notna(), txt)
+    out = txt.to_numpy(dtype=object).copy()
     out[missing] = None
     targets = CODE_TARGETS.get(role_name)
     if targets is not None:
-        low = np.array([None if v is None else str(v).strip().lower() for v in out], dtype=object)
-        ok = np.isin(low.astype(str), targets) | (low == None)  # noqa: E711
+        low = pd.Series(out, dtype=object).str.lower().to_numpy(dtype=object).copy()
+        low[missing] = None
+        ok = pd.Series(low).isin(targets).to_numpy() | missing
         if not ok.all():
             rows = np.flatnonzero(~ok)
             findings.add_many("unknown_code", "warning", info.layer, ids[rows],
@@ -286,12 +288,6 @@ def _texts(col: pd.Series, role: str, role_name: str, codes: dict | None, ids, i
             low[rows] = None
         out = low
     return out
-
-
-def _code_text(v) -> str:
-    if isinstance(v, float) and v.is_integer():
-        return str(int(v))
-    return str(v).strip()
 
 
 def sample_dem(path: Path, x: np.ndarray, y: np.ndarray, crs, unit_factor_m: float) -> np.ndarray:

@@ -528,23 +528,18 @@ class Attacher:
                              self.b.crs, unit_factor("nodes", "elevation", cfg.elevation.unit))
             elev = np.where(np.isfinite(elev), elev, dem)
         known = np.isfinite(elev)
-        missing0 = ~known
-        e = np.where(known, elev, 0.0)
-        for _ in range(1000):
-            cnt = adj @ known.astype(float)
-            cand = ~known & (cnt > 0)
-            if not cand.any():
-                break
-            tot = adj @ np.where(known, e, 0.0)
-            e[cand] = tot[cand] / cnt[cand]
-            known |= cand
-        filled = missing0 & known
-        pts = shapely.points(node_xy)
+        e = _harmonic_fill(np.where(known, elev, 0.0), known, adj)
+        filled = ~known & np.isfinite(e)
+        left = ~known & ~np.isfinite(e)
+        e[left] = 0.0
+        sel = np.flatnonzero(filled | left)
+        pts = np.full(len(e), None, dtype=object)
+        pts[sel] = shapely.points(node_xy[sel])
         f.add_many("elevation_missing", "warning", "nodes", node_id[filled],
                    [f"elevation missing; {x:.2f} m interpolated from neighbouring nodes"
                     for x in e[filled]], pts[filled])
-        f.add_many("elevation_missing", "error", "nodes", node_id[~known],
-                   "elevation missing and no neighbour has one; 0 m used", pts[~known])
+        f.add_many("elevation_missing", "error", "nodes", node_id[left],
+                   "elevation missing and no connected node has one; 0 m used", pts[left])
         return e
 
     def _device_columns(self, cols, role, fr, pts, li, fi, ti):
@@ -650,8 +645,41 @@ class Attacher:
             geometry=np.asarray(fr.geometry.values, dtype=object)[ok], crs=crs)
 
 
+def _harmonic_fill(e: np.ndarray, known: np.ndarray, adj) -> np.ndarray:
+    """Unknown values as the mean of their neighbours' (harmonic interpolation on the graph).
+
+    Notes
+    -----
+    Solves ``(D - A)_uu x_u = A_uk e_k`` for the unknown nodes ``u`` of every connected part
+    holding at least one known node (``D`` the degree, ``A`` the adjacency): each unknown value
+    is then exactly the mean of its neighbours'. Parts with no known value stay NaN.
+    """
+    from scipy.sparse import diags
+    from scipy.sparse.csgraph import connected_components
+    from scipy.sparse.linalg import spsolve
+
+    out = np.where(known, e, np.nan)
+    if known.all() or not known.any():
+        return out
+    _, comp = connected_components(adj, directed=False)
+    has = np.zeros(comp.max() + 1, bool)
+    has[comp[known]] = True
+    u = np.flatnonzero(~known & has[comp])
+    if len(u) == 0:
+        return out
+    k = np.flatnonzero(known)
+    a = (adj > 0).astype(float).tocsr()
+    deg = np.asarray(a.sum(axis=1)).ravel()
+    auu = (diags(deg[u]) - a[u][:, u]).tocsc()
+    rhs = a[u][:, k] @ e[k]
+    out[u] = spsolve(auu, rhs)
+    return out
+
+
 def _prefix_collisions(ids: np.ndarray, kind: np.ndarray) -> np.ndarray:
     """Valve and pump ids that repeat a pipe id are prefixed with their kind ('valve:12')."""
+    if (kind == LINK_PIPE).all():
+        return ids.astype(object)
     ids = ids.astype(object).copy()
     pipe_ids = set(ids[kind == LINK_PIPE].tolist())
     for k, name in ((LINK_VALVE, "valve"), (LINK_PUMP, "pump")):

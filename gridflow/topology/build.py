@@ -293,14 +293,22 @@ class _Builder:
         cxy = cxy[used]
         self.cluster_node = node_of_cluster[used]
         self.nodes_frame = nodes
-        moved = np.hypot(*(pts[:2 * n] - cxy[np.concatenate([lab_s, lab_e])]).T)
+        lab2 = np.concatenate([lab_s, lab_e])
+        moved = np.hypot(*(pts[:2 * n] - cxy[lab2]).T)
         mv = moved > _EPS
         if mv.any():
-            which = np.flatnonzero(mv)
-            f.add_many("end_snapped", "info", layer, np.concatenate([ids, ids])[which],
-                       [f"{'start' if w < n else 'end'} moved {d:.2f} m to join a node"
-                        for w, d in zip(which, moved[which])],
-                       shapely.points(pts[:2 * n][which]))
+            # one finding per node where ends moved: the first pipe there, the ends, the most
+            # any end moved
+            ends = np.flatnonzero(mv)
+            cl = np.flatnonzero(np.bincount(lab2[ends], minlength=len(cxy)))
+            dmax = np.zeros(len(cxy))
+            np.maximum.at(dmax, lab2, moved)
+            k = np.bincount(lab2, minlength=len(cxy))
+            first = np.full(len(cxy), n)
+            np.minimum.at(first, lab2, np.arange(2 * n) % n)
+            f.add_many("end_snapped", "info", layer, ids[first[cl]],
+                       [f"{c} pipe ends joined; an end moved {d:.2f} m" for c, d in
+                        zip(k[cl], dmax[cl])], shapely.points(cxy[cl]))
             geoms = set_end_points(geoms, cxy[lab_s], cxy[lab_e])
         # z at clusters, for elevation source z
         self.cluster_z = np.full(len(cxy), np.nan)
