@@ -28,14 +28,17 @@ from gridflow.config.schema import (
     one_of,
     opt,
     parse_section,
+    quantity,
     section,
     str_map,
     table_of,
 )
 from gridflow.errors import ConfigError
+from gridflow.units import DIAMETER, FLOW, HEAD, LENGTH, PRESSURE
 
 __all__ = ["LayerSection", "LayersSection", "ElevationSection", "RoughnessSection",
-           "RoughnessRule", "ROLE_FIELDS", "ROLES"]
+           "RoughnessRule", "ROLE_FIELDS", "ROLES", "NUMERIC_FIELDS", "TEXT_FIELDS",
+           "SEARCH_DISTANCE_DEFAULT", "unit_factor"]
 
 #: gridflow's field roles per layer role; required roles first, marked with a trailing '*'
 ROLE_FIELDS: dict[str, tuple[str, ...]] = {
@@ -52,6 +55,65 @@ ROLE_FIELDS: dict[str, tuple[str, ...]] = {
     "meters": ("consumption*", "category", "zone"),
 }
 ROLES = tuple(ROLE_FIELDS)
+
+#: numeric field roles per layer role and the unit table their ``units`` entry is read from
+#: (None: a plain number, no unit). ``consumption`` stays raw: ``[demand] consumption_unit``.
+NUMERIC_FIELDS: dict[str, dict[str, dict[str, float] | None]] = {
+    "pipes": {"diameter": DIAMETER, "install_year": None, "roughness": None, "length": LENGTH,
+              "pressure_rating": PRESSURE, "minor_loss_k": None},
+    "nodes": {"elevation": HEAD},
+    "hydrants": {"required_fire_flow": FLOW, "elevation": HEAD, "lateral_length": LENGTH,
+                 "lateral_diameter": DIAMETER},
+    "valves": {"setting": PRESSURE, "diameter": DIAMETER, "elevation": HEAD,
+               "minor_loss_k": None},
+    "tanks": {"bottom_elevation": HEAD, "level": LENGTH, "max_level": LENGTH,
+              "diameter": DIAMETER},
+    "pumps": {"design_flow": FLOW, "design_head": HEAD, "flow_1": FLOW, "head_1": HEAD,
+              "flow_2": FLOW, "head_2": HEAD, "flow_3": FLOW, "head_3": HEAD, "speed": None},
+    "sources": {"head": HEAD, "elevation": HEAD},
+    "meters": {"consumption": None},
+}
+#: text field roles (everything mapped that is not numeric)
+TEXT_FIELDS: dict[str, tuple[str, ...]] = {
+    role: tuple(r.rstrip("*") for r in ROLE_FIELDS[role]
+                if r.rstrip("*") not in NUMERIC_FIELDS[role])
+    for role in ROLE_FIELDS
+}
+#: unit spellings accepted besides the unit tables' own names
+_UNIT_ALIASES = {"m of head": "m", "m head": "m", "ft of head": "ft", "ft head": "ft",
+                 "feet": "ft", "foot": "ft", "inch": "in", "inches": "in", "meter": "m",
+                 "metre": "m", "meters": "m", "metres": "m", "l/s": "l/s", "lps": "l/s",
+                 "kpa": "kpa", "gal/min": "gpm"}
+
+#: how far a point feature may be from a main and still attach to it, when the layer
+#: section gives no ``search_distance`` [m] (common practice: hydrants sit on a short lateral;
+#: valves and pumps are drawn on the main; tanks and sources at the end of a main)
+SEARCH_DISTANCE_DEFAULT = {"hydrants": 30.0, "valves": 5.0, "pumps": 5.0, "tanks": 50.0,
+                           "sources": 50.0}
+
+
+def unit_factor(role: str, field_role: str, unit: str | None, key: str = "") -> float:
+    """Factor from ``unit`` to SI for a numeric field role (pressures as metres of head).
+
+    Raises
+    ------
+    ConfigError
+        Naming ``key`` when the unit is missing or not one the field's table knows.
+    """
+    table = NUMERIC_FIELDS[role][field_role]
+    if table is None:
+        return 1.0
+    if unit is None:
+        raise ConfigError(f"config key {key} is required: {field_role} is a measured value; "
+                          f"give its unit, one of {', '.join(sorted(table))}", key=key)
+    u = unit.strip().lower()
+    u = _UNIT_ALIASES.get(u, u)
+    lowered = {k.lower(): v for k, v in table.items()}
+    if u not in lowered:
+        raise ConfigError(f"config key {key}: unknown unit {unit!r} for {field_role}; expected "
+                          f"one of {', '.join(sorted(table))}", key=key)
+    return lowered[u]
+
 
 #: coded values each role understands, and what they map to
 CODE_TARGETS = {
@@ -72,6 +134,14 @@ class LayerSection:
     codes: dict = opt(parse=table_of(str_map), default_factory=dict,
                       doc="coded values per role, e.g. codes.status = { ACT = 'open' }")
     where: str = opt("", parse=P_STR, doc="optional SQL filter passed to the reader")
+    search_distance: float | None = opt(
+        None, parse=quantity("length", minimum=0.0),
+        doc="hydrants, valves, pumps, tanks, sources: farthest distance from a main to attach "
+            "(default hydrants 30 m, valves and pumps 5 m, tanks and sources 50 m)")
+    default_diameter: float | None = opt(
+        None, parse=quantity("length", minimum=0.0),
+        doc="pipes: diameter used where it is missing, zero or above 120 in (each one a "
+            "warning finding); unset: such pipes are left out (error finding)")
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -145,6 +215,19 @@ def check_layer_roles(layers: LayersSection, inputs: dict[str, str]) -> None:
             if r not in sec.fields:
                 raise ConfigError(f"config key {where}.units.{r} gives a unit for a field that is "
                                   "not mapped", key=f"{where}.units.{r}")
+        for r in sec.fields:
+            if r in NUMERIC_FIELDS[role]:
+                unit_factor(role, r, sec.units.get(r), f"{where}.units.{r}")
+        if sec.search_distance is not None and role not in SEARCH_DISTANCE_DEFAULT:
+            raise ConfigError(f"config key {where}.search_distance applies only to "
+                              f"{', '.join(SEARCH_DISTANCE_DEFAULT)}",
+                              key=f"{where}.search_distance")
+        if sec.default_diameter is not None and role != "pipes":
+            raise ConfigError(f"config key {where}.default_diameter applies only to pipes",
+                              key=f"{where}.default_diameter")
+        if sec.default_diameter is not None and not 0 < sec.default_diameter <= 120 * 0.0254:
+            raise ConfigError(f"config key {where}.default_diameter must be above 0 and at most "
+                              "120 in", key=f"{where}.default_diameter")
         for r, table in sec.codes.items():
             targets = CODE_TARGETS.get(r)
             if targets is None:
