@@ -150,7 +150,7 @@ def make_cfg(demand: dict | None = None, scenarios: dict | None = None, units: s
         "inputs": {"gis": "millbrook.gpkg"},
         "layers": {
             "pipes": {"input": "gis", "layer": "mains", "id": "MAIN_ID",
-                      "fields": {"diameter": "DIAM"}},
+                      "fields": {"diameter": "DIAM"}, "units": {"diameter": "in"}},
             "meters": {"input": "gis", "layer": "billing_meters", "id": "ACCT",
                        "fields": {"consumption": "USE_GPD", "category": "CLASS"}},
         },

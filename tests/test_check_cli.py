@@ -5,7 +5,7 @@ import pandas as pd
 import pyogrio
 import pytest
 from click.testing import CliRunner
-from gis_helpers import L, P, layer, pipe, source_rows
+from .gis_helpers import L, P, layer, pipe, source_rows
 
 from gridflow.cli.main import _register, cli
 from gridflow.errors import OutputError

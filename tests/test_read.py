@@ -4,7 +4,7 @@ import hashlib
 
 import numpy as np
 import pytest
-from gis_helpers import CRS, L, P, X0, Y0, config, layer, pipe, source_layer, source_rows
+from .gis_helpers import CRS, L, P, X0, Y0, config, layer, pipe, source_layer, source_rows
 
 from gridflow.errors import InputError
 from gridflow.findings import Findings

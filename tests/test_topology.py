@@ -10,7 +10,7 @@ from collections import Counter
 import geopandas as gpd
 import numpy as np
 import pytest
-from gis_helpers import CRS, L, ML, P, config, layer, pipe, source_layer, source_rows
+from .gis_helpers import CRS, L, ML, P, config, layer, pipe, source_layer, source_rows
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 

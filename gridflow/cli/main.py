@@ -86,5 +86,7 @@ def main(argv=None) -> None:
     cli.main(args=argv, prog_name="gridflow")
 
 
+_register()
+
 if __name__ == "__main__":
     main()

@@ -80,6 +80,16 @@ class CleanNetwork:
     crs: object
     inputs: list = field(default_factory=list)
 
+    @property
+    def tank_bottom_m(self):
+        """Bottom elevation per node [m] (a tank node's elevation), NaN where not a tank."""
+        import numpy as np
+
+        from gridflow.network import NODE_TANK
+
+        net = self.network
+        return np.where(net.node_kind == NODE_TANK, net.elevation_m, np.nan)
+
     @functools.cached_property
     def graph(self):
         import networkx as nx

@@ -15,7 +15,7 @@ from gridflow.network import Network
 from .netbuild import assert_physics
 
 OPTS = SolveOptions(head_tolerance=1e-7, flow_tolerance=1e-9)
-TIGHT = SolveOptions(head_tolerance=1e-10, flow_tolerance=1e-10)
+TIGHT = SolveOptions(head_tolerance=1e-10, flow_tolerance=1e-8)
 
 
 def random_network(seed: int, n: int) -> Network:
