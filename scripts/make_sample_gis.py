@@ -101,7 +101,7 @@ ARTERIAL_ROWS_12 = {22}  # 12 in across town to the booster station
 ARTERIAL_COLS_12 = {22}
 PUMP_ROW = 22
 EAST_BOUNDARY_ROWS = (15, 19, 26, 30)  # closed valves between CENTRAL and EAST_HILL
-PRV_COLS = {14: 875.0, 28: 868.0}  # PRV column: target downstream grade [ft] (lead, lag)
+PRV_COLS = {14: 882.0, 28: 874.0}  # PRV column: target downstream grade [ft] (lead, lag)
 RIVER_BOUNDARY_COLS = (11, 18, 22, 25, 33)  # closed valves between CENTRAL and RIVERSIDE
 OLD_TOWN = (12, 26, 8, 16)  # i0, i1, j0, j1
 DOWNTOWN = (15, 23, 8, 13)
@@ -272,7 +272,9 @@ def build(seed: int = SEED) -> Town:
         # RIVERSIDE
         if horizontal and j == 3 and 14 <= i < 28:
             return 12, "DIST"
-        if (not horizontal and i in PRV_COLS) or (horizontal and j == 1):
+        if not horizontal and i in PRV_COLS:
+            return 12, "DIST"
+        if horizontal and j == 1:
             return 8, "DIST"
         return 6, "DIST"
 
@@ -649,9 +651,11 @@ def _place_hydrants(t: Town) -> None:
                 h["LAND_USE"] = "COM" if h["y"] > 37 * S + 700 else "R1"
             else:
                 h["LAND_USE"] = land_use(t, h["x"], h["y"], zone)
-        if "REQ_FF_GPM" not in h:
+        if "REQ_FF_GPM" not in h:  # a building-specific flow for some non-residential sites
             u = rng.random()
-            h["REQ_FF_GPM"] = (1500.0 if u < 0.04 else 3000.0 if u < 0.06 else None)
+            big = h["LAND_USE"] not in ("R1", "R2")
+            h["REQ_FF_GPM"] = (2000.0 if u < 0.15 else 3500.0 if u < 0.22 else None) if big \
+                else None
         h["STATUS"] = "OOS" if rng.random() < 0.015 else "IS"
         h["LAT_LEN_FT"] = round(float(rng.uniform(8.0, 25.0)), 1)
     # the quarry's scale house: required flow from the attribute
@@ -688,13 +692,18 @@ def _place_meters(t: Town) -> None:
             t.meters.append(dict(x=h[0], y=h[1], ACCT_CLASS=cls, AVG_GPD=round(gpd_, 1),
                                  zone=m.zone))
     # irrigation meters at the park, the cemetery and the schools
+    grid_keys = sorted(filter(_is_grid, t.nodes))
+    gxy = np.array([t.nodes[k] for k in grid_keys])
     for gi, gj, n in ((27.5, 13.5, 3), (4.0, 34.0, 2), (9.5, 18.5, 2), (24.5, 25.5, 2),
                       (42.5, 24.5, 2), (30.5, 9.5, 2)):
+        # at the street corner nearest the site, set back from the mains
+        k0 = grid_keys[int(np.argmin(np.hypot(gxy[:, 0] - gi * S, gxy[:, 1] - gj * S)))]
+        x0, y0 = t.nodes[k0]
+        sx, sy = np.sign(gi * S - x0) or 1.0, np.sign(gj * S - y0) or 1.0
         for k in range(n):
-            zone = EAST_HILL if gi > 35 else (RIVERSIDE if gj < 6 else CENTRAL)
-            t.meters.append(dict(x=gi * S + 14.0 * k - 30.0, y=gj * S - 30.0 + 9.0 * k,
+            t.meters.append(dict(x=x0 + sx * (12.0 + 9.0 * k), y=y0 + sy * 12.0,
                                  ACCT_CLASS="IRR", AVG_GPD=round(1400.0 * rng.lognormal(0, .4), 1),
-                                 zone=zone))
+                                 zone=t.zone_of[k0]))
     # the creamery at the end of Creamery Ln
     x, y = t.xy("CRM2")
     t._special["creamery_meter"] = dict(x=x + 6.0, y=y - 12.0, ACCT_CLASS="IND",
@@ -704,6 +713,12 @@ def _place_meters(t: Town) -> None:
     t._defect["far_meter"] = dict(x=3300.0, y=-520.0, ACCT_CLASS="SFR", AVG_GPD=210.0,
                                   zone=RIVERSIDE)
     t.meters.append(t._defect["far_meter"])
+    # homes on the cul-de-sac behind the valve left closed
+    line = np.asarray(t._defect["closed_cutoff_main"].verts)
+    for f, off, gpd_ in ((0.55, 10.0, 245.0), (0.7, -11.0, 180.0), (0.9, 12.0, 310.0),
+                         (0.95, -10.0, 205.0)):
+        x, y = _offset_point(line, f, off)
+        t.meters.append(dict(x=x, y=y, ACCT_CLASS="SFR", AVG_GPD=gpd_, zone=CENTRAL))
 
 
 def _offset_point(line, f, off):
