@@ -14,8 +14,8 @@ PRESS_ZONE ...), in US units: diameters in inches, elevations and levels in feet
 consumption in gallons per day, PRV settings in psi, pump curves in gpm and ft. Every main is a
 LineString Z with ground elevation [ft] at each vertex.
 
-Realistic GIS defects and hydraulic weak spots are planted on purpose; their ids are in
-``Town.planted`` and in ``sample_gis/README.md``.
+Realistic GIS defects and hydraulic weak spots are planted on purpose; their ids come from
+:func:`planted` (printed by this script) and are listed in ``sample_gis/README.md``.
 
 Usage::
 
