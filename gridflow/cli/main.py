@@ -86,7 +86,5 @@ def main(argv=None) -> None:
     cli.main(args=argv, prog_name="gridflow")
 
 
-_register()
-
 if __name__ == "__main__":
     main()
