@@ -6,4 +6,4 @@ Public functions: :func:`write_report` and :func:`hgl_profile`.
 from gridflow.report.document import CAUTIONS, write_report
 from gridflow.report.profile import hgl_profile
 
-__all__ = ["write_report", "hgl_profile", "CAUTIONS"]
+__all__ = ["CAUTIONS", "hgl_profile", "write_report"]

@@ -12,9 +12,10 @@ import logging
 import os
 import re
 import tempfile
+from collections.abc import Callable, Iterable
 from pathlib import Path
-from typing import Callable, Iterable
 
+import geopandas as gpd
 import numpy as np
 import pandas as pd
 
@@ -24,18 +25,18 @@ from gridflow.report.fields import Fields, fields_for, require
 from gridflow.report.profile import hgl_profile
 from gridflow.units import OUTPUT, UnitSystem, pressure_m_from
 
-__all__ = ["write_report", "CAUTIONS"]
+__all__ = ["CAUTIONS", "write_report"]
 
 log = logging.getLogger("gridflow")
 
 CAUTIONS = (
-    "These results are planning estimates from a hydraulic model of the GIS as it is mapped "
-    "today. Errors in the mapped network (diameters, connections, valve positions, elevations) "
-    "and in the demands carry straight into the results.",
-    "Fire-flow figures are model estimates and must be confirmed by field flow tests before "
-    "they are relied on.",
-    "Local codes, the fire authority and licensed engineers decide what is required and "
-    "whether the system meets it; this report does not.",
+    ("These results are planning estimates from a hydraulic model of the GIS as it is mapped "
+     "today. Errors in the mapped network (diameters, connections, valve positions, "
+     "elevations) and in the demands carry straight into the results."),
+    ("Fire-flow figures are model estimates and must be confirmed by field flow tests before "
+     "they are relied on."),
+    ("Local codes, the fire authority and licensed engineers decide what is required and "
+     "whether the system meets it; this report does not."),
 )
 
 NODE_FLAGS = ("low_pressure", "high_pressure", "negative_pressure")
@@ -264,9 +265,10 @@ def _summary(layers, scenarios, run_info, f: Fields, criteria, worst: str) -> st
             ("AA", "class AA", _num(0)), ("A", "class A", _num(0)), ("B", "class B", _num(0)),
             ("C", "class C", _num(0)),
             ("min_avail", f"lowest available [{f.u_flow}]", _num(0))], table_id="fire-by-zone"))
+        si = " (about 95, 63 and 32 L/s)" if f.system == "SI" else ""
         body.append(_p("Classes by available flow at 20 psi residual (NFPA 291): AA 1500 gpm "
-                       "or more, A 1000-1499, B 500-999, C below 500. Fire-flow figures are "
-                       "model estimates: confirm them by field flow tests.", "note"))
+                       f"or more, A 1000-1499, B 500-999, C below 500{si}. Fire-flow figures "
+                       "are model estimates: confirm them by field flow tests.", "note"))
     body.append(_changes(layers.get("changes")))
     if fnd is not None:
         body.append(_findings(fnd))
@@ -359,11 +361,7 @@ def _findings(fnd: pd.DataFrame) -> str:
 
 def _maps(layers, scenarios, f: Fields) -> str:
     pipes = layers[f"pipes_{scenarios[0]}"]
-    if not hasattr(pipes, "geometry") or getattr(pipes, "crs", "x") is None and False:
-        return _section("maps", "Maps", [_p("The layers carry no geometry: no maps.")])
-    try:
-        _ = pipes.geometry
-    except AttributeError:
+    if not isinstance(pipes, gpd.GeoDataFrame) or pipes.geometry.name not in pipes.columns:
         return _section("maps", "Maps", [_p("The layers carry no geometry: no maps.")])
     crs = pipes.crs
 
@@ -384,11 +382,11 @@ def _maps(layers, scenarios, f: Fields) -> str:
     body.append(_figure(figures.flagged_pipes_map(pipes, hv, hh), "map of flagged pipes",
                         "Pipes flagged for high velocity or high unit head loss in any scenario."))
     fnd = layers.get("findings")
-    if fnd is not None and hasattr(fnd, "geometry"):
+    if isinstance(fnd, gpd.GeoDataFrame) and fnd.geometry.name in fnd.columns:
         body.append(_figure(figures.findings_map(pipes, same(fnd)), "map of findings",
                             "Findings in the GIS that have a location, by severity."))
     hyd = layers.get("hydrants_fireflow")
-    if hyd is not None and hasattr(hyd, "geometry"):
+    if isinstance(hyd, gpd.GeoDataFrame) and hyd.geometry.name in hyd.columns:
         body.append(_figure(figures.hydrants_map(pipes, same(hyd)),
                             "map of hydrants by fire-flow class",
                             "Hydrants coloured by fire-flow class; rings mark hydrants below "
@@ -640,7 +638,7 @@ def write_report(html_path: Path, layers: dict, run_info: list[tuple[str, str]],
     scenarios = _scenarios(layers)
     _check_layers(layers, scenarios, f)
     worst = _worst_scenario(layers, scenarios, f)
-    info = dict((str(k), str(v)) for k, v in run_info)
+    info = {str(k): str(v) for k, v in run_info}
     title = "Network hydraulics report" + (f": {info['name']}" if info.get("name") else "")
     when = info.get("end_time") or info.get("end") or info.get("start_time") or ""
     subtitle = (f"gridflow {info.get('tool_version', '')} {('- ' + when) if when else ''} - "

@@ -13,7 +13,7 @@ import pandas as pd
 from gridflow.errors import GridflowError
 from gridflow.units import FT, KPA_PER_M_HEAD, M_HEAD_PER_PSI, UnitSystem
 
-__all__ = ["Fields", "fields_for", "detect_units", "require"]
+__all__ = ["Fields", "detect_units", "fields_for", "require"]
 
 
 @dataclass(frozen=True)

@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import base64
 import io
-from typing import Sequence
+from collections.abc import Sequence
 
 import numpy as np
 import pandas as pd
@@ -19,8 +19,15 @@ from matplotlib.lines import Line2D
 from gridflow.report import palette as pal
 from gridflow.report.fields import Fields
 
-__all__ = ["to_data_uri", "pressure_maps", "flagged_pipes_map", "findings_map", "hydrants_map",
-           "hgl_figure", "pressure_histograms"]
+__all__ = [
+    "findings_map",
+    "flagged_pipes_map",
+    "hgl_figure",
+    "hydrants_map",
+    "pressure_histograms",
+    "pressure_maps",
+    "to_data_uri",
+]
 
 DPI = 80
 
@@ -192,14 +199,16 @@ def hgl_figure(profile: pd.DataFrame, f: Fields, *, title: str,
     ground = profile[f.elevation].to_numpy(float)
     head = profile[f.head].to_numpy(float)
     rating = profile[f"rating_head_{f.u_len}"].to_numpy(float)
-    floor = np.nanmin(ground) - 0.1 * max(np.nanmax(head) - np.nanmin(ground), 1.0)
+    low = np.nanmin(np.r_[ground, head])  # a grade line below ground must stay visible
+    top = np.nanmax(np.r_[ground, head])
+    floor = low - 0.1 * max(top - low, 1.0)
     ax.fill_between(x, floor, ground, color=pal.GROUND_FILL, zorder=1)
     ax.plot(x, ground, color=pal.GROUND_EDGE, lw=1.4, label="ground", zorder=2)
     ax.plot(x, head, color=pal.HGL_LINE, lw=2.2, marker="o", ms=3.5,
             label="hydraulic grade line", zorder=4)
     if np.isfinite(rating).any():
         ax.plot(x, rating, color=pal.RATING_LINE, lw=1.4, ls="--",
-                label=f"pipe pressure-rating limit (ground + rating as head)", zorder=3)
+                label="pipe pressure-rating limit (ground + rating as head)", zorder=3)
     if min_pressure is not None:
         ax.plot(x, ground + min_pressure * f.head_per_pressure, color=pal.MIN_PRESSURE_LINE,
                 lw=1.2, ls=":", label="ground + minimum pressure", zorder=3)

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import itertools
+
 import networkx as nx
 import numpy as np
 import pandas as pd
@@ -9,7 +11,7 @@ import pandas as pd
 from gridflow.errors import ConfigError, GridflowError
 from gridflow.report.fields import detect_units, fields_for, require
 
-__all__ = ["hgl_profile", "default_path_ends"]
+__all__ = ["default_path_ends", "hgl_profile"]
 
 
 def _graph(pipes: pd.DataFrame, length_field: str) -> nx.Graph:
@@ -114,7 +116,7 @@ def hgl_profile(nodes: pd.DataFrame, pipes: pd.DataFrame,
         if len(want) < 2:
             raise ConfigError("the HGL path needs at least two node ids", key="report.hgl_path")
         path = [want[0]]
-        for a, b in zip(want[:-1], want[1:]):
+        for a, b in itertools.pairwise(want):
             try:
                 leg = nx.shortest_path(g, a, b, weight="length")
             except (nx.NetworkXNoPath, nx.NodeNotFound):
@@ -131,7 +133,7 @@ def hgl_profile(nodes: pd.DataFrame, pipes: pd.DataFrame,
                                 "by open links", layer="nodes", node_id=target) from None
         path = [str(v) for v in path]
 
-    seg = [g.edges[a, b] for a, b in zip(path[:-1], path[1:])]
+    seg = [g.edges[a, b] for a, b in itertools.pairwise(path)]
     seg_len = np.array([e["length"] for e in seg], dtype=float)
     seg_pipe = [e["pipe_id"] for e in seg]
     dist = np.concatenate([[0.0], np.cumsum(seg_len)])

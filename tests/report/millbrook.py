@@ -13,14 +13,14 @@ Q_R = Q_F ((H_S - H_R) / (H_S - H_F))^0.54 (NFPA 291, flow-test formula).
 
 from __future__ import annotations
 
+import geopandas as gpd
 import numpy as np
 import pandas as pd
-import geopandas as gpd
 import shapely
 
 from gridflow.hydraulics import solve
 from gridflow.network import Network
-from gridflow.units import OUTPUT, M_HEAD_PER_PSI, US_GALLON
+from gridflow.units import M_HEAD_PER_PSI, OUTPUT, US_GALLON
 
 CRS = "EPSG:26918"  # a projected CRS in metres
 X0, Y0 = 580_000.0, 4_650_000.0
@@ -87,7 +87,7 @@ def scenario_layers(net: Network, xy: np.ndarray, extra: dict, name: str, factor
                     system: str = "US"):
     """Solve one scenario; return (nodes, pipes, result) in contract fields."""
     r = solve(net.replace(demand_m3s=net.demand_m3s * factor))
-    su = lambda q: _conv(q, system)  # noqa: E731
+    su = lambda q: _conv(q, system)
     sup = r.supplied.astype(int)
     fixed = net.is_fixed
     p = r.pressure_m

@@ -7,6 +7,7 @@ Fixtures: the Millbrook test network of ``millbrook.py`` solved with gridflow's 
 from __future__ import annotations
 
 import base64
+import itertools
 import re
 import subprocess
 import xml.etree.ElementTree as ET
@@ -55,7 +56,8 @@ def _worst_scenario(results, net):
 class _Collector(HTMLParser):
     """Collects tags and attributes, and checks open/close nesting of non-void elements."""
 
-    VOID = {"meta", "img", "br", "hr", "input", "link", "source", "col", "area", "base", "wbr"}
+    VOID = frozenset({"meta", "img", "br", "hr", "input", "link", "source", "col", "area",
+                      "base", "wbr"})
 
     def __init__(self):
         super().__init__()
@@ -102,7 +104,7 @@ def test_html_is_well_formed(report_us):
 
 def test_html_is_self_contained(report_us):
     _, text = report_us
-    assert not re.search(r"https?://", text, re.I)
+    assert not re.search(r"https?://", text, re.IGNORECASE)
     assert "//" not in re.sub(r"data:image/png;base64,[A-Za-z0-9+/=]+", "", text).replace(
         "<!DOCTYPE html>", "")
     p = _Collector()
@@ -160,7 +162,7 @@ def test_summary_counts(run_us, report_us):
 
 
 def test_worst_nodes_and_fastest_mains(run_us, report_us):
-    layers, results, net = run_us
+    _layers, results, net = run_us
     root = ET.fromstring(report_us[1])
     junction = ~net.is_fixed
     p = np.vstack([np.where(junction, r.pressure_m, np.inf) for r in results.values()])
@@ -215,12 +217,12 @@ def test_default_profile_equals_solver_heads(run_us):
     # consecutive path nodes are joined by the pipe named in the row
     lk = net.link_index(prof["pipe_id"].iloc[1:].to_numpy())
     ends = {frozenset(e) for e in zip(net.from_idx[lk], net.to_idx[lk])}
-    assert ends == {frozenset(e) for e in zip(idx[:-1], idx[1:])}
+    assert ends == {frozenset(e) for e in itertools.pairwise(idx)}
     np.testing.assert_allclose(np.diff(prof["distance_ft"]), net.length_m[lk] / FT)
 
 
 def test_profile_rating_limit(run_us):
-    layers, results, net = run_us
+    layers, _results, _net = run_us
     pipes = layers["pipes_peak_hour"]
     prof = hgl_profile(layers["nodes_peak_hour"], pipes, ["SRC-1", "J-147"])
     rating = pipes.set_index("pipe_id")["pressure_rating_psi"]
@@ -315,7 +317,7 @@ def test_browser_renders_report(report_us, tmp_path):
            "--no-first-run", "--disable-background-networking", "--disable-component-update",
            "--disable-sync", f"--user-data-dir={tmp_path / 'profile'}", f"--screenshot={png}",
            "--window-size=1280,2000", f"file://{html_path}"]
-    proc = subprocess.run(cmd, capture_output=True, text=True, timeout=120)
+    proc = subprocess.run(cmd, check=False, capture_output=True, text=True, timeout=120)
     assert proc.returncode == 0 and png.exists(), proc.stderr[-2000:]
     import matplotlib.image as mpimg
 
@@ -328,3 +330,23 @@ def test_browser_renders_report(report_us, tmp_path):
     # the caution box's border colour (#b8323f) is drawn: the inline CSS was applied
     border = (np.abs(rgb.astype(int) - [0xB8, 0x32, 0x3F]).sum(axis=-1) < 12).sum()
     assert border > 500
+
+
+def test_sparse_layers(run_us, tmp_path):
+    """One scenario, unsupplied nodes, no hydrants or findings located, no changes layer."""
+    layers, _, _ = run_us
+    nodes = layers["nodes_avg_day"].copy()
+    cut = nodes["node_id"].isin(["J-146", "J-147"])
+    nodes.loc[cut, ["supplied", "head_ft", "pressure_psi"]] = [0, np.nan, np.nan]
+    findings = layers["findings"].iloc[:0]
+    hyd = layers["hydrants_fireflow"].iloc[:0]
+    text = write_report(tmp_path / "s.html", {"nodes_only": nodes,
+                                              "pipes_only": layers["pipes_avg_day"],
+                                              "findings": findings, "hydrants_fireflow": hyd},
+                        []).read_text(encoding="utf-8")
+    root = ET.fromstring(text)
+    assert "Not supplied in only (2): J-146, J-147" in text
+    assert [r["scenario"] for r in _table_rows(root, "scenarios")] == ["only"]
+    assert _table_rows(root, "failing-hydrants") == [{None: "none"}]
+    ids = {r["node_id"] for r in _table_rows(root, "worst-nodes")}
+    assert not ids & {"J-146", "J-147"}
