@@ -371,7 +371,7 @@ def _maps(layers, scenarios, f: Fields) -> str:
     nodes = {s: same(layers[f"nodes_{s}"]) for s in scenarios}
     body = [_figure(figures.pressure_maps(pipes, nodes, f), "map of pressure at nodes",
                     "Pressure at supplied junctions in each scenario (one colour scale). "
-                    "Hollow circles: nodes not supplied.")]
+                    "Squares: sources and tanks; hollow circles: nodes not supplied.")]
     hv = np.zeros(len(pipes), bool)
     hh = np.zeros(len(pipes), bool)
     for s in scenarios:

@@ -55,6 +55,23 @@ def _base(ax, pipes, *, color=pal.PIPE_BACKGROUND) -> None:
     ax.set_axis_off()
 
 
+def _aspect(gdf) -> float:
+    """Height over width of the layer's extent, kept between 0.35 and 1.3."""
+    try:
+        x0, y0, x1, y1 = gdf.total_bounds
+        ratio = (y1 - y0) / (x1 - x0)
+    except (AttributeError, ValueError, ZeroDivisionError):
+        return 0.8
+    return float(np.clip(ratio, 0.35, 1.3)) if np.isfinite(ratio) else 0.8
+
+
+def _map_figure(pipes) -> tuple[Figure, object]:
+    """A figure sized to the network's extent, with room for a legend on the right."""
+    fig = Figure(figsize=(9.0, 0.6 + 6.5 * _aspect(pipes)))
+    ax = fig.add_axes((0.02, 0.04, 0.72, 0.88))
+    return fig, ax
+
+
 def _legend(ax, handles) -> None:
     """Legend beside the map, never over the network."""
     ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=8,
@@ -72,7 +89,7 @@ def pressure_maps(pipes, nodes_by_scenario: dict, f: Fields) -> str:
     names = list(nodes_by_scenario)
     ncols = min(3, len(names))
     nrows = int(np.ceil(len(names) / ncols))
-    fig = Figure(figsize=(4.6 * ncols, 4.2 * nrows + 0.4))
+    fig = Figure(figsize=(4.6 * ncols, (4.2 * _aspect(pipes) + 0.6) * nrows + 0.3))
     axes = np.atleast_1d(fig.subplots(nrows, ncols, squeeze=False)).ravel()
     vals = [n.loc[_junctions(n), f.pressure].to_numpy(float) for n in nodes_by_scenario.values()]
     allv = np.concatenate(vals) if vals else np.array([0.0])
@@ -97,8 +114,8 @@ def pressure_maps(pipes, nodes_by_scenario: dict, f: Fields) -> str:
     for ax in axes[len(names):]:
         ax.set_axis_off()
     sm = _scalar_mappable(norm)
-    cb = fig.colorbar(sm, ax=list(axes[: len(names)]), shrink=0.8, pad=0.02)
-    cb.set_label(f"pressure [{f.u_pressure}] at supplied junctions; squares: sources/tanks")
+    cb = fig.colorbar(sm, ax=list(axes[: len(names)]), shrink=0.9, fraction=0.03, pad=0.02)
+    cb.set_label(f"pressure [{f.u_pressure}]")
     _crs_note(fig, pipes)
     return to_data_uri(fig)
 
@@ -117,8 +134,7 @@ def _junctions(nodes: pd.DataFrame) -> np.ndarray:
 
 def flagged_pipes_map(pipes, velocity_flag: np.ndarray, headloss_flag: np.ndarray) -> str:
     """Pipes flagged in any scenario: high velocity, high unit head loss, or both."""
-    fig = Figure(figsize=(7.5, 6.0))
-    ax = fig.subplots()
+    fig, ax = _map_figure(pipes)
     _base(ax, pipes)
     both = velocity_flag & headloss_flag
     handles = []
@@ -139,8 +155,7 @@ def flagged_pipes_map(pipes, velocity_flag: np.ndarray, headloss_flag: np.ndarra
 
 def findings_map(pipes, findings) -> str:
     """Findings with a location, by severity."""
-    fig = Figure(figsize=(7.5, 6.0))
-    ax = fig.subplots()
+    fig, ax = _map_figure(pipes)
     _base(ax, pipes)
     located = findings[findings.geometry.notna() & ~findings.geometry.is_empty]
     handles = []
@@ -166,8 +181,7 @@ def findings_map(pipes, findings) -> str:
 
 def hydrants_map(pipes, hydrants) -> str:
     """Hydrants by fire-flow class; those short of their required flow ringed."""
-    fig = Figure(figsize=(7.5, 6.0))
-    ax = fig.subplots()
+    fig, ax = _map_figure(pipes)
     _base(ax, pipes)
     cls = hydrants["nfpa_class"].fillna("").astype(str)
     fail = hydrants["meets_required"].fillna(0).astype(int).to_numpy() == 0
