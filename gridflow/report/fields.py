@@ -1,0 +1,89 @@
+"""Contract field names of the result layers, per unit system, as the report reads them.
+
+The report never converts units: it reads the fields the writer produced (``pressure_psi`` or
+``pressure_kpa``...) and shows them with the unit their suffix names.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import pandas as pd
+
+from gridflow.errors import GridflowError
+from gridflow.units import FT, KPA_PER_M_HEAD, M_HEAD_PER_PSI, UnitSystem
+
+__all__ = ["Fields", "detect_units", "fields_for", "require"]
+
+
+@dataclass(frozen=True)
+class Fields:
+    """Field names and display units of one unit system."""
+
+    system: UnitSystem
+    elevation: str
+    head: str
+    pressure: str
+    demand: str
+    required_demand: str
+    length: str
+    diameter: str
+    flow: str
+    velocity: str
+    headloss: str
+    unit_headloss: str
+    rating: str
+    static_pressure: str
+    required_flow: str
+    available_flow: str
+    residual_pressure: str
+    u_len: str
+    u_pressure: str
+    u_flow: str
+    u_velocity: str
+    u_diameter: str
+    u_unit_headloss: str
+    head_per_pressure: float  # head units per pressure unit (ft per psi or m per kPa)
+    long_length: tuple[str, float]  # (unit, factor from the length unit) for totals
+
+
+def fields_for(system: UnitSystem) -> Fields:
+    """The contract's field names for ``"US"`` or ``"SI"``."""
+    if system == "US":
+        p, q, h = "psi", "gpm", "ft"
+        return Fields("US", "elevation_ft", "head_ft", "pressure_psi", "demand_gpm",
+                      "required_demand_gpm", "length_ft", "diameter_in", "flow_gpm",
+                      "velocity_fps", "headloss_ft", "unit_headloss_ft_per_kft",
+                      "pressure_rating_psi", "static_pressure_psi", "required_flow_gpm",
+                      "available_flow_gpm", "residual_pressure_at_required_psi",
+                      h, p, q, "ft/s", "in", "ft/1000 ft",
+                      M_HEAD_PER_PSI / FT, ("mi", 1.0 / 5280.0))
+    if system == "SI":
+        p, q, h = "kPa", "L/s", "m"
+        return Fields("SI", "elevation_m", "head_m", "pressure_kpa", "demand_lps",
+                      "required_demand_lps", "length_m", "diameter_mm", "flow_lps",
+                      "velocity_mps", "headloss_m", "unit_headloss_m_per_km",
+                      "pressure_rating_kpa", "static_pressure_kpa", "required_flow_lps",
+                      "available_flow_lps", "residual_pressure_at_required_kpa",
+                      h, p, q, "m/s", "mm", "m/km",
+                      1.0 / KPA_PER_M_HEAD, ("km", 1.0 / 1000.0))
+    raise GridflowError(f"unknown unit system {system!r}; expected 'US' or 'SI'", key="units")
+
+
+def detect_units(frame: pd.DataFrame, layer: str = "nodes") -> UnitSystem:
+    """``"US"`` if the layer carries ``head_ft``, ``"SI"`` if ``head_m``."""
+    if "head_ft" in frame.columns:
+        return "US"
+    if "head_m" in frame.columns:
+        return "SI"
+    raise GridflowError(f"layer {layer} has neither head_ft nor head_m: cannot tell its units",
+                        layer=layer, field="head_ft")
+
+
+def require(frame: pd.DataFrame, layer: str, names: tuple[str, ...] | list[str]) -> None:
+    """Raise naming the layer and the first missing field."""
+    missing = [n for n in names if n not in frame.columns]
+    if missing:
+        raise GridflowError(f"layer {layer} lacks field {missing[0]} needed by the report "
+                            f"(has: {', '.join(map(str, frame.columns))})",
+                            layer=layer, field=missing[0])
