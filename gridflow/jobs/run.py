@@ -116,7 +116,7 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
         system_units = cfg.run.units
         findings = Findings()
         info: list[tuple[str, str]] = [
-            ("tool_version", __version__), ("config", str(cfg.path)),
+            ("name", cfg.run.name), ("tool_version", __version__), ("config", str(cfg.path)),
             ("config_sha256", cfg.sha256), ("unit_system", system_units),
             ("headloss_model", cfg.run.headloss_model),
         ]
@@ -157,7 +157,7 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
                 info.append((f"{name}:converged", "0"))
                 break
             mass, headres, wn, wl = verify_solution(system, r)
-            info += [(f"{name}:iterations", str(r.iterations)),
+            info += [(f"iterations_{name}", str(r.iterations)),
                      (f"{name}:status_trials", str(r.trials)),
                      (f"{name}:mass_residual_m3s", f"{mass:.3e}"),
                      (f"{name}:head_residual_m", f"{headres:.3e}"),

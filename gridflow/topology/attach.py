@@ -508,11 +508,12 @@ class Attacher:
             if fr is None or len(fr) == 0:
                 continue
             ok = key >= 0
-            if src == "attribute":
-                e = _col(fr, "elevation")
-            elif src == "z" and shapely.has_z(pts).any():
+            if src == "z" and shapely.has_z(pts).any():
                 e = shapely.get_coordinates(pts, include_z=True)[:, 2] * unit_factor(
                     "nodes", "elevation", self.b.cfg.elevation.unit)
+            elif src in ("attribute", "z"):
+                # flat point features on Z-mapped mains: their elevation attribute, if mapped
+                e = _col(fr, "elevation")
             else:
                 continue
             i = idx_of_key[key[ok]]
