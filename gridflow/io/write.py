@@ -19,7 +19,7 @@ __all__ = ["write_geopackage"]
 
 def write_geopackage(path: str | Path, layers: Mapping[str, object], *,
                      inputs: Sequence[str | Path] = (),
-                     styles: Mapping[str, str] | None = None) -> Path:
+                     styles: bool = False) -> Path:
     """Write layers to a GeoPackage, atomically.
 
     Parameters
@@ -31,8 +31,9 @@ def write_geopackage(path: str | Path, layers: Mapping[str, object], *,
         attribute-only table (e.g. ``run_info``).
     inputs : sequence of paths
         The run's input files: writing over one of them is refused.
-    styles : mapping of str to str, optional
-        Reserved for per-layer default styles (not written yet).
+    styles : bool, optional
+        Store a default style for each result layer (``nodes_*``, ``pipes_*``,
+        ``hydrants_fireflow``) in the ``layer_styles`` table (:mod:`gridflow.io.styles`).
 
     Returns
     -------
@@ -64,6 +65,10 @@ def write_geopackage(path: str | Path, layers: Mapping[str, object], *,
     try:
         for name, df in layers.items():
             _write_layer(pyogrio, tmp, name, df)
+        if styles:
+            from gridflow.io.styles import store_styles
+
+            store_styles(tmp, list(layers))
         os.replace(tmp, target)
     except BaseException:
         for p in (tmp, tmp + "-journal", tmp + "-wal", tmp + "-shm"):
