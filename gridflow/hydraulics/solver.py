@@ -144,6 +144,9 @@ class HydraulicSystem:
     ----------
     net : Network
     options : SolveOptions, optional
+    share : HydraulicSystem, optional
+        A system of a network with the same links between the same nodes (another scenario):
+        its sparsity pattern, ordering and symbolic factorization are reused.
 
     Examples
     --------
@@ -156,16 +159,26 @@ class HydraulicSystem:
     6.42
     """
 
-    def __init__(self, net: Network, options: SolveOptions | None = None) -> None:
+    def __init__(self, net: Network, options: SolveOptions | None = None, *,
+                 share: "HydraulicSystem | None" = None) -> None:
         self.net = net
         self.opt = options or SolveOptions()
         nl, nn = net.n_links, net.n_nodes
         self.nn, self.nl = nn, nl
         self.fr = net.from_idx
         self.to = net.to_idx
-        self.pattern = FixedPatternSPD(nn, self.fr, self.to, backend=self.opt.backend)
+        if share is not None and share.shares_pattern_with(net, self.opt):
+            # same links between the same nodes: reuse the ordering and symbolic analysis
+            self.pattern = share.pattern
+        else:
+            self.pattern = FixedPatternSPD(nn, self.fr, self.to, backend=self.opt.backend)
         self._prepare_links()
-        self._factored = False
+
+    def shares_pattern_with(self, net: Network, options: SolveOptions) -> bool:
+        """True if ``net`` has this system's sparsity pattern (scenarios of one network)."""
+        return (options.backend == self.opt.backend and net.n_nodes == self.nn
+                and (net.from_idx is self.fr or np.array_equal(net.from_idx, self.fr))
+                and (net.to_idx is self.to or np.array_equal(net.to_idx, self.to)))
 
     # ------------------------------------------------------------------ link laws
     def _prepare_links(self) -> None:

@@ -139,10 +139,12 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
         rating = getattr(clean.links, "pressure_rating_m", None)
         rating = None if rating is None else np.asarray(rating, dtype=float)
         failure: ConvergenceError | None = None
+        shared: HydraulicSystem | None = None  # one symbolic analysis for every scenario
         for name in cfg.scenarios:
             t0 = time.perf_counter()
             net = scenario_network(cfg, clean, alloc, name)
-            system = HydraulicSystem(net, opts)
+            system = HydraulicSystem(net, opts, share=shared)
+            shared = system
             try:
                 r = system.solve()
             except ConvergenceError as exc:

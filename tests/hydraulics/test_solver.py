@@ -377,3 +377,22 @@ def test_against_scipy_root_with_pump_check_valve_and_prv():
     q_ref, h_ref, fi = _root_reference(n, r)
     assert r.flow_m3s == pytest.approx(q_ref, abs=1e-6)
     assert r.head_m[fi] == pytest.approx(h_ref, abs=1e-5)
+
+
+def test_scenarios_share_one_symbolic_analysis():
+    # a second scenario of the same network reuses the pattern and gives the same answer as a
+    # fresh system
+    from gridflow.hydraulics import HydraulicSystem
+
+    n = net([("R", 0, 0, 50.0), ("A", 0, 0.01, None), ("B", 0, 0.02, None)],
+            [pipe("1", "R", "A", 100, 0.2), pipe("2", "A", "B", 100, 0.1),
+             pipe("3", "R", "B", 300, 0.15)])
+    s1 = HydraulicSystem(n)
+    s1.solve()
+    n2 = n.replace(demand_m3s=n.demand_m3s * 2.5)
+    s2 = HydraulicSystem(n2, share=s1)
+    assert s2.pattern is s1.pattern
+    r_shared = s2.solve(raise_on_failure=True)
+    r_fresh = HydraulicSystem(n2).solve()
+    np.testing.assert_allclose(r_shared.head_m, r_fresh.head_m, atol=1e-9)
+    assert_physics(n2, r_shared)
