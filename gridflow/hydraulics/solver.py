@@ -368,30 +368,39 @@ class HydraulicSystem:
         converged = False
         it = 0
         hl, g = self.link_headloss(q)
+        # everything fixed within the Newton loop is computed once per status trial
+        cond_f = conducting.astype(float)
+        free_f = free[fr].astype(float)
+        free_t = free[to].astype(float)
+        off_mask = free_f * free_t
+        hf = np.where(dirichlet, h, 0.0)
+        hfo_f = hf[to] * free_f  # known head at the other end, seen from the from node
+        hfo_t = hf[fr] * free_t
+        h_dir = np.where(dirichlet, h, 0.0)
+        any_active = bool(active.any())
+        data = np.zeros(pat.nnz)
         for it in range(1, opt.max_iter + 1):
-            w = np.where(conducting, 1.0 / g, 0.0)
-            y = np.where(conducting, q - w * hl, 0.0)
-            y = np.where(active, q, y)
-            # assemble
-            free_f, free_t = free[fr], free[to]
+            w = cond_f / g
+            y = cond_f * q - w * hl
+            if any_active:
+                y = np.where(active, q, y)
+            # assemble: diagonal, right-hand side (-A'y, known heads, demand), off-diagonals
             diag = (np.bincount(fr, weights=w * free_f, minlength=nn)
                     + np.bincount(to, weights=w * free_t, minlength=nn))
-            # rhs at node: -(sum over links from it of y) + (sum over links into it of y)
-            rhs = -np.bincount(fr, weights=y, minlength=nn) + np.bincount(to, weights=y,
-                                                                          minlength=nn)
-            hf = np.where(dirichlet, h, 0.0)
-            rhs += np.bincount(fr, weights=w * hf[to] * free_f, minlength=nn)
-            rhs += np.bincount(to, weights=w * hf[fr] * free_t, minlength=nn)
+            rhs = (np.bincount(fr, weights=w * hfo_f - y, minlength=nn)
+                   + np.bincount(to, weights=w * hfo_t + y, minlength=nn))
             if pdd:
                 dq, ddq = self._pdd(h - elev, demand)
                 diag += np.where(free, ddq, 0.0)
                 rhs -= dq - ddq * h
             else:
                 rhs -= demand
-            off = np.where(free_f & free_t, -w, 0.0)
-            data = np.bincount(pat.off_pos, weights=off, minlength=pat.nnz)
+            if pat.unique_off:
+                data[pat.off_pos] = -w * off_mask
+            else:
+                data = np.bincount(pat.off_pos, weights=-w * off_mask, minlength=pat.nnz)
             data[pat.diag_pos] = np.where(dirichlet, 1.0, diag)
-            rhs = np.where(dirichlet, h, rhs)
+            rhs = np.where(dirichlet, h_dir, rhs)
             pat.factor(data)
             h_new = pat.solve(rhs)
             h_new[dirichlet] = h[dirichlet]

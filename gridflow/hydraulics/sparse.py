@@ -60,6 +60,8 @@ class FixedPatternSPD:
         self.nnz = len(uniq)
         self.diag_pos = inverse[:n]
         self.off_pos = inverse[n:]
+        #: no two links share an off-diagonal entry (no parallel links): plain assignment works
+        self.unique_off = len(np.unique(self.off_pos)) == len(self.off_pos)
         self._solver = None
         self.factorizations = 0
 
