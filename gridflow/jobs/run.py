@@ -109,6 +109,12 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
     started = _dt.datetime.now(_dt.timezone.utc)
     cfg = load_config(config_path)
     out_path = Path(out) if out else cfg.resolve(cfg.run.output)
+    if not out:  # the config's own output folder (e.g. out/ beside it) is made on first use
+        try:
+            out_path.parent.mkdir(parents=True, exist_ok=True)
+        except OSError as exc:
+            raise OutputError(f"cannot make the output folder {out_path.parent}: "
+                              f"{exc.strerror}", file=str(out_path)) from None
     check_output_path(out_path, cfg)
     handler = _attach_log_file(out_path)
     try:
