@@ -38,8 +38,8 @@ def hydrants(rows):
             "land_use": [], "lateral_length_m": [], "lateral_diameter_m": []}
     for row in rows:
         d = row if isinstance(row, dict) else {"hydrant_id": row[0], "node_idx": row[1]}
-        for c in cols:
-            cols[c].append(d.get(c, {"zone": "", "land_use": None}.get(c, np.nan)))
+        for c, values in cols.items():
+            values.append(d.get(c, {"zone": "", "land_use": None}.get(c, np.nan)))
     return pd.DataFrame(cols)
 
 
