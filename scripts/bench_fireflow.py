@@ -21,14 +21,14 @@ from pathlib import Path
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-import numpy as np  # noqa: E402
-import pandas as pd  # noqa: E402
+import numpy as np
+import pandas as pd
+from synthetic import grid_network
 
-from gridflow.analysis.fireflow import FireflowProblem, sweep  # noqa: E402
-from gridflow.config.fireflow import FireflowSection  # noqa: E402
-from gridflow.config.sections import CriteriaSection  # noqa: E402
-from gridflow.hydraulics import HydraulicSystem, SolveOptions  # noqa: E402
-from synthetic import grid_network  # noqa: E402
+from gridflow.analysis.fireflow import FireflowProblem, sweep
+from gridflow.config.fireflow import FireflowSection
+from gridflow.config.sections import CriteriaSection
+from gridflow.hydraulics import HydraulicSystem, SolveOptions
 
 
 def factor_floor(net, base, opts) -> float:
