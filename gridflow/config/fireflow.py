@@ -48,8 +48,15 @@ class FireflowSection:
                                 doc="default hydrant lateral length ('0 m': no lateral)")
     lateral_diameter: float = opt(6 * INCH, parse=quantity("length", minimum=0.0),
                                   doc="default hydrant lateral diameter")
+    lateral_c: float = opt(120.0, parse=P_FLOAT,
+                           doc="Hazen-Williams C of hydrant laterals (Hazen-Williams runs)")
+    lateral_roughness: float = opt(0.15e-3, parse=quantity("length", minimum=0.0),
+                                   doc="absolute roughness of hydrant laterals (Darcy-Weisbach "
+                                       "runs), e.g. '0.15 mm'")
     hydrant_k: float = opt(0.0, parse=P_FLOAT, doc="minor-loss K of hydrant and lateral fittings")
     batch_size: int = opt(100, parse=P_INT, doc="hydrants per parallel task")
+    progress_every: int = opt(10, parse=P_INT,
+                              doc="log progress to the 'gridflow' logger every N batches")
 
 
 @dataclass(frozen=True, kw_only=True)
