@@ -39,8 +39,8 @@ __all__ = [
 
 HW_EXPONENT = 1.852
 HW_CONSTANT_SI = 10.67
-#: regularisation flow [m3/s] (about 0.016 gpm)
-EPS_FLOW = 1e-6
+#: regularisation flow [m3/s] (about 0.0016 gpm)
+EPS_FLOW = 1e-7
 
 
 def hw_resistance(length_m, diameter_m, c) -> np.ndarray:
