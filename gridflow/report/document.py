@@ -211,7 +211,18 @@ def _summary(layers, scenarios, run_info, f: Fields, criteria, worst: str) -> st
     body.append("<h3>Run</h3>")
     ri = pd.DataFrame(run_info, columns=["key", "value"]) if run_info else pd.DataFrame(
         {"key": [], "value": []})
-    body.append(_table(ri, [("key", "item", _txt), ("value", "value", _txt)], table_id="run"))
+    # the headline items first; the whole run record (hashes, demand totals, per-scenario
+    # residuals) folded below them
+    head_keys = ("name", "tool_version", "config", "unit_system", "headloss_model",
+                 "started_utc", "ended_utc", "seconds_total", "findings", "changes_new",
+                 "changes_resolved")
+    top = ri[ri["key"].isin(head_keys)]
+    body.append(_table(top, [("key", "item", _txt), ("value", "value", _txt)],
+                       table_id="run"))
+    body.append("<details><summary>Full run record (" + str(len(ri)) + " items)</summary>")
+    body.append(_table(ri, [("key", "item", _txt), ("value", "value", _txt)],
+                       table_id="run_record"))
+    body.append("</details>")
     if criteria:
         body.append("<h3>Criteria used for the flags</h3>")
         cr = pd.DataFrame({"key": [_label(c) for c in criteria], "value": list(criteria.values())})
