@@ -233,7 +233,7 @@ def reference_rows(cls: type, where: str = "") -> Iterable[tuple[str, str, str]]
             continue
         key = _join(where, f.name)
         if f.default is not dataclasses.MISSING:
-            default = repr(f.default)
+            default = _show_default(f.default, f.metadata["parse"])
         elif f.default_factory is not dataclasses.MISSING:
             default = "(see below)" if dataclasses.is_dataclass(f.default_factory) else "{}"
         else:
@@ -242,3 +242,22 @@ def reference_rows(cls: type, where: str = "") -> Iterable[tuple[str, str, str]]
         sub = getattr(f.metadata["parse"], "section_cls", None)
         if sub is not None:
             yield from reference_rows(sub, key)
+
+
+_SHOW_UNITS = {"length": ("m", 1.0, "ft", 1 / 0.3048),
+               "pressure": ("m of head", 1.0, "psi", 1 / 0.70307),
+               "flow": ("m3/s", 1.0, "gpm", 15850.32),
+               "velocity": ("m/s", 1.0, "ft/s", 1 / 0.3048)}
+
+
+def _show_default(value: Any, parser: Parser) -> str:
+    """A default for the reference: quantities in SI with the US equivalent."""
+    doc = (parser.__doc__ or "").split(",")[0]
+    if isinstance(value, float) and doc in _SHOW_UNITS:
+        si, f_si, us, f_us = _SHOW_UNITS[doc]
+        if value == 0:
+            return f"'0 {si}'"
+        return f"'{value * f_si:.4g} {si}' ({value * f_us:.4g} {us})"
+    if isinstance(value, float) and doc == "ratio":
+        return f"{value:g} ({value * 1000:g} ft/kft)"
+    return repr(value)
