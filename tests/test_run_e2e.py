@@ -227,3 +227,32 @@ def test_unknown_config_key_exits_2_and_writes_nothing(tmp_path):
     assert not out.exists()
 
 
+
+
+def test_result_layers_carry_default_styles(run_output):
+    import sqlite3
+
+    out, _ = run_output
+    con = sqlite3.connect(out)
+    try:
+        rows = con.execute("SELECT f_table_name, useAsDefault, styleQML FROM layer_styles").fetchall()
+    finally:
+        con.close()
+    styled = {r[0] for r in rows}
+    assert {f"{k}_{s}" for k in ("nodes", "pipes") for s in SCENARIOS} <= styled
+    assert all(r[1] == 1 and "low_pressure" in r[2] for r in rows if r[0].startswith("nodes_"))
+
+
+def test_nonconvergence_exits_3_with_diagnostics(tmp_path):
+    cfg = _config(tmp_path, fireflow=False)
+    text = re.sub(r"(?m)^max_iter = .*$", "max_iter = 1", cfg.read_text())
+    assert "max_iter = 1" in text
+    cfg.write_text(text)
+    out = tmp_path / "diag.gpkg"
+    res = _run("run", str(cfg), "--out", str(out))
+    assert res.exit_code == 3, res.output
+    assert "did not converge" in res.output
+    f = pyogrio.read_dataframe(out, layer="findings", read_geometry=False)
+    worst = f[f["kind"] == "not_converged"]
+    assert len(worst) == 10 and (worst["severity"] == "error").all()
+    assert worst["feature_id"].iloc[0] in res.output

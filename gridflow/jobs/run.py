@@ -223,6 +223,24 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
             handler.close()
 
 
+def terminal_progress(label: str):
+    """A progress bar on stderr when it is a terminal; None (quiet) under a scheduler."""
+    import sys
+
+    if not sys.stderr.isatty():
+        return None
+
+    def show(done: int, total: int) -> None:
+        width = 30
+        filled = int(width * done / max(total, 1))
+        sys.stderr.write(f"\r{label} [{'#' * filled}{'.' * (width - filled)}] {done}/{total}")
+        if done >= total:
+            sys.stderr.write("\n")
+        sys.stderr.flush()
+
+    return show
+
+
 def _worst_nodes(net: Network, system: HydraulicSystem, r: HydraulicResult, k: int) -> list:
     nn = net.n_nodes
     q = r.flow_m3s
@@ -241,7 +259,8 @@ def _fireflow(cfg, clean, results, opts, workers, scheduler, findings, info):
     t0 = time.perf_counter()
     hyd = clean.hydrants
     ff = sweep(net, base, pd.DataFrame(hyd.drop(columns="geometry")), cfg.fireflow,
-               cfg.criteria, options=opts, workers=workers, scheduler=scheduler)
+               cfg.criteria, options=opts, workers=workers, scheduler=scheduler,
+               progress=terminal_progress("fire flow"))
     below = ff.attrs.get("base_below_minimum", [])
     if len(below):
         idx = net.node_index(below)
