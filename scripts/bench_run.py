@@ -119,6 +119,7 @@ def one(n: int, report: bool) -> dict:
     from gridflow.hydraulics import HydraulicSystem
     from gridflow.jobs.run import run_job
     from gridflow.topology import build_network
+    from synthetic import numeric_factorization_seconds
 
     with tempfile.TemporaryDirectory() as d:
         d = Path(d)
@@ -148,21 +149,8 @@ def one(n: int, report: bool) -> dict:
         cfg = load_config(cfg_path)
         clean = build_network(cfg, Findings())
         system = HydraulicSystem(clean.network)
-        pat = system.pattern
         net = clean.network
-        w = np.ones(net.n_links)
-        data = np.zeros(pat.nnz)
-        np.add.at(data, pat.off_pos, -w)
-        diag = (np.bincount(net.from_idx, w, net.n_nodes)
-                + np.bincount(net.to_idx, w, net.n_nodes))
-        data[pat.diag_pos] = np.where(net.is_fixed | (diag == 0), 1.0, diag + 1e-9)
-        pat.factor(data)
-        ts = []
-        for _ in range(3):
-            t1 = time.perf_counter()
-            pat.factor(data)
-            ts.append(time.perf_counter() - t1)
-        fact = float(np.median(ts))
+        fact = numeric_factorization_seconds(system)
         iters = sum(int(v) for k, v in info.items() if k.startswith("iterations_"))
         solver_floor = iters * fact
         floor = bare_read + bare_write + solver_floor

@@ -26,7 +26,7 @@ def one(n_pipes: int, backend: str) -> dict:
     import numpy as np
 
     from gridflow.hydraulics import HydraulicSystem, SolveOptions
-    from synthetic import grid_network
+    from synthetic import grid_network, numeric_factorization_seconds
 
     net, _ = grid_network(n_pipes)
     opts = SolveOptions(backend=backend)
@@ -37,19 +37,7 @@ def one(n_pipes: int, backend: str) -> dict:
     r = system.solve()
     t_solve = time.perf_counter() - t0
     # floor: one numeric factorization of the converged matrix by the same backend
-    pat = system.pattern
-    rng = np.random.default_rng(0)
-    data = np.zeros(pat.nnz)
-    w = 1.0 / (1e-3 + rng.random(net.n_links))
-    np.add.at(data, pat.off_pos, -w)
-    diag = np.bincount(net.from_idx, w, net.n_nodes) + np.bincount(net.to_idx, w, net.n_nodes)
-    data[pat.diag_pos] = np.where(net.is_fixed, 1.0, diag + 1e-9)
-    times = []
-    for _ in range(3):
-        t0 = time.perf_counter()
-        pat.factor(data)
-        times.append(time.perf_counter() - t0)
-    t_fact = float(np.median(times))
+    t_fact = numeric_factorization_seconds(system)
     # a second scenario of the same network (max day) reuses the symbolic analysis
     net2 = net.replace(demand_m3s=net.demand_m3s * 1.8)
     s2 = HydraulicSystem(net2, opts, share=system)

@@ -68,3 +68,24 @@ def grid_network(n_pipes: int, seed: int = 1, n_sources: int = 4):
         from_idx=e[:, 0], to_idx=e[:, 1], fixed_head_m=fixed, elevation_m=elev,
         demand_m3s=demand, length_m=length, diameter_m=diam,
         roughness=rng.uniform(90, 140, len(e))), xy
+
+
+def numeric_factorization_seconds(system, repeat: int = 3) -> float:
+    """Median time of one numeric factorization of ``system``'s matrix (same pattern and
+    backend), with weights like a network's: the floor the benchmarks compare against."""
+    import time
+
+    net, pat = system.net, system.pattern
+    rng = np.random.default_rng(0)
+    w = 1.0 / (1e-3 + rng.random(net.n_links))
+    data = np.zeros(pat.nnz)
+    np.add.at(data, pat.off_pos, -w)
+    diag = np.bincount(net.from_idx, w, net.n_nodes) + np.bincount(net.to_idx, w, net.n_nodes)
+    data[pat.diag_pos] = np.where(net.is_fixed | (diag == 0), 1.0, diag + 1e-9)
+    pat.factor(data)  # the first call may include the symbolic analysis
+    times = []
+    for _ in range(repeat):
+        t0 = time.perf_counter()
+        pat.factor(data)
+        times.append(time.perf_counter() - t0)
+    return float(np.median(times))

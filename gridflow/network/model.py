@@ -236,21 +236,11 @@ class Network:
 
     def node_index(self, ids) -> np.ndarray:
         """Positions of the given node ids; raises ``KeyError`` naming an unknown id."""
-        lookup = {v: i for i, v in enumerate(self.node_id)}
-        ids = np.atleast_1d(np.asarray(ids).astype(str))
-        try:
-            return np.array([lookup[v] for v in ids], dtype=np.int64)
-        except KeyError as exc:
-            raise KeyError(f"unknown node id {exc.args[0]!r}") from None
+        return _positions(self.node_id, ids, "node")
 
     def link_index(self, ids) -> np.ndarray:
         """Positions of the given link ids; raises ``KeyError`` naming an unknown id."""
-        lookup = {v: i for i, v in enumerate(self.link_id)}
-        ids = np.atleast_1d(np.asarray(ids).astype(str))
-        try:
-            return np.array([lookup[v] for v in ids], dtype=np.int64)
-        except KeyError as exc:
-            raise KeyError(f"unknown link id {exc.args[0]!r}") from None
+        return _positions(self.link_id, ids, "link")
 
     # ------------------------------------------------------------------ validation
     def validate(self) -> None:
@@ -350,6 +340,15 @@ class Network:
             k = int(np.argmax(bad))
             raise NetworkError(f"valve {ids[k]} ({VALVE_NAMES[self.valve_type[k]]}) has no "
                                "usable setting", link_id=ids[k], field="valve_setting")
+
+
+def _positions(all_ids: np.ndarray, ids, what: str) -> np.ndarray:
+    lookup = {v: i for i, v in enumerate(all_ids)}
+    ids = np.atleast_1d(np.asarray(ids).astype(str))
+    try:
+        return np.array([lookup[v] for v in ids], dtype=np.int64)
+    except KeyError as exc:
+        raise KeyError(f"unknown {what} id {exc.args[0]!r}") from None
 
 
 def _unique(ids: np.ndarray, what: str) -> None:
