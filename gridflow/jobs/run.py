@@ -7,7 +7,6 @@ not converge (diagnostics written: findings name the worst node and link); 1 une
 from __future__ import annotations
 
 import datetime as _dt
-import hashlib
 import logging
 import os
 import time
@@ -22,6 +21,7 @@ from gridflow.errors import ConvergenceError, OutputError
 from gridflow.findings import Findings
 from gridflow.hydraulics import HydraulicSystem, SolveOptions
 from gridflow.hydraulics.solver import HydraulicResult
+from gridflow.jobs.check import file_sha256
 from gridflow.network import Network
 
 __all__ = ["run_job", "solve_options", "verify_solution"]
@@ -59,14 +59,6 @@ def verify_solution(system: HydraulicSystem, r: HydraulicResult) -> tuple[float,
     wn = int(np.argmax(imb)) if nn else 0
     wl = int(np.argmax(e)) if len(e) else 0
     return float(imb[wn]) if nn else 0.0, float(e[wl]) if len(e) else 0.0, wn, wl
-
-
-def _file_sha256(path: Path) -> str:
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for chunk in iter(lambda: fh.read(1 << 20), b""):
-            h.update(chunk)
-    return h.hexdigest()
 
 
 def _attach_log_file(out_path: Path) -> logging.Handler | None:
@@ -127,7 +119,7 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
             ("headloss_model", cfg.run.headloss_model),
         ]
         for name, p in cfg.inputs.items():
-            info.append((f"input_sha256:{name}", _file_sha256(cfg.resolve(p))))
+            info.append((f"input_sha256:{name}", file_sha256(cfg.resolve(p))))
 
         t0 = time.perf_counter()
         log.info("reading and cleaning the GIS")
