@@ -89,12 +89,19 @@ def write_geopackage(path: str | Path, layers: Mapping[str, object], *,
 
 
 def _process_start() -> float:
-    """This process's start time [s since the epoch]."""
+    """This process's start time [s since the epoch], to about 10 ms on Linux."""
+    try:  # /proc: start in clock ticks since boot, against the time since boot
+        with open("/proc/self/stat", encoding="ascii") as fh:
+            ticks = int(fh.read().rsplit(")", 1)[1].split()[19])  # field 22, starttime
+        since_boot = time.clock_gettime(time.CLOCK_BOOTTIME)
+        return time.time() - since_boot + ticks / os.sysconf("SC_CLK_TCK")
+    except Exception:
+        pass
     try:
         import psutil
 
-        return float(psutil.Process().create_time())
-    except Exception:  # no psutil: the time this module was first imported
+        return float(psutil.Process().create_time())  # boot time to the whole second
+    except Exception:  # neither: the time this module was first imported
         return _IMPORTED
 
 
