@@ -6,11 +6,14 @@ in bulk with pyogrio and Arrow (:func:`read_inputs`), its fields renamed to grid
 numbers converted to SI with the configured units, coded values mapped, and its geometry
 reprojected to one projected working CRS.
 
-Input files are opened read-only (pyogrio never opens a data source for update when reading).
+Input files are opened read-only (pyogrio never opens a data source for update when reading),
+and GeoPackages are held under a SQLite read lock while they are read (:func:`shared_locks`), so
+an editor's save cannot land half-way through a read.
 """
 
 from __future__ import annotations
 
+import contextlib
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -22,7 +25,11 @@ from gridflow.errors import ConfigError, InputError
 from gridflow.findings import Findings
 
 __all__ = ["LayerInfo", "ReadResult", "ID_COLUMN", "inspect_inputs", "working_crs",
-           "read_inputs", "sample_dem"]
+           "read_inputs", "sample_dem", "shared_locks"]
+
+#: how far [degrees] a feature may stray outside its CRS's area of use before it is taken as
+#: misplaced (a slipped decimal, a wrong CRS) and left out
+CRS_AREA_MARGIN_DEG = 2.0
 
 #: the id column of each role's frame after reading
 ID_COLUMN = {"pipes": "pipe_id", "nodes": "node_id", "hydrants": "hydrant_id",
@@ -170,13 +177,150 @@ def read_inputs(cfg, findings: Findings) -> ReadResult:
         Missing layer or field, no CRS, or text where a number belongs (naming file, layer,
         feature id and field).
     """
-    infos = inspect_inputs(cfg)
-    crs = working_crs(cfg, infos, findings)
-    out = ReadResult(infos=infos, crs=crs)
-    out.files = sorted({info.file.resolve() for info in infos.values()})
-    for role, info in infos.items():
-        out.layers[role] = _read_role(cfg, role, info, crs, findings)
+    paths = sorted({cfg.resolve(cfg.inputs[getattr(cfg.layers, r).input]) for r in ROLES
+                    if getattr(cfg.layers, r) is not None})
+    with shared_locks(paths):
+        infos = inspect_inputs(cfg)
+        crs = working_crs(cfg, infos, findings)
+        out = ReadResult(infos=infos, crs=crs)
+        out.files = sorted({info.file.resolve() for info in infos.values()})
+        for role, info in infos.items():
+            out.layers[role] = _read_role(cfg, role, info, crs, findings)
     return out
+
+
+#: how long [s] to wait for another program's write to a GeoPackage input to finish
+LOCK_WAIT_S = 30.0
+
+
+@contextlib.contextmanager
+def shared_locks(paths, *, wait_s: float | None = None):
+    """Hold a read lock on every GeoPackage input while its layers are read.
+
+    GDAL reads a GeoPackage without taking SQLite's locks, so a GIS editor saving during the
+    read could hand it half-written pages. A read-only SQLite connection with an open read
+    transaction keeps writers from committing until the read is done; a writer already in the
+    middle of a commit is waited for up to ``wait_s`` seconds (default :data:`LOCK_WAIT_S`).
+    Files that are not SQLite databases are left to the reader to reject.
+
+    Raises
+    ------
+    InputError
+        Naming the file, when another program still holds it locked after the wait.
+    """
+    import sqlite3
+
+    wait = LOCK_WAIT_S if wait_s is None else wait_s
+    held = []
+    try:
+        for path in paths:
+            path = Path(path)
+            if not path.is_file():
+                continue  # the inspection names it
+            try:
+                con = sqlite3.connect(f"{path.resolve().as_uri()}?mode=ro", uri=True,
+                                      timeout=wait, isolation_level=None)
+            except sqlite3.Error:
+                continue
+            try:
+                con.execute("BEGIN")
+                con.execute("SELECT count(*) FROM sqlite_master").fetchall()
+            except sqlite3.OperationalError as exc:
+                con.close()
+                if "locked" in str(exc) or "busy" in str(exc):
+                    raise InputError(f"{path}: the GeoPackage is locked by another program "
+                                     f"writing to it (waited {wait:g} s); run again when the "
+                                     "edit is saved", file=str(path)) from None
+                continue
+            except sqlite3.DatabaseError:  # not a database: the reader says so
+                con.close()
+                continue
+            held.append(con)
+        yield
+    finally:
+        for con in held:
+            try:
+                con.execute("ROLLBACK")
+            except Exception:
+                pass
+            con.close()
+
+
+def _read_frame(info: LayerInfo, columns: list, where: str | None, findings: Findings,
+                id_field: str):
+    """Read a layer through Arrow; curved geometries (which the Arrow path hands over as
+    curves, unreadable by shapely) are read again through GDAL's own path, which approximates
+    them by straight segments, and each curved feature gets a finding."""
+    pyogrio = _pyogrio()
+    try:
+        return pyogrio.read_dataframe(info.file, layer=info.layer, columns=columns, where=where,
+                                      use_arrow=True)
+    except NotImplementedError:  # "Nonlinear geometry types are not currently supported"
+        pass
+    gdf = pyogrio.read_dataframe(info.file, layer=info.layer, columns=columns, where=where,
+                                 use_arrow=False)
+    meta, table = pyogrio.raw.read_arrow(info.file, layer=info.layer, columns=[id_field],
+                                         where=where)
+    wkb = table.column(meta.get("geometry_name") or "wkb_geometry").to_pylist()
+    curved = np.array([_wkb_is_curve(b) for b in wkb], dtype=bool)  # the rare fallback only
+    if curved.any():
+        ids = gdf[id_field].astype(str).to_numpy()[curved]
+        findings.add_many("curve_linearized", "warning", info.layer, ids,
+                          "curved geometry approximated by straight segments (GDAL's default "
+                          "step); lengths follow the approximation unless a length is mapped")
+    return gdf
+
+
+def _wkb_is_curve(b) -> bool:
+    """True for ISO WKB of CircularString, CompoundCurve, CurvePolygon, MultiCurve ..."""
+    if not b or len(b) < 5:
+        return False
+    code = int.from_bytes(bytes(b[1:5]), "little" if b[0] == 1 else "big")
+    return (code & 0x0FFFFFFF) % 1000 in (8, 9, 10, 11, 12, 13, 14, 15, 16, 17)
+
+
+def _outside_crs_area(geoms: np.ndarray, crs) -> np.ndarray:
+    """True where a feature lies far outside its CRS's area of use (or has non-finite
+    coordinates): a slipped decimal point or a layer tagged with the wrong CRS.
+
+    The area of use (longitude/latitude bounds) is widened by :data:`CRS_AREA_MARGIN_DEG` on
+    every side; features are compared by their bounding box corners.
+    """
+    import shapely
+
+    n = len(geoms)
+    bad = np.zeros(n, bool)
+    present = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms))
+    if not present.any():
+        return bad
+    b = shapely.bounds(geoms[present])
+    finite = np.isfinite(b).all(axis=1)
+    area = getattr(crs, "area_of_use", None)
+    if area is None:
+        out = ~finite
+    else:
+        xs = np.r_[b[:, 0], b[:, 2], b[:, 0], b[:, 2]]
+        ys = np.r_[b[:, 1], b[:, 1], b[:, 3], b[:, 3]]
+        if crs.is_geographic:
+            lon, lat = xs, ys  # GeoPackage stores longitude first
+        else:
+            from pyproj import CRS, Transformer
+
+            t = Transformer.from_crs(crs, CRS.from_epsg(4326), always_xy=True)
+            with np.errstate(all="ignore"):
+                lon, lat = t.transform(np.where(np.isfinite(xs), xs, 0.0),
+                                       np.where(np.isfinite(ys), ys, 0.0), errcheck=False)
+        m = CRS_AREA_MARGIN_DEG
+        w, s_, e, nth = area.west - m, area.south - m, area.east + m, area.north + m
+        lon, lat = np.asarray(lon, float), np.asarray(lat, float)
+        if area.west > area.east:  # area across the antimeridian
+            lon = np.where(lon < area.west - m, lon + 360.0, lon)
+            e = area.east + 360.0 + m
+        inside = np.isfinite(lon) & np.isfinite(lat) & (lon >= w) & (lon <= e) & \
+            (lat >= max(s_, -90.0)) & (lat <= min(nth, 90.0))
+        out = ~finite | ~inside.reshape(4, -1).all(axis=0)
+    bad[np.flatnonzero(present)[out]] = True
+    return bad
 
 
 def _read_role(cfg, role: str, info: LayerInfo, crs, findings: Findings):
@@ -185,12 +329,20 @@ def _read_role(cfg, role: str, info: LayerInfo, crs, findings: Findings):
     sec = getattr(cfg.layers, role)
     columns = list(dict.fromkeys([sec.id, *sec.fields.values()]))
     try:
-        gdf = _pyogrio().read_dataframe(info.file, layer=info.layer, columns=columns,
-                                        where=sec.where or None, use_arrow=True)
+        gdf = _read_frame(info, columns, sec.where or None, findings, sec.id)
     except Exception as exc:
         key = f"layers.{role}.where" if sec.where else f"layers.{role}"
         raise InputError(f"{info.file}: cannot read layer {info.layer!r} ({key}): {exc}",
                          file=str(info.file), layer=info.layer) from None
+    if len(gdf) == 0:
+        what = (f"no features match layers.{role}.where = {sec.where!r}" if sec.where
+                else "no features")
+        if role == "pipes":
+            raise InputError(f"{info.file}: layer {info.layer!r} (layers.pipes.layer) has "
+                             f"{what}; there is no network to build", file=str(info.file),
+                             layer=info.layer)
+        findings.add("empty_layer", "warning", info.layer, "",
+                     f"layer {info.layer!r} (layers.{role}.layer) has {what}")
     ids = _ids(gdf[sec.id], role, info, findings)
     data = {ID_COLUMN[role]: ids}
     for role_name, fname in sec.fields.items():
@@ -210,6 +362,12 @@ def _read_role(cfg, role: str, info: LayerInfo, crs, findings: Findings):
     if frame.crs is None:  # inspected already; a layer can still lose it through a view
         raise InputError(f"{info.file}: layer {info.layer!r} has no coordinate reference system",
                          file=str(info.file), layer=info.layer)
+    far = _outside_crs_area(np.asarray(frame.geometry.values, dtype=object), frame.crs)
+    if far.any():
+        findings.add_many("outside_crs_area", "error", info.layer, ids[far],
+                          f"coordinates far outside the area of {frame.crs.name} (a slipped "
+                          f"decimal or a layer in another CRS); {role[:-1]} left out")
+        frame = frame[~far].reset_index(drop=True)
     if not frame.crs.equals(crs):
         frame = frame.to_crs(crs)
     return frame

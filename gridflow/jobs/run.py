@@ -17,14 +17,15 @@ import pandas as pd
 
 from gridflow import __version__
 from gridflow.config import Config, load_config
-from gridflow.errors import ConvergenceError, OutputError
+from gridflow.errors import ConvergenceError, InputError, OutputError, TopologyError
 from gridflow.findings import Findings
 from gridflow.hydraulics import HydraulicSystem, SolveOptions
 from gridflow.hydraulics.solver import HydraulicResult
 from gridflow.jobs.check import file_sha256
-from gridflow.network import Network
+from gridflow.network import NODE_JUNCTION, Network
 
-__all__ = ["run_job", "solve_options", "verify_solution"]
+__all__ = ["run_job", "solve_options", "verify_solution", "require_solvable",
+           "check_output_path"]
 
 log = logging.getLogger("gridflow")
 
@@ -41,7 +42,15 @@ def verify_solution(system: HydraulicSystem, r: HydraulicResult) -> tuple[float,
     """Recheck a solution on the values about to be written.
 
     Returns the largest mass imbalance [m3/s] over supplied unknown-head nodes, the largest
-    head-loss residual [m] over open links, and the worst node and link positions.
+    head-loss residual [m] over open links between supplied nodes, and the worst node and
+    link positions. A non-finite head or flow at a supplied node or open link counts as an
+    infinite residual there.
+
+    Notes
+    -----
+    Mass: ``max_i |sum_in q - sum_out q - d_i|`` over supplied nodes whose head is not fixed
+    and not pinned by an active PRV. Energy: ``max_k |h_f(q_k) - (H_from - H_to)|`` over open
+    links, ``h_f`` the link's head-loss law at the written flow.
     """
     net = system.net
     nn = net.n_nodes
@@ -52,10 +61,12 @@ def verify_solution(system: HydraulicSystem, r: HydraulicResult) -> tuple[float,
     pinned[net.to_idx[active]] = True
     check = r.supplied & ~pinned
     imb = np.where(check, np.abs(inflow - r.demand_m3s), 0.0)
+    imb[r.supplied & ~(np.isfinite(r.head_m) & np.isfinite(inflow))] = np.inf
     hl, _ = system.link_headloss(q)
     open_ = (r.link_state == 0) & r.supplied[net.from_idx] & r.supplied[net.to_idx]
     dh = r.head_m[net.from_idx] - r.head_m[net.to_idx]
     e = np.where(open_, np.abs(hl - dh), 0.0)
+    e[open_ & ~np.isfinite(e)] = np.inf
     wn = int(np.argmax(imb)) if nn else 0
     wl = int(np.argmax(e)) if len(e) else 0
     return float(imb[wn]) if nn else 0.0, float(e[wl]) if len(e) else 0.0, wn, wl
@@ -73,13 +84,62 @@ def _attach_log_file(out_path: Path) -> logging.Handler | None:
     return handler
 
 
+def _input_sha256(cfg: Config, name: str, p: str) -> str:
+    path = cfg.resolve(p)
+    try:
+        return file_sha256(path)
+    except OSError as exc:
+        what = "does not exist" if isinstance(exc, FileNotFoundError) else \
+            f"cannot be read ({exc.strerror})"
+        raise InputError(f"input file {path} (inputs.{name}) {what}", file=str(path),
+                         key=f"inputs.{name}") from None
+
+
+def require_solvable(cfg: Config, clean) -> None:
+    """Stop before solving a network that can only give wrong answers.
+
+    Raises
+    ------
+    TopologyError
+        No source or tank reached the network (nothing fixes the heads).
+    InputError
+        No junction has a known elevation: every pressure would be made up.
+    """
+    net = clean.network
+    if not net.is_fixed.any():
+        roles = [r for r in ("sources", "tanks") if getattr(cfg.layers, r) is not None]
+        where = (f"the features of layers.{' and layers.'.join(roles)} were all left out "
+                 "(gridflow check lists why)" if roles else
+                 "map layers.sources or layers.tanks in the config")
+        raise TopologyError(f"the network has no source or tank, so no head is known and "
+                            f"nothing can be solved: {where}",
+                            layer=", ".join(getattr(cfg.layers, r).layer for r in roles) or None)
+    guessed = getattr(clean, "elevation_guessed", None)
+    junction = net.node_kind == NODE_JUNCTION
+    if guessed is not None and junction.any() and np.all(guessed[junction]):
+        sec = cfg.layers.nodes
+        src = cfg.elevation.source
+        if src == "attribute" and sec is not None and "elevation" in sec.fields:
+            path = cfg.resolve(cfg.inputs[sec.input])
+            raise InputError(f"{path}: layer {sec.layer!r}, field {sec.fields['elevation']!r}: "
+                             "no junction has an elevation, so every pressure would be made "
+                             "up; fill the field or set [elevation] source", file=str(path),
+                             layer=sec.layer, field=sec.fields["elevation"])
+        raise InputError(f"no junction has an elevation (elevation.source = {src!r}), so "
+                         "every pressure would be made up; map layers.nodes.fields.elevation, "
+                         "digitise mains with Z, or give a DEM", key="elevation.source")
+
+
 def check_output_path(out_path: Path, cfg: Config) -> None:
-    """Refuse an output that is an input, or a folder that cannot be written."""
+    """Refuse an output that is an input or the config, or a folder that cannot be written."""
     out_abs = out_path.resolve()
     for name, p in cfg.inputs.items():
         if cfg.resolve(p).resolve() == out_abs:
             raise OutputError(f"output {out_path} is the input file {name!r}: gridflow never "
                               "writes to an input; choose another --out", file=str(out_path))
+    if cfg.path is not None and Path(cfg.path).resolve() == out_abs:
+        raise OutputError(f"output {out_path} is the config file: gridflow never writes to an "
+                          "input; choose another --out", file=str(out_path))
     folder = out_abs.parent
     if not folder.is_dir():
         raise OutputError(f"output folder {folder} does not exist", file=str(out_path))
@@ -119,11 +179,12 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
             ("headloss_model", cfg.run.headloss_model),
         ]
         for name, p in cfg.inputs.items():
-            info.append((f"input_sha256:{name}", file_sha256(cfg.resolve(p))))
+            info.append((f"input_sha256:{name}", _input_sha256(cfg, name, p)))
 
         t0 = time.perf_counter()
         log.info("reading and cleaning the GIS")
         clean = build_network(cfg, findings)
+        require_solvable(cfg, clean)
         info.append(("seconds_read_clean", f"{time.perf_counter() - t0:.2f}"))
         log.info("network: %d nodes, %d links", clean.network.n_nodes, clean.network.n_links)
         t0 = time.perf_counter()
@@ -163,11 +224,15 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
                      (f"{name}:head_residual_m", f"{headres:.3e}"),
                      (f"{name}:converged", "1"),
                      (f"{name}:seconds", f"{time.perf_counter() - t0:.2f}")]
-            if mass > 10 * opts.flow_tolerance or headres > 10 * opts.head_tolerance:
-                failure = ConvergenceError(
-                    f"scenario {name}: the solution failed its check (mass imbalance {mass:.3g} "
-                    f"m3/s at node {net.node_id[wn]}, head-loss residual {headres:.3g} m on link "
-                    f"{net.link_id[wl]})", node_id=net.node_id[wn], link_id=net.link_id[wl])
+            if not (mass <= 10 * opts.flow_tolerance and headres <= 10 * opts.head_tolerance):
+                msg = (f"scenario {name}: the solution failed its check (mass imbalance "
+                       f"{mass:.3g} m3/s at node {net.node_id[wn]}, head-loss residual "
+                       f"{headres:.3g} m on link {net.link_id[wl]}); its results are not written")
+                findings.add("solution_check_failed", "error", f"nodes_{name}", net.node_id[wn],
+                             msg, clean.nodes.geometry.values[wn])
+                findings.add("solution_check_failed", "error", f"pipes_{name}", net.link_id[wl],
+                             msg, clean.links.geometry.values[wl])
+                failure = ConvergenceError(msg, node_id=net.node_id[wn], link_id=net.link_id[wl])
                 break
             nodes = nodes_layer(net, r, clean.nodes.geometry.values, clean.crs, cfg.criteria,
                                 system_units)

@@ -47,6 +47,8 @@ from gridflow.topology.zones import connectivity_findings, zones_and_parts
 __all__ = ["Attacher"]
 
 _EPS = 1e-3
+_GEOM_NAMES = ("point", "line", "ring", "polygon", "multi-point", "multi-line", "multi-polygon",
+               "geometry collection")
 _CLOSED = ("closed", "inactive", "off")
 
 
@@ -73,6 +75,7 @@ class Attacher:
         self.next_key = len(b.cxy)
         self.ev = []  # interior split events: (line, s, x, y, up, down)
         self.key_elev = {}  # key -> elevation from point features
+        self.standin_keys = set()  # sources whose elevation is their head (no ground known)
         self.key_z = {}
 
     def new_keys(self, xy: np.ndarray) -> np.ndarray:
@@ -102,7 +105,19 @@ class Attacher:
         fr = fr[keep].reset_index(drop=True)
         g = g[keep]
         if len(g):
-            g = shapely.get_point(g, 0) if (shapely.get_type_id(g) != 0).any() else g
+            tid = shapely.get_type_id(g)
+            notpt = tid != 0
+            if notpt.any():
+                # a line or polygon where a point belongs: its first vertex stands for it
+                xy, at = shapely.get_coordinates(g[notpt], return_index=True)
+                _, k = np.unique(at, return_index=True)
+                first = np.empty(len(g), dtype=object)
+                first[notpt] = shapely.points(xy[k])
+                names = np.asarray(_GEOM_NAMES, dtype=object)[tid[notpt]]
+                self.f.add_many("not_a_point", "warning", layer, fr[idc].to_numpy()[notpt],
+                                [f"{role[:-1]} drawn as a {t}; its first vertex used"
+                                 for t in names], first[notpt])
+                g = np.where(notpt, first, g)
         return fr, g
 
     def _nearest(self, pts, sd):
@@ -325,7 +340,8 @@ class Attacher:
             else:
                 head = _col(fr, "head")
                 elev = _col(fr, "elevation")
-                elev = np.where(np.isfinite(elev), elev, head)
+                standin = ~np.isfinite(elev)
+                elev = np.where(standin, head, elev)  # pressure 0 at the source
             bad = ~np.isfinite(head)
             self.f.add_many(f"{role[:-1]}_head_missing", "error", layer, ids[bad],
                             f"{role[:-1]} without a usable head or level; left out", pts[bad])
@@ -352,6 +368,8 @@ class Attacher:
                                pts[r])
                     continue
                 out[k] = (kind, str(ids[r]), float(head[r]), float(elev[r]))
+                if role == "sources" and standin[r]:
+                    self.standin_keys.add(k)
         return out
 
     def assemble(self, CleanNetwork):
@@ -457,7 +475,9 @@ class Attacher:
         adj = coo_matrix((np.ones(2 * len(c["from"])), (np.r_[c["from"], c["to"]],
                                                          np.r_[c["to"], c["from"]])),
                          shape=(nn, nn)).tocsr()
-        elev = self._fill_elevations(elev, adj, node_id, node_xy)
+        standin = np.zeros(nn, bool)
+        standin[idx_of_key[sorted(self.standin_keys)]] = True
+        elev, guessed = self._fill_elevations(elev, adj, node_id, node_xy, standin)
         # zones and connectivity
         node_zone = np.full(nn, None, dtype=object)
         if nodes is not None and "zone" in nodes and len(nodes):
@@ -495,8 +515,29 @@ class Attacher:
         if meters is None:
             meters = gpd.GeoDataFrame({"meter_id": pd.Series([], dtype=object)},
                                       geometry=gpd.GeoSeries([], crs=crs), crs=crs)
+        self._prv_reach(net, c["geom"])
         return CleanNetwork(network=net, nodes=nodes_gdf, links=links_gdf, hydrants=hyd,
-                            meters=meters, crs=crs, inputs=list(b.rr.files))
+                            meters=meters, crs=crs, inputs=list(b.rr.files),
+                            elevation_guessed=guessed)
+
+    def _prv_reach(self, net, geoms) -> None:
+        """A PRV whose setting puts its downstream grade above every grade the network can
+        give (the highest source or tank plus every pump's shut-off head) never regulates."""
+        prv = (net.link_kind == LINK_VALVE) & (net.valve_type == VALVE_PRV)
+        if not prv.any() or not net.is_fixed.any():
+            return
+        pump = (net.link_kind == LINK_PUMP) & np.isfinite(net.pump_a)
+        ceiling = float(np.max(net.fixed_head_m[net.is_fixed])) + float(
+            np.sum(net.pump_a[pump] * net.pump_speed[pump] ** 2))
+        grade = net.elevation_m[net.to_idx] + net.valve_setting
+        hi = prv & (grade > ceiling)
+        self.f.add_many("prv_setting_unreachable", "warning", self.b.lname("valves"),
+                        net.link_id[hi],
+                        [f"setting {x:.1f} m of head puts the downstream grade at {g:.1f} m, "
+                         f"above the highest grade the sources, tanks and pumps give "
+                         f"({ceiling:.1f} m): the valve stands open and regulates nothing"
+                         for x, g in zip(net.valve_setting[hi], grade[hi])],
+                        np.asarray(geoms, dtype=object)[hi])
 
     def _point_elevations(self, elev, idx_of_key):
         src = self.b.cfg.elevation.source
@@ -520,7 +561,12 @@ class Attacher:
             cur = elev[i]
             elev[i] = np.where(np.isfinite(cur), cur, e[ok])
 
-    def _fill_elevations(self, elev, adj, node_id, node_xy):
+    def _fill_elevations(self, elev, adj, node_id, node_xy, standin):
+        """Fill missing elevations from neighbours; returns elevations and where guessed.
+
+        A source's stand-in elevation (its head, where no ground elevation is mapped) gives
+        it zero pressure but is no ground level: it anchors no neighbour.
+        """
         cfg, f = self.b.cfg, self.f
         if cfg.elevation.source == "dem":
             from gridflow.io.read import sample_dem
@@ -528,8 +574,10 @@ class Attacher:
             dem = sample_dem(cfg.resolve(cfg.elevation.dem), node_xy[:, 0], node_xy[:, 1],
                              self.b.crs, unit_factor("nodes", "elevation", cfg.elevation.unit))
             elev = np.where(np.isfinite(elev), elev, dem)
-        known = np.isfinite(elev)
+        known = np.isfinite(elev) & ~standin
         e = _harmonic_fill(np.where(known, elev, 0.0), known, adj)
+        e[standin] = elev[standin]
+        known |= standin
         filled = ~known & np.isfinite(e)
         left = ~known & ~np.isfinite(e)
         e[left] = 0.0
@@ -541,7 +589,7 @@ class Attacher:
                     for x in e[filled]], pts[filled])
         f.add_many("elevation_missing", "error", "nodes", node_id[left],
                    "elevation missing and no connected node has one; 0 m used", pts[left])
-        return e
+        return e, filled | left
 
     def _device_columns(self, cols, role, fr, pts, li, fi, ti):
         df, f = self.b.df, self.f

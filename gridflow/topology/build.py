@@ -17,6 +17,9 @@ Decisions (what a utility engineer expects; documented in the README config refe
   unless ``layers.pipes.default_diameter`` is set (then the default with a warning). A guessed
   diameter would give plausible-looking but unfounded pressures and fire flows; leaving the
   pipe out never overstates capacity, and the resulting disconnection is itself reported.
+- A diameter below 2 in is kept with a warning; when the layer's median diameter lies outside
+  2-120 in, the diameter unit is wrong (inches read as millimetres ...): InputError.
+- No usable pipe left at all: TopologyError.
 - Hazen-Williams C outside 40-160 is kept, with a warning.
 - A missing node elevation is interpolated from neighbouring nodes (warning); where no
   neighbour has one, 0 m (error).
@@ -38,9 +41,10 @@ from gridflow.findings import Findings
 from gridflow.network import Network
 from gridflow.topology.lines import end_points, set_end_points, snap_labels
 
-__all__ = ["CleanNetwork", "build_network", "MAX_DIAMETER_M", "C_RANGE"]
+__all__ = ["CleanNetwork", "build_network", "MAX_DIAMETER_M", "MIN_DIAMETER_M", "C_RANGE"]
 
 MAX_DIAMETER_M = 120 * 0.0254  # above this a diameter is taken as a unit error
+MIN_DIAMETER_M = 2 * 0.0254  # below this a main's diameter is implausible (common practice)
 C_RANGE = (40.0, 160.0)  # plausible Hazen-Williams C (common practice)
 _EPS = 1e-3  # [m] positions closer than this along a line are the same place
 
@@ -68,6 +72,8 @@ class CleanNetwork:
         Empty when no meters layer is mapped.
     crs : pyproj.CRS
         The working CRS (projected).
+    elevation_guessed : ndarray of bool
+        True at nodes whose elevation was interpolated from neighbours or set to 0 m.
     graph : networkx.MultiGraph
         Built on first use: nodes are node positions, edge keys link positions.
     """
@@ -79,6 +85,7 @@ class CleanNetwork:
     meters: object
     crs: object
     inputs: list = field(default_factory=list)
+    elevation_guessed: object = None  # bool per node: elevation interpolated or 0 m used
 
     @property
     def tank_bottom_m(self):
@@ -197,11 +204,38 @@ class _Builder:
         zero = glen <= 0
         f.add_many("zero_length_dropped", "warning", layer, df["pipe_id"].to_numpy()[zero],
                    "pipe of zero length dropped", df["geom"].to_numpy()[zero])
-        return df[~zero].reset_index(drop=True)
+        df = df[~zero].reset_index(drop=True)
+        if len(df) == 0:
+            ab = (gdf["status"] == "abandoned").to_numpy() if "status" in gdf else empty & False
+            self._no_pipes_left(ids, {"abandoned": ab, "without geometry": empty & ~ab,
+                                      "not lines": notline & ~ab})
+        return df
+
+    def _no_pipes_left(self, ids: np.ndarray, masks: dict) -> None:
+        """Stop: every main was left out; say why, by reason, with an example id each."""
+        from gridflow.errors import TopologyError
+
+        info = self.rr.infos["pipes"]
+        reasons = [f"{int(m.sum())} {what} (e.g. {ids[m][0]})" for what, m in masks.items()
+                   if m.any()]
+        rest = len(ids) - int(np.logical_or.reduce(list(masks.values())).sum())
+        if rest:
+            reasons.append(f"{rest} with an unusable diameter or of zero length")
+        raise TopologyError(
+            f"{info.file}: layer {info.layer!r}: no pipes left to build a network from; of "
+            f"{len(ids)} features: {'; '.join(reasons)} (gridflow check lists each one)",
+            file=str(info.file), layer=info.layer)
 
     def _check_diameter(self, df: pd.DataFrame) -> pd.DataFrame:
         f, layer = self.f, self.pipe_layer
         d = df["diameter"].to_numpy(dtype=float)
+        self._check_diameter_unit(d)
+        small = np.isfinite(d) & (d > 0) & (d < MIN_DIAMETER_M)
+        f.add_many("diameter_implausible", "warning", layer, df["pipe_id"].to_numpy()[small],
+                   [f"diameter {x / 0.0254:.3g} in is below {MIN_DIAMETER_M / 0.0254:g} in, "
+                    "implausible for a main; kept (check the value and "
+                    "layers.pipes.units.diameter)" for x in d[small]],
+                   df["geom"].to_numpy()[small])
         missing = ~np.isfinite(d) | (d <= 0)
         big = np.isfinite(d) & (d > MAX_DIAMETER_M)
         bad = missing | big
@@ -224,6 +258,31 @@ class _Builder:
         df = df.copy()
         df.loc[bad, "diameter"] = default
         return df
+
+    def _check_diameter_unit(self, d: np.ndarray) -> None:
+        """Stop when the layer's typical diameter shows a unit mistake (inches read as mm...).
+
+        One implausible value is a finding; a median outside the range of water mains means
+        every diameter is off by the same factor, and every result with it.
+        """
+        from gridflow.errors import InputError
+
+        ok = d[np.isfinite(d) & (d > 0)]
+        if len(ok) == 0:
+            return
+        med = float(np.median(ok))
+        if MIN_DIAMETER_M <= med <= MAX_DIAMETER_M:
+            return
+        sec = self.cfg.layers.pipes
+        info = self.rr.infos["pipes"]
+        fname = sec.fields.get("diameter")
+        unit = sec.units.get("diameter")
+        raise InputError(
+            f"{info.file}: layer {info.layer!r}, field {fname!r}: the median diameter is "
+            f"{med * 1000:.4g} mm ({med / 0.0254:.4g} in), outside the {MIN_DIAMETER_M / 0.0254:g}"
+            f"-{MAX_DIAMETER_M / 0.0254:g} in of water mains; check "
+            f"layers.pipes.units.diameter (now {unit!r})", file=str(info.file),
+            layer=info.layer, field=fname, key="layers.pipes.units.diameter")
 
     def _roughness(self, df: pd.DataFrame) -> pd.DataFrame:
         cfg, f, layer = self.cfg, self.f, self.pipe_layer
