@@ -55,7 +55,7 @@ class CriteriaSection:
 
 @dataclass(frozen=True, kw_only=True)
 class SolverSection:
-    max_iter: int = opt(100, parse=P_INT, doc="Newton iterations per status trial")
+    max_iter: int = opt(200, parse=P_INT, doc="Newton iterations in all (statuses are checked every 10)")
     flow_tolerance: float = opt(1e-6, parse=P_FLOAT,
                                 doc="largest mass imbalance at a node at convergence [m3/s]")
     head_tolerance: float = opt(1e-4, parse=P_FLOAT,

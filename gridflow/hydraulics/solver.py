@@ -66,6 +66,8 @@ LINK_STATE_NAMES = ("open", "closed", "active")
 
 #: smallest dh/dq [s/m2] allowed, for links with (nearly) no resistance
 G_FLOOR = 1e-6
+#: statuses are also checked every this many Newton iterations before convergence
+STATUS_CHECK_EVERY = 10
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -75,9 +77,10 @@ class SolveOptions:
     Attributes
     ----------
     max_iter : int
-        Newton iterations allowed per status trial.
+        Newton iterations allowed in all.
     max_trials : int
-        Status trials (converge, check statuses, repeat).
+        Status changes allowed (statuses are checked at convergence and every
+        ``STATUS_CHECK_EVERY`` iterations before it).
     flow_tolerance : float
         Largest mass imbalance at a node [m3/s].
     head_tolerance : float
@@ -91,8 +94,8 @@ class SolveOptions:
     backend : {'qdldl', 'splu'}
     """
 
-    max_iter: int = 100
-    max_trials: int = 20
+    max_iter: int = 200
+    max_trials: int = 30
     flow_tolerance: float = 1e-6
     head_tolerance: float = 1e-4
     status_tolerance: float = 1e-3
@@ -286,6 +289,10 @@ class HydraulicSystem:
         state[net.status == STATUS_CLOSED] = CLOSED
         state[self.is_pump & ~self.pump_on] = CLOSED
         state[self.is_prv & (net.status != STATUS_CLOSED)] = ACTIVE
+        # a PRV discharging into a fixed head cannot hold its setting there: it is open (head
+        # below the setting) or shut, never active
+        self._prv_fixed_down = self.is_prv & fixed[self.to]
+        state[self._prv_fixed_down & (state == ACTIVE)] = OPEN
         always_closed = state == CLOSED
         always_closed &= ~self.is_cv  # a check valve given as closed may open
         if warm is not None:
@@ -299,24 +306,47 @@ class HydraulicSystem:
 
         seen: set[bytes] = set()
         iterations = 0
-        result = None
         trial = 0
-        for trial in range(1, opt.max_trials + 1):
+        conv = False
+        holds = 0
+        held = np.zeros(nl, dtype=bool)
+        while iterations < opt.max_iter:
+            chunk = min(STATUS_CHECK_EVERY, opt.max_iter - iterations)
             q, h_now, it, conv, supplied = self._newton(q, h_now, state, fixed, fixed_head,
-                                                        demand)
+                                                        demand, chunk)
             iterations += it
-            if not conv:
-                break
+            old_state = state.copy()
             changed = self._update_status(state, q, h_now, always_closed, supplied)
             if not changed:
+                if conv:
+                    break
+                continue  # not there yet under these statuses: keep iterating
+            trial += 1
+            if conv:
+                key = state.tobytes()
+                if key in seen and holds < 3:
+                    # statuses cycle between converged states: the links that flip sit at a
+                    # boundary (zero flow); hold them closed and converge once more
+                    flip = state != old_state
+                    state[flip] = CLOSED
+                    always_closed |= flip
+                    held |= flip
+                    holds += 1
+                    seen.clear()
+                elif key in seen:
+                    conv = False
+                    break
+                seen.add(key)
+            conv = False
+            if trial >= opt.max_trials:
                 break
-            key = state.tobytes()
-            if key in seen:
-                conv = False
-                break
-            seen.add(key)
+        trial = max(trial, 1)
         result = self._result(q, h_now, state, fixed, fixed_head, demand, supplied,
                               iterations, trial, conv)
+        if held.any():
+            ids = ", ".join(map(str, net.link_id[held][:5]))
+            result.message += f"; held closed after their status oscillated: {ids}"
+            result.extra["held_closed"] = list(net.link_id[held])
         result.seconds = time.perf_counter() - t0
         result.factorizations = self.pattern.factorizations - f0
         if not result.converged and raise_on_failure:
@@ -343,7 +373,7 @@ class HydraulicSystem:
         has_fixed[label[fixed]] = True
         return has_fixed[label]
 
-    def _newton(self, q, h_now, state, fixed_given, fixed_head_given, demand):
+    def _newton(self, q, h_now, state, fixed_given, fixed_head_given, demand, max_iter):
         """Newton iterations with statuses fixed. Returns q, h, iterations, converged, supplied."""
         opt = self.opt
         nn = self.nn
@@ -379,11 +409,9 @@ class HydraulicSystem:
         h_dir = np.where(dirichlet, h, 0.0)
         any_active = bool(active.any())
         data = np.zeros(pat.nnz)
-        for it in range(1, opt.max_iter + 1):
+        for it in range(1, max_iter + 1):
             w = cond_f / g
             y = cond_f * q - w * hl
-            if any_active:
-                y = np.where(active, q, y)
             # assemble: diagonal, right-hand side (-A'y, known heads, demand), off-diagonals
             diag = (np.bincount(fr, weights=w * free_f, minlength=nn)
                     + np.bincount(to, weights=w * free_t, minlength=nn))
@@ -404,18 +432,18 @@ class HydraulicSystem:
             pat.factor(data)
             h_new = pat.solve(rhs)
             h_new[dirichlet] = h[dirichlet]
+            if any_active:
+                q_prv, h_new = self._active_prv_flows(h_new, y, w, conducting, active, dirichlet,
+                                                      demand, elev, pdd, h)
             q_new = np.where(conducting, y + w * (h_new[fr] - h_new[to]), 0.0)
+            if any_active:
+                q_new[active] = q_prv
             if pdd:
                 # demand that depends on pressure can make full Newton steps overshoot between
                 # "delivers nothing" and "delivers all": backtrack on a merit function
                 q_new, h_new = self._backtrack(q, h, q_new, h_new, free, conducting, demand,
-                                               elev, w)
+                                               elev, w, pdd)
             h = h_new
-            # active PRVs carry what their pinned downstream node needs
-            if active.any():
-                q_new = np.where(active, 0.0, q_new)
-                need = self._net_outflow(q_new, h, demand, elev, pdd)
-                q_new[active] = need[prv_to]
             q = q_new
             hl, g = self.link_headloss(q)  # reused by the next iteration's assembly
             mass, head = self._residuals(q, h, free, conducting, demand, elev, pdd, hl)
@@ -424,23 +452,75 @@ class HydraulicSystem:
                 break
         return q, h, it, converged, supplied
 
-    def _merit(self, q, h, free, conducting, demand, elev, w):
+    def _active_prv_flows(self, h0, y, w, conducting, active, dirichlet, demand, elev, pdd,
+                          h_prev):
+        """Flows through active PRVs, solved with the heads in one Newton step.
+
+        An active PRV pins its downstream node ``d`` at the setting; its flow ``Q`` leaves the
+        upstream node ``u`` and must balance ``d``. With the factorized matrix ``J``, the heads
+        are ``H = H0 - Z Q`` with ``Z[:, k] = J^-1 e_{u_k}``, and the linearized balance at every
+        ``d_k`` is a small dense system in ``Q`` (one extra triangular solve per active PRV).
+        """
+        fr, to, nn = self.fr, self.to, self.nn
+        ia = np.flatnonzero(active)
+        u, d = fr[ia], to[ia]
+        wc = np.where(conducting, w, 0.0)
+
+        def outflow_lin(z):  # net outflow through conducting links for heads z (no y term)
+            dq = wc * (z[fr] - z[to])
+            return np.bincount(fr, dq, nn) - np.bincount(to, dq, nn)
+
+        # rhs of the matrix at u_k gets -Q_k, so H = H0 - Z Q
+        z = np.empty((nn, len(ia)))
+        for k, uk in enumerate(u):
+            e = np.zeros(nn)
+            if not dirichlet[uk]:
+                e[uk] = 1.0
+            col = self.pattern.solve(e)
+            col[dirichlet] = 0.0
+            z[:, k] = col
+        yc = np.where(conducting, y, 0.0)
+        q0 = yc + wc * (h0[fr] - h0[to])
+        out0 = np.bincount(fr, q0, nn) - np.bincount(to, q0, nn)
+        if pdd:
+            out0 = out0 + self._pdd(h_prev - elev, demand)[0]
+        else:
+            out0 = out0 + demand
+        m = np.empty((len(ia), len(ia)))
+        for j in range(len(ia)):
+            m[:, j] = -outflow_lin(z[:, j])[d]
+        # the PRVs themselves: Q_j enters d_j and leaves u_j
+        m -= (d[:, None] == d[None, :]).astype(float)
+        m += (d[:, None] == u[None, :]).astype(float)
+        try:
+            q_prv = np.linalg.solve(m, -out0[d])
+        except np.linalg.LinAlgError:
+            q_prv = np.linalg.lstsq(m, -out0[d], rcond=None)[0]
+        return q_prv, h0 - z @ q_prv
+
+    def _merit(self, q, h, free, conducting, demand, elev, w, pdd):
         """Sum of squared residuals in flow units: mass imbalance and G^-1 times head error."""
-        imb = self._net_outflow(q, h, demand, elev, True)[free]
+        imb = self._net_outflow(q, h, demand, elev, pdd)[free]
         hl, _ = self.link_headloss(q)
         e = np.where(conducting, (hl - (h[self.fr] - h[self.to])) * w, 0.0)
         return float(imb @ imb + e @ e)
 
-    def _backtrack(self, q, h, q_new, h_new, free, conducting, demand, elev, w):
-        phi0 = self._merit(q, h, free, conducting, demand, elev, w)
+    def _backtrack(self, q, h, q_new, h_new, free, conducting, demand, elev, w, pdd):
+        """The longest step (1, 1/2, 1/4 ...) that lowers the merit; failing that, the step
+        with the lowest merit tried."""
+        phi0 = self._merit(q, h, free, conducting, demand, elev, w, pdd)
         alpha = 1.0
-        for _ in range(8):
+        best = (np.inf, q_new, h_new)
+        for _ in range(10):
             qa = q + alpha * (q_new - q)
             ha = h + alpha * (h_new - h)
-            if self._merit(qa, ha, free, conducting, demand, elev, w) < phi0:
+            phi = self._merit(qa, ha, free, conducting, demand, elev, w, pdd)
+            if phi < phi0:
                 return qa, ha
+            if phi < best[0]:
+                best = (phi, qa, ha)
             alpha *= 0.5
-        return q_new, h_new
+        return best[1], best[2]
 
     def _net_outflow(self, q, h, demand, elev, pdd):
         """Per node: outflow through links plus delivered demand minus inflow."""
@@ -493,10 +573,13 @@ class HydraulicSystem:
         state[a & (q >= -qtol) & (hu < hs - tol)] = OPEN
         o = prv & (old == OPEN)
         state[o & (q < -qtol)] = CLOSED
-        state[o & (q >= -qtol) & (hd > hs + tol)] = ACTIVE
+        fd = self._prv_fixed_down
+        state[o & (q >= -qtol) & (hd > hs + tol)] = np.where(fd, CLOSED, ACTIVE)[
+            o & (q >= -qtol) & (hd > hs + tol)]
         c = prv & (old == CLOSED)
-        state[c & (hu > hs + tol) & (hd < hs - tol)] = ACTIVE
-        state[c & (hu <= hs + tol) & (hu > hd + tol)] = OPEN
+        state[c & ~fd & (hu > hs + tol) & (hd < hs - tol)] = ACTIVE
+        state[c & ~fd & (hu <= hs + tol) & (hu > hd + tol)] = OPEN
+        state[c & fd & (hd < hs - tol) & (hu > hd + tol)] = OPEN
         return bool((state != old).any())
 
     def _result(self, q, h, state, fixed, fixed_head, demand, supplied, iterations, trials,

@@ -169,8 +169,6 @@ def test_solver_converges_to_a_verified_solution_or_raises_a_documented_error(ca
     assert np.all(r.demand_m3s[sup] >= -1e-12)
 
 
-@pytest.mark.xfail(strict=True, reason="solver: a PRV discharging into a source or tank node, in "
-                   "parallel with a pipe, does not converge (found by fuzzing; reported)")
 def test_prv_into_a_fixed_head_node_beside_a_pipe_converges():
     """Found by fuzzing. Junction A hangs off source S by a pipe and a PRV (A -> S), and S feeds
     junction D. A has no demand: every flow at A is zero and D draws 0.03125 m3/s from S. The
