@@ -52,7 +52,7 @@ from gridflow.analysis.nfpa import GPM, extrapolate_nfpa291, nfpa_class
 from gridflow.config.fireflow import FireflowSection
 from gridflow.config.sections import CriteriaSection
 from gridflow.errors import InputError
-from gridflow.hydraulics import HydraulicResult, HydraulicSystem, SolveOptions
+from gridflow.hydraulics import DrawSolver, HydraulicResult, HydraulicSystem, SolveOptions
 from gridflow.network.model import (
     LINK_PIPE,
     LINK_VALVE,
@@ -189,6 +189,15 @@ class FireflowProblem:
                    main_idx=main, zone_code=zone_code, node_zone_code=node_zone_code,
                    required_m3s=required, check_node=check_node, check_link=check_link)
 
+    def draw_solver(self) -> DrawSolver:
+        """The base-state draw solver for this problem in this process and thread (built once:
+        one factorization at the base flows, kept for every hydrant)."""
+        key = (self.token, threading.get_ident(), "draw")
+        ds = _SYSTEMS.get(key)
+        if ds is None:
+            ds = _SYSTEMS[key] = DrawSolver(self.system(), self.warm)
+        return ds
+
     def system(self) -> HydraulicSystem:
         """The prepared system for this problem in this process and thread (built once)."""
         key = (self.token, threading.get_ident())
@@ -225,11 +234,16 @@ class FireflowProblem:
             "limit_idx": np.full(m, -1, dtype=np.int64),
             "iterations": np.zeros(m, dtype=np.int64),
             "factorizations": np.zeros(m, dtype=np.int64),
+            "fallback": np.zeros(m, dtype=bool),
         }
         sysm = self.system()
+        fast = self.draw_solver()
         for i, j in enumerate(rows):
             f0 = sysm.pattern.factorizations
-            rec = self._one(int(j))
+            rec = self._one_fast(int(j), fast) if fast.usable else None
+            if rec is None:
+                out["fallback"][i] = True
+                rec = self._one(int(j))
             out["available"][i], out["q20"][i], out["residual_at_required"][i] = rec[:3]
             out["limit"][i], out["limit_idx"][i], out["iterations"][i] = rec[3:]
             out["factorizations"][i] = sysm.pattern.factorizations - f0
@@ -272,6 +286,72 @@ class FireflowProblem:
         except _Failed:
             return np.nan, np.nan, np.nan, _LIM_FAILED, main, its[0]
         return max(available, 0.0), max(q20, 0.0), residual, lim, lim_idx, its[0]
+
+    def _one_fast(self, j: int, ds: DrawSolver):
+        """As :meth:`_one` by the draw solver; ``None`` where it cannot answer.
+
+        The system-wide limit is solved directly: the draw at the outlet is the unknown and
+        the lowest other node ``c`` is held at the minimum; if another node is then lower,
+        it becomes ``c`` and the solve repeats (from the last solution).
+        """
+        warm, net = self.warm, self.net
+        k, main = int(self.outlet_idx[j]), int(self.main_idx[j])
+        if net.is_fixed[main] or not warm.supplied[main]:
+            return None
+        z = float(net.elevation_m[k])
+        static_head = float(warm.head_m[k])
+        target = z + self.residual_m
+        if static_head <= target:
+            return None
+        its = 0
+        r_pin = ds.solve(k, head_m=target)
+        if r_pin is None:
+            return None
+        its += r_pin.iterations
+        pm, pn, vm, vl = self._margins(j, r_pin)
+        if vm < -_MARGIN_TOL:
+            return None  # the velocity limit binds: the bracketing search handles it
+        available, lim, lim_idx = self.draw(j, r_pin), _LIM_RESIDUAL, main
+        if pm < -_MARGIN_TOL:
+            r, c, ok = r_pin, pn, False
+            for _ in range(6):
+                zc = float(net.elevation_m[c])
+                r = ds.solve(k, limit_node=c, limit_head_m=zc + self.minimum_m, start=r)
+                if r is None:
+                    return None
+                its += r.iterations
+                if float(r.head_m[k]) < target - _MARGIN_TOL:
+                    return None  # not expected (the limit draw is below the pinned one)
+                pm, pn, vm, vl = self._margins(j, r)
+                if vm < -_MARGIN_TOL:
+                    return None
+                if pm >= -_MARGIN_TOL:
+                    ok = True
+                    break
+                c = pn
+            if not ok:
+                return None
+            available, lim, lim_idx = self.draw(j, r), _LIM_NODE, pn
+        if abs(self.residual_m - P20_M) < 1e-9:
+            q20 = self.draw(j, r_pin)
+        elif static_head <= z + P20_M:
+            q20 = 0.0
+        else:
+            r20 = ds.solve(k, head_m=z + P20_M, start=r_pin)
+            if r20 is None:
+                return None
+            its += r20.iterations
+            q20 = self.draw(j, r20)
+        q_req = self.required_m3s[j]
+        if not q_req > 0:
+            residual = static_head - z
+        else:
+            rr = ds.solve(k, draw_m3s=q_req, start=r_pin)
+            if rr is None:
+                return None
+            its += rr.iterations
+            residual = float(rr.pressure_m[k])
+        return max(available, 0.0), max(q20, 0.0), residual, lim, lim_idx, its
 
     def _margins(self, j: int, r: HydraulicResult):
         """(pressure margin [m], its node, velocity margin [m/s], its link) of a solution."""
@@ -623,6 +703,7 @@ def sweep(net: Network, base: HydraulicResult, hydrants: pd.DataFrame, fire: Fir
         "base_below_minimum": len(below),
         "iterations": int(out["iterations"].sum()),
         "factorizations": int(sum(int(r["factorizations"].sum()) for r in records)),
+        "fallback": int(sum(int(r["fallback"].sum()) for r in records)),
         "mode": mode,
         "workers": nworkers if mode == "processes" else 1,
         "batches": len(batches),

@@ -4,6 +4,7 @@ This package works on :class:`gridflow.network.Network` arrays only; it imports 
 """
 
 from gridflow.hydraulics.solver import (
+    DrawSolver,
     LINK_STATE_NAMES,
     HydraulicResult,
     HydraulicSystem,
@@ -11,4 +12,4 @@ from gridflow.hydraulics.solver import (
     solve,
 )
 
-__all__ = ["solve", "SolveOptions", "HydraulicResult", "HydraulicSystem", "LINK_STATE_NAMES"]
+__all__ = ["solve", "DrawSolver", "SolveOptions", "HydraulicResult", "HydraulicSystem", "LINK_STATE_NAMES"]
