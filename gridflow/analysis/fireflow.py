@@ -96,6 +96,8 @@ _LIM_STATIC, _LIM_BASE_BELOW, _LIM_FAILED, _LIM_FIXED = 4, 5, 6, 7
 #: search tolerances: pressure margin [m] and velocity margin [m/s] at the constraint
 _MARGIN_TOL = 1e-4
 _MAX_SEARCH = 40
+#: hydrants per task for local worker processes (at most ``batch_size``)
+_LOCAL_BATCH = 25
 
 
 class _Failed(Exception):
@@ -313,7 +315,14 @@ class FireflowProblem:
             return None  # the velocity limit binds: the bracketing search handles it
         available, lim, lim_idx = self.draw(j, r_pin), _LIM_RESIDUAL, main
         if pm < -_MARGIN_TOL:
-            r, c, ok = r_pin, pn, False
+            c, ok = pn, False
+            # start where the limiting node's drop, growing as the draw^1.852, just reaches
+            # the minimum
+            zc = float(net.elevation_m[c])
+            drop_pin = float(warm.head_m[c] - r_pin.head_m[c])
+            drop_ok = float(warm.head_m[c]) - zc - self.minimum_m
+            t = (drop_ok / drop_pin) ** (1 / 1.852) if drop_pin > 0 and drop_ok > 0 else 1.0
+            r = ds.blend(r_pin, min(max(t, 0.05), 1.0))
             for _ in range(6):
                 zc = float(net.elevation_m[c])
                 r = ds.solve(k, limit_node=c, limit_head_m=zc + self.minimum_m, start=r)
@@ -346,7 +355,9 @@ class FireflowProblem:
         if not q_req > 0:
             residual = static_head - z
         else:
-            rr = ds.solve(k, draw_m3s=q_req, start=r_pin)
+            q_pin = self.draw(j, r_pin)
+            start = ds.blend(r_pin, q_req / q_pin) if q_pin > 0 else r_pin
+            rr = ds.solve(k, draw_m3s=q_req, start=start)
             if rr is None:
                 return None
             its += rr.iterations
@@ -675,8 +686,11 @@ def sweep(net: Network, base: HydraulicResult, hydrants: pd.DataFrame, fire: Fir
     elif scheduler:
         mode = "dask"
         records = _run_dask(problem, batches, scheduler, report)
-    elif nworkers > 1 and len(batches) > 1:
+    elif nworkers > 1 and n > min(bs, _LOCAL_BATCH):
         mode = "processes"
+        # local processes cost little per task: smaller batches keep the workers balanced
+        lbs = max(1, min(bs, _LOCAL_BATCH, -(-n // nworkers)))
+        batches = [np.arange(i, min(i + lbs, n)) for i in range(0, n, lbs)]
         with ProcessPoolExecutor(max_workers=min(nworkers, len(batches)),
                                  initializer=_init_worker, initargs=(problem,)) as pool:
             futs = [pool.submit(_run_in_worker, rows) for rows in batches]

@@ -27,6 +27,7 @@ inaccurate results):
 
 from __future__ import annotations
 
+import dataclasses
 import logging
 import time
 from dataclasses import dataclass, field
@@ -632,8 +633,6 @@ class DrawSolver:
     refactorization), so every step keeps mass balance exactly (``A' dQ = -m - dq 1_k``).
     The first step from the base state is scaled so that head losses along it balance the
     work of the known heads (the linear step overshoots: head loss grows faster than flow).
-    After a refactorization with the pinned node already on its head, that node is a
-    Dirichlet row and its balance gives the draw.
     The draw ``dq`` at node ``k`` is found by a bordered solve with the same factorization:
     with ``x`` the solution for the first right-hand side and ``u = (A' G~^-1 A)^-1 1_k``,
     ``dH = x - dq u`` and ``dq`` is chosen so that the constrained node lands on its head
@@ -702,7 +701,6 @@ class DrawSolver:
         self._token = 0
         self._u: dict = {}
         self._w: dict = {}
-        self._pinned: dict = {}
         if self.usable:
             self._factor(self.q0, "base")
 
@@ -714,19 +712,15 @@ class DrawSolver:
             return h, np.maximum(g, G_FLOOR)
         return s.link_headloss(q)
 
-    def _factor(self, q, slot, pin=-1, g=None):
-        """Factorize at flows ``q`` into ``slot``; ``pin``: a node made a Dirichlet row too;
-        ``g``: the head-loss derivative at ``q`` if known."""
+    def _factor(self, q, slot, g=None):
+        """Factorize at flows ``q`` into ``slot`` (``g``: the head-loss derivative at ``q``
+        if known); returns the factorization's token."""
         s = self.sys
         pat = s.pattern
         if g is None:
             _, g = self._headloss(q)
         w = self.cond_f / g
         dirichlet, off_mask = self.dirichlet, self.off_mask
-        if pin >= 0:
-            dirichlet = dirichlet.copy()
-            dirichlet[pin] = True
-            off_mask = off_mask * ((s.fr != pin) & (s.to != pin))
         fr, to, nn = s.fr, s.to, s.nn
         diag = np.bincount(fr, weights=w, minlength=nn) + np.bincount(to, weights=w,
                                                                       minlength=nn)
@@ -738,7 +732,6 @@ class DrawSolver:
         data[pat.diag_pos] = np.where(dirichlet, 1.0, diag)
         pat.factor(data, slot)
         self._w[slot] = w
-        self._pinned[slot] = pin
         if slot == "base":
             return "base"
         self._token += 1
@@ -770,12 +763,13 @@ class DrawSolver:
         dfs = dflow[sel]
         qs = q[sel]
         hn = h + dh  # the linear step: its head differences give the known work exactly
-        work = float(dfs @ (hn[fr[sel]] - hn[to[sel]]))
+        # plain sums, not BLAS dot products: those can stall on a busy machine (thread sync)
+        work = float(np.sum(dfs * (hn[fr[sel]] - hn[to[sel]])))
         a = 1.0
         for _ in range(8):
             hl, g = self._headloss_sel(qs + a * dfs, sel)
-            phi = float(dfs @ hl) - work
-            dphi = float((dfs * dfs) @ g)
+            phi = float(np.sum(dfs * hl)) - work
+            dphi = float(np.sum(dfs * dfs * g))
             if not dphi > 0:
                 return 1.0
             step = phi / dphi
@@ -795,6 +789,17 @@ class DrawSolver:
         qq[sel] = q
         h, g = s.link_headloss(qq)
         return h[sel], g[sel]
+
+    def blend(self, result: HydraulicResult, t: float) -> HydraulicResult:
+        """A start state ``t`` of the way from the base state to ``result`` (a result of this
+        solver): flows and draw scaled linearly (mass balance holds for draw ``t`` times
+        the result's), head drops by ``t^1.852`` (Hazen-Williams). For :meth:`solve`'s
+        ``start``; its factorization is made at the blended flows."""
+        t = float(t)
+        q = self.q0 + t * (result.flow_m3s - self.q0)
+        h = self.h0 + t ** HW_EXPONENT * (np.nan_to_num(result.head_m) - self.h0)
+        return dataclasses.replace(result, flow_m3s=q, head_m=h, extra={
+            "draw_m3s": t * float(result.extra["draw_m3s"]), "factor_token": None})
 
     # ------------------------------------------------------------------ the solve
     def solve(self, node: int, *, head_m: float | None = None, draw_m3s: float | None = None,
@@ -832,9 +837,7 @@ class DrawSolver:
         else:
             q, h = start.flow_m3s.copy(), np.nan_to_num(start.head_m)
             draw, tok = float(start.extra["draw_m3s"]), start.extra["factor_token"]
-            pinned = self._pinned.get("work", -1) if tok != "base" else -1
-            usable = pinned == -1 or (mode == "pin" and pinned == k and h[k] == target)
-            if tok != "base" and (tok != f"work{self._token}" or not usable):
+            if tok != "base" and tok != f"work{self._token}":
                 tok = self._factor(q, "work")
         if mode == "draw":
             draw = float(draw_m3s)
@@ -861,10 +864,9 @@ class DrawSolver:
                 break
             res = max(mass / ftol, head / htol)
             if not fresh and it > 0 and res > self.refactor_ratio * prev:
-                # a pinned node whose head is already on target is a Dirichlet row of the
-                # new matrix: no bordered solve needed
-                pin = k if mode == "pin" and h[k] == target else -1
-                tok = self._factor(q, "work", pin, g)
+                # the pinned node stays a free row (bordered solve): the last factorization
+                # then also serves the next solve of this hydrant (limit, required flow)
+                tok = self._factor(q, "work", g=g)
                 slot = "work"
             fresh = False
             prev = res
@@ -872,11 +874,8 @@ class DrawSolver:
             we = w * e
             rhs = (np.bincount(fr, weights=we, minlength=nn)
                    - np.bincount(to, weights=we, minlength=nn) - m) * free_f
-            pinned = self._pinned[slot]
-            if pinned >= 0:
-                rhs[pinned] = 0.0
             x = pat.solve(rhs, slot)
-            if mode == "draw" or pinned == k:
+            if mode == "draw":
                 dh = x
                 dq = 0.0
             else:
@@ -891,14 +890,11 @@ class DrawSolver:
                 dflow *= a
                 dh = dh * a
                 dq *= a
-                dh[c] = target - h[c]
+                if c >= 0:
+                    dh[c] = target - h[c]
             q = q + dflow
             h = h + dh
             draw += dq
-            if pinned == k:
-                # the pinned node's balance defines the draw
-                draw = float(np.bincount(to, weights=q, minlength=nn)[k]
-                             - np.bincount(fr, weights=q, minlength=nn)[k] - demand[k])
             if self.any_active:
                 q[self.active] = 0.0
                 need = (np.bincount(fr, weights=q, minlength=nn)
