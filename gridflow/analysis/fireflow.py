@@ -16,6 +16,18 @@ For each hydrant, one at a time, on top of a base scenario (usually maximum day)
 3. **Flow at 20 psi** (hydrant residual only) for the NFPA 291 class, and the **residual
    pressure at the required fire flow** (the required flow drawn at the outlet).
 
+How the solves are made: each hydrant is first answered by
+:class:`gridflow.hydraulics.DrawSolver`, which starts every hydrant from the base solution and a
+factorization of the head matrix at the base flows (kept for the whole sweep): the pinned
+outlet is a bordered row of that matrix, the first step is scaled to balance energy along it,
+then Newton steps refactor as they go. The system-wide limit is solved directly (the draw is
+the unknown, the lowest other node is held at the minimum; if another node is then lower it
+takes over, usually within 1-2 rounds), and the required-flow solve starts from the pinned
+solution scaled to the required draw. Where that route cannot answer (a valve or pump would
+change status, pressure-driven demand, a binding velocity limit, no convergence) the hydrant
+is solved by full Newton solves and the bracketing search described above; the two routes agree
+to solver tolerance (tests compare them).
+
 Nodes whose pressure is already below the system minimum in the base solution cannot be made
 acceptable by any fire draw; they are excluded from the check and returned once in
 ``result.attrs["base_below_minimum"]``.

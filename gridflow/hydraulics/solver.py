@@ -38,6 +38,7 @@ from scipy.sparse.csgraph import connected_components
 
 from gridflow.errors import ConvergenceError, NetworkError, SolverError
 from gridflow.hydraulics.headloss import (
+    EPS_FLOW,
     HW_EXPONENT,
     darcy_weisbach,
     hw_resistance,
@@ -513,7 +514,7 @@ class HydraulicSystem:
         return bool((state != old).any())
 
     def _result(self, q, h, state, fixed, fixed_head, demand, supplied, iterations, trials,
-                conv) -> HydraulicResult:
+                conv, hl=None) -> HydraulicResult:
         net, opt = self.net, self.opt
         fr, to = self.fr, self.to
         elev = net.elevation_m
@@ -533,7 +534,7 @@ class HydraulicSystem:
             fr, weights=q, minlength=self.nn)
         imbalance = inflow - delivered
         imbalance[~free] = 0.0
-        hl_model, _ = self.link_headloss(q)
+        hl_model = self.link_headloss(q)[0] if hl is None else hl
         dh = np.where(conducting | active, head[fr] - head[to], np.nan)
         e = np.where(conducting, np.abs(hl_model - dh), 0.0)
         wn = int(np.argmax(np.abs(imbalance))) if self.nn else 0
@@ -636,7 +637,9 @@ class DrawSolver:
     The draw ``dq`` at node ``k`` is found by a bordered solve with the same factorization:
     with ``x`` the solution for the first right-hand side and ``u = (A' G~^-1 A)^-1 1_k``,
     ``dH = x - dq u`` and ``dq`` is chosen so that the constrained node lands on its head
-    (``k`` itself when pinned; another node ``c`` for a system-wide limit). With a stale
+    (``k`` itself when pinned; another node ``c`` for a system-wide limit). Once a pinned
+    node is on its head, later refactorizations make it a Dirichlet row instead (one
+    triangular solve per step rather than two) and its balance gives the draw. With a stale
     factorization this is a quasi-Newton iteration whose fixed point is the solution (zero
     residuals); the matrix is refactored at the current point whenever the scaled residual
     shrinks by less than ``refactor_ratio`` per step, so a converged solve has the same
@@ -684,10 +687,13 @@ class DrawSolver:
         conducting = (state == OPEN) & supplied[fr] & supplied[to]
         self.conducting = conducting
         self.cond_f = conducting.astype(float)
+        self._all_conducting = bool(conducting.all())
         always_closed = np.zeros(system.nl, dtype=bool)
         always_closed[net.status == STATUS_CLOSED] = True
         always_closed[system.is_pump & ~system.pump_on] = True
         self.always_closed = always_closed & ~system.is_cv
+        #: check valves, running pumps or pressure-reducing valves: statuses are checked
+        self.may_change_status = bool((system.is_cv | system.pump_on | system.is_prv).any())
         self.demand = np.asarray(net.demand_m3s, float)
         h0 = np.where(supplied, np.nan_to_num(base.head_m), 0.0)
         h0[fixed] = fixed_head[fixed]
@@ -701,6 +707,7 @@ class DrawSolver:
         self._token = 0
         self._u: dict = {}
         self._w: dict = {}
+        self._pinned: dict = {}
         if self.usable:
             self._factor(self.q0, "base")
 
@@ -708,19 +715,34 @@ class DrawSolver:
     def _headloss(self, q):
         s = self.sys
         if self._plain_hw:
-            h, g = power_law(q, s.r_hw, HW_EXPONENT)
-            return h, np.maximum(g, G_FLOOR)
+            # power_law's regularised law, written with fewer temporaries:
+            # h = r q (q^2 + eps^2)^a, dh/dq = r (q^2 + eps^2)^(a-1) (eps^2 + n q^2)
+            q2 = q * q
+            ss = q2 + EPS_FLOW * EPS_FLOW
+            sa = np.power(ss, 0.5 * (HW_EXPONENT - 1.0))
+            rsa = s.r_hw * sa
+            h = rsa * q
+            q2 *= HW_EXPONENT
+            q2 += EPS_FLOW * EPS_FLOW
+            rsa /= ss
+            rsa *= q2
+            np.maximum(rsa, G_FLOOR, out=rsa)
+            return h, rsa
         return s.link_headloss(q)
 
-    def _factor(self, q, slot, g=None):
+    def _factor(self, q, slot, g=None, pin=-1):
         """Factorize at flows ``q`` into ``slot`` (``g``: the head-loss derivative at ``q``
-        if known); returns the factorization's token."""
+        if known; ``pin``: a node made a Dirichlet row too); returns the token."""
         s = self.sys
         pat = s.pattern
         if g is None:
             _, g = self._headloss(q)
         w = self.cond_f / g
         dirichlet, off_mask = self.dirichlet, self.off_mask
+        if pin >= 0:
+            dirichlet = dirichlet.copy()
+            dirichlet[pin] = True
+            off_mask = off_mask * ((s.fr != pin) & (s.to != pin))
         fr, to, nn = s.fr, s.to, s.nn
         diag = np.bincount(fr, weights=w, minlength=nn) + np.bincount(to, weights=w,
                                                                       minlength=nn)
@@ -732,6 +754,7 @@ class DrawSolver:
         data[pat.diag_pos] = np.where(dirichlet, 1.0, diag)
         pat.factor(data, slot)
         self._w[slot] = w
+        self._pinned[slot] = pin
         if slot == "base":
             return "base"
         self._token += 1
@@ -837,11 +860,14 @@ class DrawSolver:
         else:
             q, h = start.flow_m3s.copy(), np.nan_to_num(start.head_m)
             draw, tok = float(start.extra["draw_m3s"]), start.extra["factor_token"]
-            if tok != "base" and tok != f"work{self._token}":
+            pinned = self._pinned.get("work", -1)
+            fits = pinned == -1 or (mode == "pin" and pinned == k and h[k] == target)
+            if tok != "base" and (tok != f"work{self._token}" or not fits):
                 tok = self._factor(q, "work")
         if mode == "draw":
             draw = float(draw_m3s)
         slot = "base" if tok == "base" else "work"
+        into_k, outof_k = np.flatnonzero(to == k), np.flatnonzero(fr == k)
         ftol, htol = opt.flow_tolerance, opt.head_tolerance
         converged = False
         prev = np.inf
@@ -849,7 +875,9 @@ class DrawSolver:
         it = 0
         for it in range(0, opt.max_iter + 1):
             hl, g = self._headloss(q)
-            e = cond_f * (hl - (h[fr] - h[to]))
+            e = hl - (h[fr] - h[to])
+            if not self._all_conducting:
+                e *= cond_f
             m = (np.bincount(fr, weights=q, minlength=nn)
                  - np.bincount(to, weights=q, minlength=nn) + demand)
             m[k] += draw
@@ -864,9 +892,10 @@ class DrawSolver:
                 break
             res = max(mass / ftol, head / htol)
             if not fresh and it > 0 and res > self.refactor_ratio * prev:
-                # the pinned node stays a free row (bordered solve): the last factorization
-                # then also serves the next solve of this hydrant (limit, required flow)
-                tok = self._factor(q, "work", g=g)
+                # a pinned node already on its head becomes a Dirichlet row of the new
+                # matrix (no bordered solve); its balance then gives the draw
+                pin = k if mode == "pin" and h[k] == target else -1
+                tok = self._factor(q, "work", g=g, pin=pin)
                 slot = "work"
             fresh = False
             prev = res
@@ -874,15 +903,19 @@ class DrawSolver:
             we = w * e
             rhs = (np.bincount(fr, weights=we, minlength=nn)
                    - np.bincount(to, weights=we, minlength=nn) - m) * free_f
+            pinned = self._pinned[slot]
+            if pinned >= 0:
+                rhs[pinned] = 0.0
             x = pat.solve(rhs, slot)
-            if mode == "draw":
+            if mode == "draw" or pinned == k:
                 dh = x
                 dq = 0.0
             else:
                 u = self._unit(tok, k)
                 dq = (x[c] - (target - h[c])) / u[c]
                 dh = x - dq * u
-            dflow = w * (dh[fr] - dh[to]) - w * e
+            dflow = w * (dh[fr] - dh[to])
+            dflow -= we
             if it == 0 and start is None and mode != "draw" and not self.any_active:
                 # from the base state the linear step overshoots the draw (the head loss
                 # grows faster than linearly): scale the step to balance energy along it
@@ -895,6 +928,8 @@ class DrawSolver:
             q = q + dflow
             h = h + dh
             draw += dq
+            if pinned == k:
+                draw = float(np.sum(q[into_k]) - np.sum(q[outof_k]) - demand[k])
             if self.any_active:
                 q[self.active] = 0.0
                 need = (np.bincount(fr, weights=q, minlength=nn)
@@ -903,13 +938,15 @@ class DrawSolver:
                 q[self.active] = need[self.prv_to]
         if not converged:
             return None
-        state = self.state.copy()
-        if s._update_status(state, q, h, self.always_closed, self.supplied):
-            return None
+        if self.may_change_status:
+            state = self.state.copy()
+            if s._update_status(state, q, h, self.always_closed, self.supplied):
+                return None
         fixed = self.given_fixed.copy()
         fixed[k] = True
+        # the head losses at the final flows were computed for the convergence test
         res = s._result(q, h, self.state, fixed, self.given_fixed_head, demand, self.supplied,
-                        it, 1, True)
+                        it, 1, True, hl=hl if self._plain_hw else None)
         res.seconds = time.perf_counter() - t0
         res.factorizations = pat.factorizations - f0
         res.extra = {"draw_m3s": draw, "factor_token": tok}
