@@ -322,7 +322,7 @@ class FireflowProblem:
         if r_pin is None:
             return None
         its += r_pin.iterations
-        pm, pn, vm, vl = self._margins(j, r_pin)
+        pm, pn, vm, _ = self._margins(j, r_pin)
         if vm < -_MARGIN_TOL:
             return None  # the velocity limit binds: the bracketing search handles it
         available, lim, lim_idx = self.draw(j, r_pin), _LIM_RESIDUAL, main
@@ -343,7 +343,7 @@ class FireflowProblem:
                 its += r.iterations
                 if float(r.head_m[k]) < target - _MARGIN_TOL:
                     return None  # not expected (the limit draw is below the pinned one)
-                pm, pn, vm, vl = self._margins(j, r)
+                pm, pn, vm, _ = self._margins(j, r)
                 if vm < -_MARGIN_TOL:
                     return None
                 if pm >= -_MARGIN_TOL:

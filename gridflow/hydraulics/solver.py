@@ -873,7 +873,7 @@ class DrawSolver:
         prev = np.inf
         fresh = start is None  # the base factorization is the Jacobian at the base state
         it = 0
-        for it in range(0, opt.max_iter + 1):
+        for it in range(opt.max_iter + 1):
             hl, g = self._headloss(q)
             e = hl - (h[fr] - h[to])
             if not self._all_conducting:
