@@ -85,7 +85,7 @@ def one(n_pipes: int, n_hydrants: int, sample: int | None) -> dict:
             "cost_in_factorizations": t1 / n / t_fact,
             "factorizations_per_hydrant": s["factorizations"] / n,
             "iterations_per_hydrant": s["iterations"] / n, "speedup_2": t1 / t2,
-            "identical": same, "limited_by_node": s["limited_by_node"],
+            "identical": same, "fallback": s["fallback"], "limited_by_node": s["limited_by_node"],
             "limits": serial["limited_by"].str.split().str[0].value_counts().to_dict()}
 
 
@@ -105,7 +105,8 @@ def main() -> None:
               f"{d['cost_in_factorizations']:>9.1f} {d['factorizations_per_hydrant']:>9.2f} "
               f"{d['iterations_per_hydrant']:>8.2f} {d['speedup_2']:>5.2f} "
               f"{d['identical']!s:>5} {d['limited_by_node']:>8}", flush=True)
-        print(f"        limits: {d['limits']}", flush=True)
+        print(f"        limits: {d['limits']}; hydrants on the full-solve route: "
+              f"{d['fallback']}", flush=True)
 
 
 if __name__ == "__main__":

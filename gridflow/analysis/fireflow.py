@@ -16,6 +16,18 @@ For each hydrant, one at a time, on top of a base scenario (usually maximum day)
 3. **Flow at 20 psi** (hydrant residual only) for the NFPA 291 class, and the **residual
    pressure at the required fire flow** (the required flow drawn at the outlet).
 
+How the solves are made: each hydrant is first answered by
+:class:`gridflow.hydraulics.DrawSolver`, which starts every hydrant from the base solution and a
+factorization of the head matrix at the base flows (kept for the whole sweep): the pinned
+outlet is a bordered row of that matrix, the first step is scaled to balance energy along it,
+then Newton steps refactor as they go. The system-wide limit is solved directly (the draw is
+the unknown, the lowest other node is held at the minimum; if another node is then lower it
+takes over, usually within 1-2 rounds), and the required-flow solve starts from the pinned
+solution scaled to the required draw. Where that route cannot answer (a valve or pump would
+change status, pressure-driven demand, a binding velocity limit, no convergence) the hydrant
+is solved by full Newton solves and the bracketing search described above; the two routes agree
+to solver tolerance (tests compare them).
+
 Nodes whose pressure is already below the system minimum in the base solution cannot be made
 acceptable by any fire draw; they are excluded from the check and returned once in
 ``result.attrs["base_below_minimum"]``.
@@ -52,7 +64,7 @@ from gridflow.analysis.nfpa import GPM, extrapolate_nfpa291, nfpa_class
 from gridflow.config.fireflow import FireflowSection
 from gridflow.config.sections import CriteriaSection
 from gridflow.errors import InputError
-from gridflow.hydraulics import HydraulicResult, HydraulicSystem, SolveOptions
+from gridflow.hydraulics import DrawSolver, HydraulicResult, HydraulicSystem, SolveOptions
 from gridflow.network.model import (
     LINK_PIPE,
     LINK_VALVE,
@@ -96,6 +108,8 @@ _LIM_STATIC, _LIM_BASE_BELOW, _LIM_FAILED, _LIM_FIXED = 4, 5, 6, 7
 #: search tolerances: pressure margin [m] and velocity margin [m/s] at the constraint
 _MARGIN_TOL = 1e-4
 _MAX_SEARCH = 40
+#: hydrants per task for local worker processes (at most ``batch_size``)
+_LOCAL_BATCH = 25
 
 
 class _Failed(Exception):
@@ -189,6 +203,15 @@ class FireflowProblem:
                    main_idx=main, zone_code=zone_code, node_zone_code=node_zone_code,
                    required_m3s=required, check_node=check_node, check_link=check_link)
 
+    def draw_solver(self) -> DrawSolver:
+        """The base-state draw solver for this problem in this process and thread (built once:
+        one factorization at the base flows, kept for every hydrant)."""
+        key = (self.token, threading.get_ident(), "draw")
+        ds = _SYSTEMS.get(key)
+        if ds is None:
+            ds = _SYSTEMS[key] = DrawSolver(self.system(), self.warm)
+        return ds
+
     def system(self) -> HydraulicSystem:
         """The prepared system for this problem in this process and thread (built once)."""
         key = (self.token, threading.get_ident())
@@ -225,11 +248,16 @@ class FireflowProblem:
             "limit_idx": np.full(m, -1, dtype=np.int64),
             "iterations": np.zeros(m, dtype=np.int64),
             "factorizations": np.zeros(m, dtype=np.int64),
+            "fallback": np.zeros(m, dtype=bool),
         }
         sysm = self.system()
+        fast = self.draw_solver()
         for i, j in enumerate(rows):
             f0 = sysm.pattern.factorizations
-            rec = self._one(int(j))
+            rec = self._one_fast(int(j), fast) if fast.usable else None
+            if rec is None:
+                out["fallback"][i] = True
+                rec = self._one(int(j))
             out["available"][i], out["q20"][i], out["residual_at_required"][i] = rec[:3]
             out["limit"][i], out["limit_idx"][i], out["iterations"][i] = rec[3:]
             out["factorizations"][i] = sysm.pattern.factorizations - f0
@@ -272,6 +300,81 @@ class FireflowProblem:
         except _Failed:
             return np.nan, np.nan, np.nan, _LIM_FAILED, main, its[0]
         return max(available, 0.0), max(q20, 0.0), residual, lim, lim_idx, its[0]
+
+    def _one_fast(self, j: int, ds: DrawSolver):
+        """As :meth:`_one` by the draw solver; ``None`` where it cannot answer.
+
+        The system-wide limit is solved directly: the draw at the outlet is the unknown and
+        the lowest other node ``c`` is held at the minimum; if another node is then lower,
+        it becomes ``c`` and the solve repeats (from the last solution).
+        """
+        warm, net = self.warm, self.net
+        k, main = int(self.outlet_idx[j]), int(self.main_idx[j])
+        if net.is_fixed[main] or not warm.supplied[main]:
+            return None
+        z = float(net.elevation_m[k])
+        static_head = float(warm.head_m[k])
+        target = z + self.residual_m
+        if static_head <= target:
+            return None
+        its = 0
+        r_pin = ds.solve(k, head_m=target)
+        if r_pin is None:
+            return None
+        its += r_pin.iterations
+        pm, pn, vm, _ = self._margins(j, r_pin)
+        if vm < -_MARGIN_TOL:
+            return None  # the velocity limit binds: the bracketing search handles it
+        available, lim, lim_idx = self.draw(j, r_pin), _LIM_RESIDUAL, main
+        if pm < -_MARGIN_TOL:
+            c, ok = pn, False
+            # start where the limiting node's drop, growing as the draw^1.852, just reaches
+            # the minimum
+            zc = float(net.elevation_m[c])
+            drop_pin = float(warm.head_m[c] - r_pin.head_m[c])
+            drop_ok = float(warm.head_m[c]) - zc - self.minimum_m
+            t = (drop_ok / drop_pin) ** (1 / 1.852) if drop_pin > 0 and drop_ok > 0 else 1.0
+            r = ds.blend(r_pin, min(max(t, 0.05), 1.0))
+            for _ in range(6):
+                zc = float(net.elevation_m[c])
+                r = ds.solve(k, limit_node=c, limit_head_m=zc + self.minimum_m, start=r)
+                if r is None:
+                    return None
+                its += r.iterations
+                if float(r.head_m[k]) < target - _MARGIN_TOL:
+                    return None  # not expected (the limit draw is below the pinned one)
+                pm, pn, vm, _ = self._margins(j, r)
+                if vm < -_MARGIN_TOL:
+                    return None
+                if pm >= -_MARGIN_TOL:
+                    ok = True
+                    break
+                c = pn
+            if not ok:
+                return None
+            available, lim, lim_idx = self.draw(j, r), _LIM_NODE, pn
+        if abs(self.residual_m - P20_M) < 1e-9:
+            q20 = self.draw(j, r_pin)
+        elif static_head <= z + P20_M:
+            q20 = 0.0
+        else:
+            r20 = ds.solve(k, head_m=z + P20_M, start=r_pin)
+            if r20 is None:
+                return None
+            its += r20.iterations
+            q20 = self.draw(j, r20)
+        q_req = self.required_m3s[j]
+        if not q_req > 0:
+            residual = static_head - z
+        else:
+            q_pin = self.draw(j, r_pin)
+            start = ds.blend(r_pin, q_req / q_pin) if q_pin > 0 else r_pin
+            rr = ds.solve(k, draw_m3s=q_req, start=start)
+            if rr is None:
+                return None
+            its += rr.iterations
+            residual = float(rr.pressure_m[k])
+        return max(available, 0.0), max(q20, 0.0), residual, lim, lim_idx, its
 
     def _margins(self, j: int, r: HydraulicResult):
         """(pressure margin [m], its node, velocity margin [m/s], its link) of a solution."""
@@ -595,8 +698,11 @@ def sweep(net: Network, base: HydraulicResult, hydrants: pd.DataFrame, fire: Fir
     elif scheduler:
         mode = "dask"
         records = _run_dask(problem, batches, scheduler, report)
-    elif nworkers > 1 and len(batches) > 1:
+    elif nworkers > 1 and n > min(bs, _LOCAL_BATCH):
         mode = "processes"
+        # local processes cost little per task: smaller batches keep the workers balanced
+        lbs = max(1, min(bs, _LOCAL_BATCH, -(-n // nworkers)))
+        batches = [np.arange(i, min(i + lbs, n)) for i in range(0, n, lbs)]
         with ProcessPoolExecutor(max_workers=min(nworkers, len(batches)),
                                  initializer=_init_worker, initargs=(problem,)) as pool:
             futs = [pool.submit(_run_in_worker, rows) for rows in batches]
@@ -623,6 +729,7 @@ def sweep(net: Network, base: HydraulicResult, hydrants: pd.DataFrame, fire: Fir
         "base_below_minimum": len(below),
         "iterations": int(out["iterations"].sum()),
         "factorizations": int(sum(int(r["factorizations"].sum()) for r in records)),
+        "fallback": int(sum(int(r["fallback"].sum()) for r in records)),
         "mode": mode,
         "workers": nworkers if mode == "processes" else 1,
         "batches": len(batches),

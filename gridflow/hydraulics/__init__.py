@@ -5,10 +5,12 @@ This package works on :class:`gridflow.network.Network` arrays only; it imports 
 
 from gridflow.hydraulics.solver import (
     LINK_STATE_NAMES,
+    DrawSolver,
     HydraulicResult,
     HydraulicSystem,
     SolveOptions,
     solve,
 )
 
-__all__ = ["solve", "SolveOptions", "HydraulicResult", "HydraulicSystem", "LINK_STATE_NAMES"]
+__all__ = ["solve", "SolveOptions", "HydraulicResult", "HydraulicSystem", "DrawSolver",
+           "LINK_STATE_NAMES"]

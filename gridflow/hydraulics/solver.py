@@ -27,6 +27,7 @@ inaccurate results):
 
 from __future__ import annotations
 
+import dataclasses
 import logging
 import time
 from dataclasses import dataclass, field
@@ -37,6 +38,7 @@ from scipy.sparse.csgraph import connected_components
 
 from gridflow.errors import ConvergenceError, NetworkError, SolverError
 from gridflow.hydraulics.headloss import (
+    EPS_FLOW,
     HW_EXPONENT,
     darcy_weisbach,
     hw_resistance,
@@ -55,7 +57,7 @@ from gridflow.network.model import (
     Network,
 )
 
-__all__ = ["SolveOptions", "HydraulicResult", "HydraulicSystem", "solve",
+__all__ = ["SolveOptions", "HydraulicResult", "HydraulicSystem", "DrawSolver", "solve",
            "LINK_STATE_NAMES"]
 
 log = logging.getLogger("gridflow.hydraulics")
@@ -175,6 +177,7 @@ class HydraulicSystem:
             self.pattern = share.pattern
         else:
             self.pattern = FixedPatternSPD(nn, self.fr, self.to, backend=self.opt.backend)
+        self._components: dict = {}
         self._prepare_links()
 
     def shares_pattern_with(self, net: Network, options: SolveOptions) -> bool:
@@ -363,12 +366,23 @@ class HydraulicSystem:
         return q
 
     def _supplied(self, state, fixed) -> np.ndarray:
-        """Nodes connected through conducting links to a fixed-head (or pinned) node."""
-        conducting = state == OPEN
-        fr, to = self.fr[conducting], self.to[conducting]
-        nn = self.nn
-        adj = sp.coo_matrix((np.ones(len(fr)), (fr, to)), shape=(nn, nn))
-        ncomp, label = connected_components(adj, directed=False)
+        """Nodes connected through conducting links to a fixed-head (or pinned) node.
+
+        The components depend on the link states only: they are kept per state set, so
+        repeated solves with unchanged states (fire flow) skip the graph search.
+        """
+        key = state.tobytes()
+        hit = self._components.get(key)
+        if hit is None:
+            conducting = state == OPEN
+            fr, to = self.fr[conducting], self.to[conducting]
+            nn = self.nn
+            adj = sp.coo_matrix((np.ones(len(fr)), (fr, to)), shape=(nn, nn))
+            hit = connected_components(adj, directed=False)
+            if len(self._components) >= 8:
+                self._components.clear()
+            self._components[key] = hit
+        ncomp, label = hit
         has_fixed = np.zeros(ncomp, dtype=bool)
         has_fixed[label[fixed]] = True
         return has_fixed[label]
@@ -583,7 +597,7 @@ class HydraulicSystem:
         return bool((state != old).any())
 
     def _result(self, q, h, state, fixed, fixed_head, demand, supplied, iterations, trials,
-                conv) -> HydraulicResult:
+                conv, hl=None) -> HydraulicResult:
         net, opt = self.net, self.opt
         fr, to = self.fr, self.to
         elev = net.elevation_m
@@ -603,7 +617,7 @@ class HydraulicSystem:
             fr, weights=q, minlength=self.nn)
         imbalance = inflow - delivered
         imbalance[~free] = 0.0
-        hl_model, _ = self.link_headloss(q)
+        hl_model = self.link_headloss(q)[0] if hl is None else hl
         dh = np.where(conducting | active, head[fr] - head[to], np.nan)
         e = np.where(conducting, np.abs(hl_model - dh), 0.0)
         wn = int(np.argmax(np.abs(imbalance))) if self.nn else 0
@@ -684,3 +698,339 @@ def solve(net: Network, *, options: SolveOptions | None = None,
     return HydraulicSystem(net, options).solve(demand_m3s=demand_m3s,
                                                raise_on_failure=raise_on_failure)
 
+
+
+class DrawSolver:
+    """Solves a network with one extra draw at a node, near a converged base state.
+
+    Made for many nearby problems on one network (fire flow): every solve starts from the base
+    solution and from a factorization of the head matrix at the base flows, kept aside; most
+    iterations reuse a factorization instead of refactoring.
+
+    Each iteration is a Newton step in correction form on the residuals at the current point,
+    ``e`` (head loss minus head difference, per open link) and ``m`` (net outflow plus demand
+    plus the draw, per unknown-head node)::
+
+        (A' G~^-1 A) dH = A' G~^-1 e - m - dq 1_k,      dQ = G~^-1 (A dH - e)
+
+    with ``G~`` the head-loss derivative of the factorized matrix (the current one after a
+    refactorization), so every step keeps mass balance exactly (``A' dQ = -m - dq 1_k``).
+    The first step from the base state is scaled so that head losses along it balance the
+    work of the known heads (the linear step overshoots: head loss grows faster than flow).
+    The draw ``dq`` at node ``k`` is found by a bordered solve with the same factorization:
+    with ``x`` the solution for the first right-hand side and ``u = (A' G~^-1 A)^-1 1_k``,
+    ``dH = x - dq u`` and ``dq`` is chosen so that the constrained node lands on its head
+    (``k`` itself when pinned; another node ``c`` for a system-wide limit). Once a pinned
+    node is on its head, later refactorizations make it a Dirichlet row instead (one
+    triangular solve per step rather than two) and its balance gives the draw. With a stale
+    factorization this is a quasi-Newton iteration whose fixed point is the solution (zero
+    residuals); the matrix is refactored at the current point whenever the scaled residual
+    shrinks by less than ``refactor_ratio`` per step, so a converged solve has the same
+    residual test as :meth:`HydraulicSystem.solve`.
+
+    Link statuses stay as in the base solution. :meth:`solve` returns ``None`` when it cannot
+    answer by this route (a status would change, the node is a fixed-head node, pressure-driven
+    demand, or no convergence): the caller then uses :meth:`HydraulicSystem.solve`.
+
+    Parameters
+    ----------
+    system : HydraulicSystem
+    base : HydraulicResult
+        A converged solution of ``system.net`` with its own demand.
+    refactor_ratio : float
+        Refactor when the residual falls by less than this factor's inverse in one step
+        (default 0: refactor every step after the first, plain Newton, which measured
+        fastest on street-grid networks; 0.25 refactors unless the residual shrank 4 times).
+    """
+
+    def __init__(self, system: HydraulicSystem, base: HydraulicResult, *,
+                 refactor_ratio: float = 0.0) -> None:
+        self.sys = system
+        self.refactor_ratio = float(refactor_ratio)
+        net, opt = system.net, system.opt
+        self.usable = not opt.pressure_driven and bool(base.converged)
+        fr, to = system.fr, system.to
+        state = np.asarray(base.link_state, dtype=np.int8).copy()
+        self.state = state
+        fixed = net.is_fixed.copy()
+        fixed_head = np.where(fixed, net.fixed_head_m, np.nan)
+        self.given_fixed = fixed.copy()
+        self.given_fixed_head = fixed_head.copy()
+        active = (state == ACTIVE) & system.is_prv
+        self.active = active
+        self.any_active = bool(active.any())
+        self.prv_to = to[active]
+        fixed[self.prv_to] = True
+        fixed_head[self.prv_to] = system.prv_head[active]
+        supplied = system._supplied(state, fixed)
+        self.supplied = supplied
+        dirichlet = fixed | ~supplied
+        self.dirichlet = dirichlet
+        self.free_f = (~dirichlet).astype(float)
+        conducting = (state == OPEN) & supplied[fr] & supplied[to]
+        self.conducting = conducting
+        self.cond_f = conducting.astype(float)
+        self._all_conducting = bool(conducting.all())
+        always_closed = np.zeros(system.nl, dtype=bool)
+        always_closed[net.status == STATUS_CLOSED] = True
+        always_closed[system.is_pump & ~system.pump_on] = True
+        self.always_closed = always_closed & ~system.is_cv
+        #: check valves, running pumps or pressure-reducing valves: statuses are checked
+        self.may_change_status = bool((system.is_cv | system.pump_on | system.is_prv).any())
+        self.demand = np.asarray(net.demand_m3s, float)
+        h0 = np.where(supplied, np.nan_to_num(base.head_m), 0.0)
+        h0[fixed] = fixed_head[fixed]
+        self.h0 = h0
+        self.q0 = np.where(conducting | active, base.flow_m3s, 0.0)
+        # the off-diagonal of a free-free pair only; Dirichlet rows are identity rows
+        self.off_mask = self.free_f[fr] * self.free_f[to]
+        # all-pipe Hazen-Williams networks without minor losses: one power law over all links
+        self._plain_hw = (not system.dw and bool(system.is_pipe.all())
+                          and not bool((system.m_minor > 0).any()))
+        self._token = 0
+        self._u: dict = {}
+        self._w: dict = {}
+        self._pinned: dict = {}
+        if self.usable:
+            self._factor(self.q0, "base")
+
+    # ------------------------------------------------------------------ pieces
+    def _headloss(self, q):
+        s = self.sys
+        if self._plain_hw:
+            # power_law's regularised law, written with fewer temporaries:
+            # h = r q (q^2 + eps^2)^a, dh/dq = r (q^2 + eps^2)^(a-1) (eps^2 + n q^2)
+            q2 = q * q
+            ss = q2 + EPS_FLOW * EPS_FLOW
+            sa = np.power(ss, 0.5 * (HW_EXPONENT - 1.0))
+            rsa = s.r_hw * sa
+            h = rsa * q
+            q2 *= HW_EXPONENT
+            q2 += EPS_FLOW * EPS_FLOW
+            rsa /= ss
+            rsa *= q2
+            np.maximum(rsa, G_FLOOR, out=rsa)
+            return h, rsa
+        return s.link_headloss(q)
+
+    def _factor(self, q, slot, g=None, pin=-1):
+        """Factorize at flows ``q`` into ``slot`` (``g``: the head-loss derivative at ``q``
+        if known; ``pin``: a node made a Dirichlet row too); returns the token."""
+        s = self.sys
+        pat = s.pattern
+        if g is None:
+            _, g = self._headloss(q)
+        w = self.cond_f / g
+        dirichlet, off_mask = self.dirichlet, self.off_mask
+        if pin >= 0:
+            dirichlet = dirichlet.copy()
+            dirichlet[pin] = True
+            off_mask = off_mask * ((s.fr != pin) & (s.to != pin))
+        fr, to, nn = s.fr, s.to, s.nn
+        diag = np.bincount(fr, weights=w, minlength=nn) + np.bincount(to, weights=w,
+                                                                      minlength=nn)
+        if pat.unique_off:
+            data = np.zeros(pat.nnz)
+            data[pat.off_pos] = -w * off_mask
+        else:
+            data = np.bincount(pat.off_pos, weights=-w * off_mask, minlength=pat.nnz)
+        data[pat.diag_pos] = np.where(dirichlet, 1.0, diag)
+        pat.factor(data, slot)
+        self._w[slot] = w
+        self._pinned[slot] = pin
+        if slot == "base":
+            return "base"
+        self._token += 1
+        return f"work{self._token}"
+
+    def _unit(self, tok, k):
+        """``u = S^-1 1_k`` for the factorization ``tok`` (kept while it is current)."""
+        u = self._u.get((tok, k))
+        if u is None:
+            if len(self._u) > 4:
+                for key in [key for key in self._u if key[0] != "base"]:
+                    del self._u[key]
+            e = np.zeros(self.sys.nn)
+            e[k] = 1.0
+            u = self.sys.pattern.solve(e, "base" if tok == "base" else "work")
+            self._u[(tok, k)] = u
+        return u
+
+    def _energy_scale(self, q, dflow, h, dh, k, c, target, fr, to) -> float:
+        """Step length ``a`` in (0, 1] along the flow change ``dflow`` from ``q``.
+
+        Along ``q + a dflow`` the head losses weighted by ``dflow`` must add up to the work of
+        the known heads (fixed-head nodes and the constrained node): ``phi(a) = sum dflow_l
+        h_l(q + a dflow) - dflow' A H`` with ``dflow' A H`` depending on the known heads only
+        (the change satisfies mass balance at every other node). ``phi`` increases with ``a``;
+        a few Newton steps from ``a = 1`` find its root.
+        """
+        sel = np.abs(dflow) > 1e-9 * max(float(np.max(np.abs(dflow))), 1e-300)
+        dfs = dflow[sel]
+        qs = q[sel]
+        hn = h + dh  # the linear step: its head differences give the known work exactly
+        # plain sums, not BLAS dot products: those can stall on a busy machine (thread sync)
+        work = float(np.sum(dfs * (hn[fr[sel]] - hn[to[sel]])))
+        a = 1.0
+        for _ in range(8):
+            hl, g = self._headloss_sel(qs + a * dfs, sel)
+            phi = float(np.sum(dfs * hl)) - work
+            dphi = float(np.sum(dfs * dfs * g))
+            if not dphi > 0:
+                return 1.0
+            step = phi / dphi
+            a_new = min(1.0, max(0.05 * a, a - step))
+            if abs(a_new - a) <= 1e-3 * a:
+                a = a_new
+                break
+            a = a_new
+        return a
+
+    def _headloss_sel(self, q, sel):
+        s = self.sys
+        if self._plain_hw:
+            h, g = power_law(q, s.r_hw[sel], HW_EXPONENT)
+            return h, np.maximum(g, G_FLOOR)
+        qq = np.zeros(s.nl)
+        qq[sel] = q
+        h, g = s.link_headloss(qq)
+        return h[sel], g[sel]
+
+    def blend(self, result: HydraulicResult, t: float) -> HydraulicResult:
+        """A start state ``t`` of the way from the base state to ``result`` (a result of this
+        solver): flows and draw scaled linearly (mass balance holds for draw ``t`` times
+        the result's), head drops by ``t^1.852`` (Hazen-Williams). For :meth:`solve`'s
+        ``start``; its factorization is made at the blended flows."""
+        t = float(t)
+        q = self.q0 + t * (result.flow_m3s - self.q0)
+        h = self.h0 + t ** HW_EXPONENT * (np.nan_to_num(result.head_m) - self.h0)
+        return dataclasses.replace(result, flow_m3s=q, head_m=h, extra={
+            "draw_m3s": t * float(result.extra["draw_m3s"]), "factor_token": None})
+
+    # ------------------------------------------------------------------ the solve
+    def solve(self, node: int, *, head_m: float | None = None, draw_m3s: float | None = None,
+              limit_node: int | None = None, limit_head_m: float | None = None,
+              start: HydraulicResult | None = None) -> HydraulicResult | None:
+        """Solve with an extra draw at ``node``: exactly one of three kinds.
+
+        - ``head_m``: the node's head is fixed; the draw is what it takes.
+        - ``draw_m3s``: the draw is given [m3/s] (added to the node's demand).
+        - ``limit_node`` and ``limit_head_m``: the draw is what puts ``limit_node`` at
+          ``limit_head_m`` (e.g. the lowest node of a zone at the system minimum).
+
+        ``start``: a result of this solver to start from (default the base state).
+        Returns a :class:`HydraulicResult` whose ``extra["draw_m3s"]`` is the draw and whose
+        ``node_inflow_m3s[node] - demand_m3s[node]`` is the draw too, or ``None`` when this
+        route cannot answer (see the class notes).
+        """
+        if not self.usable:
+            return None
+        t0 = time.perf_counter()
+        s, opt = self.sys, self.sys.opt
+        pat = s.pattern
+        f0 = pat.factorizations
+        k = int(node)
+        mode = ("pin" if head_m is not None else "draw" if draw_m3s is not None else "limit")
+        c = k if mode == "pin" else (int(limit_node) if mode == "limit" else -1)
+        target = float(head_m) if mode == "pin" else (
+            float(limit_head_m) if mode == "limit" else np.nan)
+        if self.dirichlet[k] or (c >= 0 and self.dirichlet[c]):
+            return None
+        fr, to, nn = s.fr, s.to, s.nn
+        cond_f, free_f, demand = self.cond_f, self.free_f, self.demand
+        if start is None:
+            q, h, draw, tok = self.q0.copy(), self.h0.copy(), 0.0, "base"
+        else:
+            q, h = start.flow_m3s.copy(), np.nan_to_num(start.head_m)
+            draw, tok = float(start.extra["draw_m3s"]), start.extra["factor_token"]
+            pinned = self._pinned.get("work", -1)
+            fits = pinned == -1 or (mode == "pin" and pinned == k and h[k] == target)
+            if tok != "base" and (tok != f"work{self._token}" or not fits):
+                tok = self._factor(q, "work")
+        if mode == "draw":
+            draw = float(draw_m3s)
+        slot = "base" if tok == "base" else "work"
+        into_k, outof_k = np.flatnonzero(to == k), np.flatnonzero(fr == k)
+        ftol, htol = opt.flow_tolerance, opt.head_tolerance
+        converged = False
+        prev = np.inf
+        fresh = start is None  # the base factorization is the Jacobian at the base state
+        it = 0
+        for it in range(opt.max_iter + 1):
+            hl, g = self._headloss(q)
+            e = hl - (h[fr] - h[to])
+            if not self._all_conducting:
+                e *= cond_f
+            m = (np.bincount(fr, weights=q, minlength=nn)
+                 - np.bincount(to, weights=q, minlength=nn) + demand)
+            m[k] += draw
+            m *= free_f
+            mass = float(np.max(np.abs(m)))
+            head = float(np.max(np.abs(e)))
+            off = 0.0 if mode != "pin" else abs(h[k] - target)
+            if mass <= ftol and head <= htol and off <= htol and it > 0:
+                converged = True
+                break
+            if it == opt.max_iter:
+                break
+            res = max(mass / ftol, head / htol)
+            if not fresh and it > 0 and res > self.refactor_ratio * prev:
+                # a pinned node already on its head becomes a Dirichlet row of the new
+                # matrix (no bordered solve); its balance then gives the draw
+                pin = k if mode == "pin" and h[k] == target else -1
+                tok = self._factor(q, "work", g=g, pin=pin)
+                slot = "work"
+            fresh = False
+            prev = res
+            w = self._w[slot]
+            we = w * e
+            rhs = (np.bincount(fr, weights=we, minlength=nn)
+                   - np.bincount(to, weights=we, minlength=nn) - m) * free_f
+            pinned = self._pinned[slot]
+            if pinned >= 0:
+                rhs[pinned] = 0.0
+            x = pat.solve(rhs, slot)
+            if mode == "draw" or pinned == k:
+                dh = x
+                dq = 0.0
+            else:
+                u = self._unit(tok, k)
+                dq = (x[c] - (target - h[c])) / u[c]
+                dh = x - dq * u
+            dflow = w * (dh[fr] - dh[to])
+            dflow -= we
+            if it == 0 and start is None and mode != "draw" and not self.any_active:
+                # from the base state the linear step overshoots the draw (the head loss
+                # grows faster than linearly): scale the step to balance energy along it
+                a = self._energy_scale(q, dflow, h, dh, k, c, target, fr, to)
+                dflow *= a
+                dh = dh * a
+                dq *= a
+                if c >= 0:
+                    dh[c] = target - h[c]
+            q = q + dflow
+            h = h + dh
+            draw += dq
+            if pinned == k:
+                draw = float(np.sum(q[into_k]) - np.sum(q[outof_k]) - demand[k])
+            if self.any_active:
+                q[self.active] = 0.0
+                need = (np.bincount(fr, weights=q, minlength=nn)
+                        - np.bincount(to, weights=q, minlength=nn) + demand)
+                need[k] += draw
+                q[self.active] = need[self.prv_to]
+        if not converged:
+            return None
+        if self.may_change_status:
+            state = self.state.copy()
+            if s._update_status(state, q, h, self.always_closed, self.supplied):
+                return None
+        fixed = self.given_fixed.copy()
+        fixed[k] = True
+        # the head losses at the final flows were computed for the convergence test
+        res = s._result(q, h, self.state, fixed, self.given_fixed_head, demand, self.supplied,
+                        it, 1, True, hl=hl if self._plain_hw else None)
+        res.seconds = time.perf_counter() - t0
+        res.factorizations = pat.factorizations - f0
+        res.extra = {"draw_m3s": draw, "factor_token": tok}
+        return res

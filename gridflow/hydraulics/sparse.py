@@ -62,31 +62,46 @@ class FixedPatternSPD:
         self.off_pos = inverse[n:]
         #: no two links share an off-diagonal entry (no parallel links): plain assignment works
         self.unique_off = len(np.unique(self.off_pos)) == len(self.off_pos)
-        self._solver = None
+        self._solvers: dict = {}
+        self._upper: sp.csc_matrix | None = None
         self.factorizations = 0
 
     def matrix(self, data: np.ndarray) -> sp.csc_matrix:
         """The upper triangle as a CSC matrix holding ``data`` (explicit zeros kept)."""
         return sp.csc_matrix((data, self.indices, self.indptr), shape=(self.n, self.n))
 
-    def factor(self, data: np.ndarray) -> None:
-        """Numeric factorization of the matrix with values ``data``."""
+    def factor(self, data: np.ndarray, slot: str = "main") -> None:
+        """Numeric factorization of the matrix with values ``data``.
+
+        ``slot`` names where the factorization is kept: factorizations in different slots live
+        side by side (e.g. a base state's, kept for many nearby solves, and a working one).
+        """
         self.factorizations += 1
+        solver = self._solvers.get(slot)
         if self.backend == "qdldl":
             import qdldl
 
-            m = self.matrix(data)
-            if self._solver is None:
-                self._solver = qdldl.Solver(m, upper=True)
+            # one CSC object, its values overwritten: qdldl reads the values on each update
+            m = self._upper
+            if m is None or m.data.shape != (self.nnz,):
+                m = self._upper = self.matrix(np.array(data, dtype=float))
             else:
-                self._solver.update(m, upper=True)
+                m.data[:] = data
+            if solver is None:
+                self._solvers[slot] = qdldl.Solver(m, upper=True)
+            else:
+                solver.update(m, upper=True)
         else:
             import scipy.sparse.linalg as spla
 
             upper = self.matrix(data)
             full = (upper + sp.triu(upper, k=1).T).tocsc()
-            self._solver = spla.splu(full, permc_spec="COLAMD")
+            self._solvers[slot] = spla.splu(full, permc_spec="COLAMD")
 
-    def solve(self, b: np.ndarray) -> np.ndarray:
-        """Solve with the current factorization."""
-        return np.asarray(self._solver.solve(np.ascontiguousarray(b, dtype=float)))
+    def solve(self, b: np.ndarray, slot: str = "main") -> np.ndarray:
+        """Solve with the factorization kept in ``slot`` (default: the current one)."""
+        return np.asarray(self._solvers[slot].solve(np.ascontiguousarray(b, dtype=float)))
+
+    def has_factor(self, slot: str = "main") -> bool:
+        """True if ``slot`` holds a factorization."""
+        return slot in self._solvers

@@ -303,3 +303,50 @@ def test_inputs_not_modified():
     assert np.array_equal(base.flow_m3s, before[1]) and np.array_equal(n.demand_m3s, before[2])
     assert n.n_nodes == before[3]
     assert dataclasses.is_dataclass(base)
+
+
+# ---------------------------------------------------------------- the two solve routes
+def test_draw_route_matches_full_solve_route(monkeypatch):
+    # every hydrant is answered by the draw solver (bordered pin, direct system-wide limit);
+    # the full-Newton route (pinned solves and the bracketing search) must agree
+    n = looped()
+    base = solve(n, options=TIGHT)
+    hyd = hydrants([(f"F{i}", i) for i in range(2, 10)])
+    fire = FireflowSection(lateral_length=5.0, system_minimum=35 * PSI)
+    fast = sweep(n, base, hyd, fire, CRIT, options=TIGHT, workers=1)
+    assert fast.attrs["summary"]["fallback"] == 0
+    assert fast["limited_by"].str.startswith("node ").any()
+    monkeypatch.setattr(FireflowProblem, "_one_fast", lambda self, j, ds: None)
+    full = sweep(n, base, hyd, fire, CRIT, options=TIGHT, workers=1)
+    assert full.attrs["summary"]["fallback"] == len(hyd)
+    assert fast["limited_by"].tolist() == full["limited_by"].tolist()
+    for col in ("available_flow_m3s", "available_flow_at_20psi_m3s"):
+        np.testing.assert_allclose(fast[col], full[col], rtol=1e-5)
+    np.testing.assert_allclose(fast["residual_pressure_at_required_m"],
+                               full["residual_pressure_at_required_m"], atol=1e-5)
+
+
+def test_system_wide_limit_solved_directly_at_known_node():
+    # the case of test_system_wide_constraint_binds_at_known_node, by the draw route: B held at
+    # the minimum gives the draw ((H - 20 - p_min) / r)^(1/1.852) to solver accuracy
+    n = net([("R", 0, 0, 100.0), ("A", 0.0, 0.0, None), ("B", 20.0, 0.0, None)],
+            [pipe("1", "R", "A", 1500, 0.2), pipe("2", "A", "B", 300, 0.1)])
+    out = run(n, hydrants([("F", 1)]))
+    assert out.attrs["summary"]["fallback"] == 0
+    q = ((100.0 - 20.0 - 20 * PSI) / r_hw(1500, 0.2, 120)) ** (1 / 1.852)
+    assert out["limited_by"][0] == "node B at minimum"
+    assert out["available_flow_m3s"][0] == pytest.approx(q, rel=1e-7)
+
+
+def test_local_process_batches_balance_and_match_serial():
+    n = looped()
+    base = solve(n, options=TIGHT)
+    hyd = hydrants([(f"F{i}", 2 + i % 8) for i in range(60)])
+    fire = FireflowSection(batch_size=100)
+    serial = sweep(n, base, hyd, fire, CRIT, options=TIGHT, workers=1)
+    assert serial.attrs["summary"]["batches"] == 1
+    procs = sweep(n, base, hyd, fire, CRIT, options=TIGHT, workers=2)
+    # 60 hydrants, 2 workers: local tasks of 25 (not one task of 100)
+    assert procs.attrs["summary"]["mode"] == "processes"
+    assert procs.attrs["summary"]["batches"] == 3
+    pd.testing.assert_frame_equal(serial, procs)
