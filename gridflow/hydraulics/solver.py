@@ -217,6 +217,8 @@ class HydraulicSystem:
                                                                                    nan=2.0)),
                                0.0)
         self.pump_n = np.where(self.pump_on, np.nan_to_num(net.pump_c, nan=2.0), 2.0)
+        # PRVs discharging into a fixed head (refined per solve when nodes are pinned)
+        self._prv_fixed_down = self.is_prv & net.is_fixed[self.to]
         self.prv_head = np.full(nl, np.nan)
         self.prv_head[self.is_prv] = (net.elevation_m[self.to[self.is_prv]]
                                       + net.valve_setting[self.is_prv])
