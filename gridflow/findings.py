@@ -8,8 +8,9 @@ contract's fields ``kind``, ``severity``, ``layer``, ``feature_id``, ``message``
 from __future__ import annotations
 
 import logging
+from collections.abc import Sequence
 from dataclasses import dataclass, field
-from typing import Literal, Sequence
+from typing import Literal
 
 import numpy as np
 
@@ -56,7 +57,7 @@ class Findings:
         level = {"info": logging.DEBUG, "warning": logging.INFO, "error": logging.WARNING}
         log.log(level[severity], "%d finding(s) %s on %s", n, kind, layer)
 
-    def extend(self, other: "Findings") -> None:
+    def extend(self, other: Findings) -> None:
         for name in ("kind", "severity", "layer", "feature_id", "message", "geometry"):
             getattr(self, name).extend(getattr(other, name))
 

@@ -1,7 +1,8 @@
 """Benchmark: read + clean synthetic street-grid mains against a bare pyogrio read.
 
 Mains along a jittered 100 m street grid with a quarter of the edges removed and ends
-jittered 0.02 m, with ground elevation as Z, written to a GeoPackage. Prints the time of read + clean, the time of a bare
+jittered 0.02 m, with ground elevation as Z, written to a GeoPackage. Prints the time of
+read + clean, the time of a bare
 ``pyogrio.read_dataframe(use_arrow=True)`` of the same layer in the same run, their ratio, and
 peak memory (ru_maxrss, and tracemalloc of the clean step when --trace is given).
 
@@ -49,7 +50,6 @@ def make_grid(n_lines: int, seed: int = 1):
 def write_gis(path: Path, lines) -> None:
     import geopandas as gpd
     import pyogrio
-
     import shapely
 
     n = len(lines)

@@ -37,7 +37,6 @@ def write_utility(path: Path, n: int, seed: int = 7) -> None:
     import geopandas as gpd
     import pyogrio
     import shapely
-
     from bench_gis import make_grid
 
     rng = np.random.default_rng(seed)
@@ -113,13 +112,13 @@ enabled = {report}
 
 def one(n: int, report: bool) -> dict:
     import pyogrio
+    from synthetic import numeric_factorization_seconds
 
     from gridflow.config import load_config
     from gridflow.findings import Findings
     from gridflow.hydraulics import HydraulicSystem
     from gridflow.jobs.run import run_job
     from gridflow.topology import build_network
-    from synthetic import numeric_factorization_seconds
 
     with tempfile.TemporaryDirectory() as d:
         d = Path(d)

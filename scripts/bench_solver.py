@@ -23,10 +23,10 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 
 def one(n_pipes: int, backend: str) -> dict:
-    import numpy as np
+
+    from synthetic import grid_network, numeric_factorization_seconds
 
     from gridflow.hydraulics import HydraulicSystem, SolveOptions
-    from synthetic import grid_network, numeric_factorization_seconds
 
     net, _ = grid_network(n_pipes)
     opts = SolveOptions(backend=backend)

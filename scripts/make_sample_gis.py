@@ -528,7 +528,7 @@ def _finish_geometry(t: Town) -> None:
         m.verts[-1] = (x + d * np.cos(ang), y + d * np.sin(ang))
         m.gap_m = d
     # abandoned mains beside old-town mains
-    for n, m in enumerate(t._abandoned):
+    for m in t._abandoned:
         (ax, ay), (bx, by) = m.verts[0], m.verts[-1]
         L = np.hypot(bx - ax, by - ay)
         nx_, ny_ = -(by - ay) / L, (bx - ax) / L

@@ -5,11 +5,12 @@ import pandas as pd
 import pyogrio
 import pytest
 from click.testing import CliRunner
-from .gis_helpers import L, P, layer, pipe, source_rows
 
 from gridflow.cli.main import _register, cli
 from gridflow.errors import OutputError
 from gridflow.io.write import write_geopackage
+
+from .gis_helpers import L, P, layer, pipe, source_rows
 
 CONFIG = """
 [run]

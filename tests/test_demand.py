@@ -15,12 +15,13 @@ import pint
 import pytest
 import shapely
 
-from .demand_helpers import CRS, make_cfg, make_clean, make_meters, node_pos
 from gridflow.demand import allocate, run_info_rows
 from gridflow.errors import ConfigError, InputError
 from gridflow.findings import Findings
 from gridflow.network.model import STATUS_CLOSED
 from gridflow.units import FLOW
+
+from .demand_helpers import CRS, make_cfg, make_clean, make_meters, node_pos
 
 UREG = pint.UnitRegistry()
 GPD = UREG.Quantity(1.0, "gallon/day").to("m**3/s").magnitude  # pint's US liquid gallon

@@ -4,11 +4,12 @@ import hashlib
 
 import numpy as np
 import pytest
-from .gis_helpers import CRS, L, P, X0, Y0, config, layer, pipe, source_layer, source_rows
 
 from gridflow.errors import InputError
 from gridflow.findings import Findings
 from gridflow.io.read import read_inputs
+
+from .gis_helpers import CRS, X0, Y0, L, P, config, layer, pipe, source_layer, source_rows
 
 
 def _gis(tmp_path, rows=None, crs=CRS):

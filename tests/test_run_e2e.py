@@ -235,7 +235,8 @@ def test_result_layers_carry_default_styles(run_output):
     out, _ = run_output
     con = sqlite3.connect(out)
     try:
-        rows = con.execute("SELECT f_table_name, useAsDefault, styleQML FROM layer_styles").fetchall()
+        rows = con.execute("SELECT f_table_name, useAsDefault, styleQML "
+                           "FROM layer_styles").fetchall()
     finally:
         con.close()
     styled = {r[0] for r in rows}

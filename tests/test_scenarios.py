@@ -5,12 +5,13 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from .demand_helpers import make_cfg, make_clean, make_meters, node_pos
 from gridflow.config.demand import DEFAULT_FACTORS
 from gridflow.demand import allocate, scenario_demand, scenario_network
 from gridflow.errors import ConfigError
 from gridflow.findings import Findings
 from gridflow.network.model import STATUS_CLOSED, STATUS_OPEN
+
+from .demand_helpers import make_cfg, make_clean, make_meters, node_pos
 
 CATS = {"residential": {"codes": ["RES"]}, "commercial": {"codes": ["COM"]}}
 

@@ -10,7 +10,6 @@ from collections import Counter
 import geopandas as gpd
 import numpy as np
 import pytest
-from .gis_helpers import CRS, L, ML, P, config, layer, pipe, source_layer, source_rows
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
@@ -25,6 +24,8 @@ from gridflow.network import (
 )
 from gridflow.topology import build_network
 from gridflow.topology.zones import supplied_nodes
+
+from .gis_helpers import CRS, ML, L, P, config, layer, pipe, source_layer, source_rows
 
 HYD = {"input": "gis", "layer": "hydrants", "id": "HYD_ID"}
 VALVES = {"input": "gis", "layer": "valves", "id": "VALVE_ID",
@@ -276,7 +277,8 @@ def grids(draw):
     return keep, jit, long_row
 
 
-@settings(max_examples=8, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@settings(max_examples=8, deadline=None,
+          suppress_health_check=[HealthCheck.function_scoped_fixture])
 @given(grids())
 def test_cleaning_a_cleaned_network_changes_nothing(tmp_path_factory, case):
     keep, jit, long_row = case

@@ -489,9 +489,9 @@ def _check_hydrants(net: Network, hydrants: pd.DataFrame) -> None:
     bad = ~np.isfinite(idx) | (idx < 0) | (idx >= net.n_nodes) | (idx != np.round(idx))
     if bad.any():
         k = int(np.argmax(bad))
-        raise InputError(f"hydrant {hid[k]} refers to node position {hydrants['node_idx'].iloc[k]}, outside "
-                         f"0..{net.n_nodes - 1}", layer="hydrants", feature_id=hid[k],
-                         field="node_idx")
+        raise InputError(f"hydrant {hid[k]} refers to node position "
+                         f"{hydrants['node_idx'].iloc[k]}, outside 0..{net.n_nodes - 1}",
+                         layer="hydrants", feature_id=hid[k], field="node_idx")
 
 
 def _column_or(hydrants, col, default, hid) -> np.ndarray:

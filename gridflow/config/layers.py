@@ -172,7 +172,8 @@ class ElevationSection:
 class RoughnessRule:
     material: str = opt(parse=P_STR, doc="material (after codes.material)")
     value: float = opt(parse=P_FLOAT, doc="Hazen-Williams C, or Darcy-Weisbach roughness [mm]")
-    installed_before: int = opt(9999, parse=P_INT, doc="applies to pipes installed before this year")
+    installed_before: int = opt(9999, parse=P_INT,
+                                doc="applies to pipes installed before this year")
 
 
 @dataclass(frozen=True, kw_only=True)

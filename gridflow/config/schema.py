@@ -14,11 +14,12 @@ from __future__ import annotations
 
 import dataclasses
 import difflib
+from collections.abc import Callable, Iterable
 from functools import lru_cache
-from typing import Any, Callable, Iterable
+from typing import Any
 
 from gridflow.errors import ConfigError
-from gridflow.units import G, RHO_WATER
+from gridflow.units import RHO_WATER, G
 
 __all__ = [
     "opt",

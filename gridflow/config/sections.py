@@ -50,12 +50,14 @@ class CriteriaSection:
     max_velocity_fire: float = opt(10 * FT, parse=quantity("velocity", minimum=0.0),
                                    doc="maximum velocity under fire flow")
     max_unit_headloss: float = opt(0.010, parse=quantity("ratio", minimum=0.0),
-                                   doc="maximum unit head loss (high_headloss flag), e.g. '10 ft/kft'")
+                                   doc="maximum unit head loss (high_headloss flag), "
+                                       "e.g. '10 ft/kft'")
 
 
 @dataclass(frozen=True, kw_only=True)
 class SolverSection:
-    max_iter: int = opt(200, parse=P_INT, doc="Newton iterations in all (statuses are checked every 10)")
+    max_iter: int = opt(200, parse=P_INT,
+                        doc="Newton iterations in all (statuses are checked every 10)")
     flow_tolerance: float = opt(1e-6, parse=P_FLOAT,
                                 doc="largest mass imbalance at a node at convergence [m3/s]")
     head_tolerance: float = opt(1e-4, parse=P_FLOAT,

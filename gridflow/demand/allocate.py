@@ -244,7 +244,7 @@ class _MeterResult:
     counts: dict[str, int]
 
     @classmethod
-    def empty(cls) -> "_MeterResult":
+    def empty(cls) -> _MeterResult:
         return cls(np.empty(0, dtype=object), np.empty(0), np.empty(0, dtype=np.int64), [],
                    np.empty(0, dtype=np.int64), np.empty(0), np.empty(0), np.empty(0, bool),
                    {"meters": 0, "allocated": 0, "unallocated": 0, "bad_consumption": 0,
@@ -373,7 +373,7 @@ def _link_orientation(clean, net: Network, lines: np.ndarray, link_idx: np.ndarr
 
 
 def _allocate_meters(ctx: _Context, clean, meters, replaced: set[str]) -> _MeterResult:
-    cfg, net, dem = ctx.cfg, ctx.net, ctx.cfg.demand
+    net, dem = ctx.net, ctx.cfg.demand
     for col in ("meter_id", "consumption"):
         if col not in meters.columns:
             raise InputError(f"meter layer {ctx.meter_layer} has no {col} column",

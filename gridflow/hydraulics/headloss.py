@@ -22,7 +22,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from gridflow.units import G, NU_WATER_20C
+from gridflow.units import NU_WATER_20C, G
 
 __all__ = [
     "HW_EXPONENT",

@@ -165,7 +165,7 @@ class HydraulicSystem:
     """
 
     def __init__(self, net: Network, options: SolveOptions | None = None, *,
-                 share: "HydraulicSystem | None" = None) -> None:
+                 share: HydraulicSystem | None = None) -> None:
         self.net = net
         self.opt = options or SolveOptions()
         nl, nn = net.n_links, net.n_nodes

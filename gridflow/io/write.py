@@ -14,8 +14,8 @@ import logging
 import os
 import tempfile
 import time
+from collections.abc import Mapping, Sequence
 from pathlib import Path
-from typing import Mapping, Sequence
 
 from gridflow.errors import OutputError
 

@@ -78,14 +78,14 @@ def check_job(config_path, out=None) -> int:
     from gridflow.io.write import write_geopackage
     from gridflow.topology import build_network
 
-    start = _dt.datetime.now(_dt.timezone.utc)
+    start = _dt.datetime.now(_dt.UTC)
     cfg = load_config(config_path)
     out_path = Path(out) if out else cfg.resolve(cfg.run.output)
     findings = Findings()
     clean = build_network(cfg, findings)
     nodes, links = network_layers(clean, cfg.run.units)
     fgdf = findings.to_geodataframe(crs=clean.crs)
-    end = _dt.datetime.now(_dt.timezone.utc)
+    end = _dt.datetime.now(_dt.UTC)
     info = [("tool", "gridflow"), ("tool_version", __version__), ("command", "check"),
             ("config", str(Path(config_path))), ("config_sha256", cfg.sha256),
             ("start_time", start.isoformat(timespec="seconds")),

@@ -154,11 +154,11 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
     from gridflow.analysis.changes import compare_flags, flag_set, read_previous_flags
     from gridflow.demand import allocate, run_info_rows, scenario_network
     from gridflow.io.write import write_geopackage
-    from gridflow.jobs.layers import hydrants_layer, nodes_layer, pipes_layer
+    from gridflow.jobs.layers import nodes_layer, pipes_layer
     from gridflow.topology import build_network
 
     t_start = time.perf_counter()
-    started = _dt.datetime.now(_dt.timezone.utc)
+    started = _dt.datetime.now(_dt.UTC)
     cfg = load_config(config_path)
     out_path = Path(out) if out else cfg.resolve(cfg.run.output)
     if not out:  # the config's own output folder (e.g. out/ beside it) is made on first use
@@ -263,7 +263,7 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
             log.info("since the previous run: %d new flag(s), %d resolved", n_new, n_res)
         info += [("findings", str(len(findings))),
                  ("started_utc", started.isoformat(timespec="seconds")),
-                 ("ended_utc", _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds")),
+                 ("ended_utc", _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds")),
                  ("seconds_total", f"{time.perf_counter() - t_start:.2f}")]
         layers["run_info"] = pd.DataFrame(info, columns=["key", "value"])
         inputs = [cfg.resolve(p) for p in cfg.inputs.values()]
@@ -339,7 +339,7 @@ def _report(cfg, out_path, layers, info):
 
     html = out_path.with_suffix(".html")
     c = cfg.criteria
-    from gridflow.units import M_HEAD_PER_PSI, KPA_PER_M_HEAD, FT
+    from gridflow.units import FT, KPA_PER_M_HEAD, M_HEAD_PER_PSI
 
     if cfg.run.units == "US":
         crit = {"min_pressure": f"{c.min_pressure / M_HEAD_PER_PSI:.0f} psi",

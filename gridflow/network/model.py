@@ -175,7 +175,7 @@ class Network:
         pump_c=None,
         pump_speed=None,
         headloss_model: HeadlossModel = "hazen-williams",
-    ) -> "Network":
+    ) -> Network:
         """Make a validated network, filling defaults for arrays not given.
 
         ``node_kind`` defaults to source where ``fixed_head_m`` is finite, junction elsewhere.
@@ -214,7 +214,7 @@ class Network:
         net.validate()
         return net
 
-    def replace(self, **changes) -> "Network":
+    def replace(self, **changes) -> Network:
         """A validated copy with some arrays replaced; the others are shared, not copied."""
         new = dataclasses.replace(self, **changes)
         new.validate()
@@ -319,7 +319,8 @@ class Network:
                                "number >= 0", link_id=ids[k], field="minor_k")
         if pump.any():
             a, b, c = self.pump_a[pump], self.pump_b[pump], self.pump_c[pump]
-            bad = ~(np.isfinite(a) & np.isfinite(b) & np.isfinite(c)) | (a <= 0) | (b <= 0) | (c <= 0)
+            bad = (~(np.isfinite(a) & np.isfinite(b) & np.isfinite(c))
+                   | (a <= 0) | (b <= 0) | (c <= 0))
             if bad.any():
                 k = int(np.flatnonzero(pump)[np.argmax(bad)])
                 raise NetworkError(

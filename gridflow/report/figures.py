@@ -129,7 +129,8 @@ def _scalar_mappable(norm):
 
 
 def _junctions(nodes: pd.DataFrame) -> np.ndarray:
-    return ((nodes["fixed_head"].astype(int) == 0) & (nodes["supplied"].astype(int) == 1)).to_numpy()
+    fixed = nodes["fixed_head"].astype(int) == 0
+    return (fixed & (nodes["supplied"].astype(int) == 1)).to_numpy()
 
 
 def flagged_pipes_map(pipes, velocity_flag: np.ndarray, headloss_flag: np.ndarray) -> str:

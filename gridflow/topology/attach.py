@@ -253,7 +253,7 @@ class Attacher:
     def run(self):
         from gridflow.topology.build import CleanNetwork
 
-        b, f, tol = self.b, self.f, self.tol
+        b, f = self.b, self.f
         n = len(self.geoms)
         t_line, t_key, t_s = self.t_events()
         ev_line, ev_key, ev_s, ev_xy = self.hydrant_events(t_line, t_key, t_s)
@@ -379,8 +379,8 @@ class Attacher:
         b, f, cfg = self.b, self.f, self.b.cfg
         key_xy = np.vstack(self.key_xy)
         # device links
-        dl_from, dl_to, dl_rows = [], [], []
-        for role, fr, pts, li, up, down in self.dev_links:
+        dl_from, dl_to = [], []
+        for *_, up, down in self.dev_links:
             dl_from.append(up)
             dl_to.append(down)
         all_from = np.concatenate([self.p_from, *dl_from]).astype(np.int64)
@@ -542,7 +542,7 @@ class Attacher:
     def _point_elevations(self, elev, idx_of_key):
         src = self.b.cfg.elevation.source
         sources = [(self.hyd, self.hyd_pts, self.hyd_key)]
-        for role, fr, pts, li, up, down in self.dev_links:
+        for _role, fr, pts, _li, up, down in self.dev_links:
             sources.append((fr, pts, up))
             sources.append((fr, pts, down))
         for fr, pts, key in sources:
@@ -675,7 +675,8 @@ class Attacher:
         fr = self.hyd
         if fr is None or len(fr) == 0:
             return gpd.GeoDataFrame(
-                {"hydrant_id": pd.Series([], dtype=object), "node_idx": pd.Series([], dtype="int64"),
+                {"hydrant_id": pd.Series([], dtype=object),
+                 "node_idx": pd.Series([], dtype="int64"),
                  "node_id": pd.Series([], dtype=object), "zone": pd.Series([], dtype=object),
                  "required_fire_flow_m3s": pd.Series([], dtype=float),
                  "land_use": pd.Series([], dtype=object),

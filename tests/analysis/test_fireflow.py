@@ -28,7 +28,8 @@ CRIT = CriteriaSection()
 
 
 def r_hw(L, D, C):
-    # Hazen-Williams SI, written out from the published formula: h = 10.67 L Q^1.852 / (C^1.852 D^4.87)
+    # Hazen-Williams SI, written out from the published formula:
+    # h = 10.67 L Q^1.852 / (C^1.852 D^4.87)
     return 10.67 * L / (C**1.852 * D**4.87)
 
 

@@ -10,9 +10,9 @@ output at the target is intact and nothing else was written.
 from __future__ import annotations
 
 import hashlib
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Callable
 
 import pyogrio
 from click.testing import CliRunner

@@ -121,11 +121,13 @@ class Town:
             return rows
         return next(r for r in rows if next(iter(r.values())) == fid)
 
-    def copy(self) -> "Town":
+    def copy(self) -> Town:
         return copy.deepcopy(self)
 
     def write(self, folder: Path) -> tuple[Path, Path]:
-        """Write ``town.gpkg``, ``town.toml`` and an empty ``out/`` in ``folder``; returns the paths."""
+        """Write ``town.gpkg``, ``town.toml`` and an empty ``out/`` in ``folder``.
+
+        Returns the paths of the GeoPackage and the config."""
         (folder / "out").mkdir(parents=True, exist_ok=True)
         gpkg = folder / "town.gpkg"
         for name, rows in self.layers.items():

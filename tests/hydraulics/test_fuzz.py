@@ -19,7 +19,6 @@ from __future__ import annotations
 import os
 
 import numpy as np
-import pytest
 from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 
@@ -64,7 +63,7 @@ def networks(draw):
             fr[k], to[k] = to[k], fr[k]
     for _ in range(draw(st.integers(0, n // 2))):  # loops
         a = draw(st.integers(0, n - 1))
-        b = draw(st.integers(0, n - 1).filter(lambda x: x != a))
+        b = draw(st.integers(0, n - 1).filter(lambda x, a=a: x != a))
         fr.append(a)
         to.append(b)
     nl = len(fr)

@@ -87,7 +87,9 @@ def scenario_layers(net: Network, xy: np.ndarray, extra: dict, name: str, factor
                     system: str = "US"):
     """Solve one scenario; return (nodes, pipes, result) in contract fields."""
     r = solve(net.replace(demand_m3s=net.demand_m3s * factor))
-    su = lambda q: _conv(q, system)
+    def su(q):
+        return _conv(q, system)
+
     sup = r.supplied.astype(int)
     fixed = net.is_fixed
     p = r.pressure_m
