@@ -150,3 +150,16 @@ def test_closing_a_pump_points_to_pump_status():
     cfg, clean, alloc = _setup({"max_day": {"closed_valves": ["PU1"]}})
     with pytest.raises(ConfigError, match=r"PU1 is a pump.*pump_status"):
         scenario_network(cfg, clean, alloc, "max_day")
+
+
+def test_closed_valves_match_the_pieces_of_a_split_main():
+    # a main split by topology keeps its id with a suffix; closing it by the utility's id
+    # closes every piece
+    import numpy as np
+
+    from gridflow.demand.scenarios import _closable_links
+
+    ids = np.array(["P1", "P12.1", "P12.2", "P120", "valve:7", "V3"], dtype=object)
+    got_ids, pos = _closable_links(ids, ["P12", "7", "V3", "nope"])
+    assert got_ids == ["P12", "P12", "7", "V3", "nope"]
+    assert pos.tolist() == [1, 2, 4, 5, -1]

@@ -156,8 +156,7 @@ def scenario_network(cfg, clean, alloc: DemandAllocation, name: str) -> Network:
 
     if sec.closed_valves:
         key = f"{where}.closed_valves"
-        ids = list(sec.closed_valves)
-        pos = _positions(net.link_id, ids)
+        ids, pos = _closable_links(net.link_id, list(sec.closed_valves))
         unknown = [i for i, j in zip(ids, pos) if j < 0]
         if unknown:
             raise ConfigError(f"config key {key}: no valve or pipe with id "
@@ -171,6 +170,28 @@ def scenario_network(cfg, clean, alloc: DemandAllocation, name: str) -> Network:
         changes["status"] = status
 
     return net.replace(**changes)
+
+
+def _closable_links(link_id: np.ndarray, ids: list[str]) -> tuple[list[str], np.ndarray]:
+    """Positions of the links a scenario closes, by the utility's ids.
+
+    An id matches a link exactly; failing that, the pieces a main was split into
+    (``P12.1``, ``P12.2`` ...) or a valve renamed to keep ids unique (``valve:12``) all match.
+    Returns the ids repeated per matched link and the positions (-1 where nothing matched).
+    """
+    exact = _positions(link_id, ids)
+    out_ids: list[str] = []
+    out_pos: list[int] = []
+    names = link_id.astype(str)
+    for i, j in zip(ids, exact):
+        if j >= 0:
+            out_ids.append(i)
+            out_pos.append(int(j))
+            continue
+        pieces = np.flatnonzero(np.char.startswith(names, f"{i}.") | (names == f"valve:{i}"))
+        out_ids.extend([i] * max(1, len(pieces)))
+        out_pos.extend(pieces.tolist() or [-1])
+    return out_ids, np.asarray(out_pos, dtype=np.int64)
 
 
 def _pump_speed(value: str, key: str) -> float:
