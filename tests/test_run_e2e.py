@@ -257,3 +257,11 @@ def test_nonconvergence_exits_3_with_diagnostics(tmp_path):
     worst = f[f["kind"] == "not_converged"]
     assert len(worst) == 10 and (worst["severity"] == "error").all()
     assert worst["feature_id"].iloc[0] in res.output
+
+
+def test_run_prints_a_summary_with_the_caution(tmp_path):
+    cfg = _config(tmp_path, fireflow=False)
+    res = _run("-q", "run", str(cfg), "--out", str(tmp_path / "s.gpkg"))
+    assert res.exit_code == 0
+    assert "peak_hour:" in res.output and "low-pressure" in res.output
+    assert "model estimates" in res.output and "licensed engineers decide" in res.output

@@ -273,11 +273,38 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
             _report(cfg, out_path, layers, info)
         if failure is not None:
             raise failure
+        _print_summary(out_path, layers, findings, cfg.report.enabled)
         return 0
     finally:
         if handler is not None:
             logging.getLogger("gridflow").removeHandler(handler)
             handler.close()
+
+
+def _print_summary(out_path: Path, layers: dict, findings: Findings, report: bool) -> None:
+    """A few lines on stdout for whoever ran the command: what was flagged, where it went."""
+    print(f"gridflow run: {len(findings)} finding(s) "
+          f"({findings.count(severity='error')} error, {findings.count(severity='warning')} "
+          "warning)")
+    for name, df in layers.items():
+        if name.startswith("nodes_"):
+            pipes = layers[f"pipes_{name[6:]}"]
+            print(f"  {name[6:]}: {int(df['low_pressure'].sum())} low-pressure, "
+                  f"{int(df['high_pressure'].sum())} high-pressure, "
+                  f"{int((df['supplied'] == 0).sum())} unsupplied node(s); "
+                  f"{int(pipes['high_velocity'].sum())} fast, "
+                  f"{int(pipes['high_headloss'].sum())} high-loss pipe(s)")
+    if "hydrants_fireflow" in layers:
+        h = layers["hydrants_fireflow"]
+        print(f"  fire flow: {int((h['meets_required'] == 0).sum())} of {len(h)} hydrant(s) "
+              "below their required flow")
+    if "changes" in layers:
+        c = layers["changes"]
+        print(f"  since the previous run: {int((c['change'] == 'new').sum())} new, "
+              f"{int((c['change'] == 'resolved').sum())} resolved flag(s)")
+    print(f"written: {out_path}" + (f" and {out_path.with_suffix('.html')}" if report else ""))
+    print("Results are model estimates of the GIS as mapped; field flow tests, local codes and "
+          "licensed engineers decide.")
 
 
 def terminal_progress(label: str):
