@@ -36,8 +36,10 @@ class Findings:
         """Add one finding."""
         self.add_many(kind, severity, layer, [feature_id], [message], [geometry])
 
-    def add_many(self, kind: str, severity: Severity, layer: str, feature_ids: Sequence,
-                 messages: Sequence[str] | str, geometries: Sequence | None = None) -> None:
+    def add_many(self, kind: str, severity: Severity, layer: str,
+                 feature_ids: Sequence | np.ndarray,
+                 messages: Sequence[str] | np.ndarray | str,
+                 geometries: Sequence | np.ndarray | None = None) -> None:
         """Add one finding per feature id (``messages`` may be one string for all)."""
         n = len(feature_ids)
         if n == 0:

@@ -103,7 +103,7 @@ def to_si(values, unit: str, table: dict[str, float], *, what: str = "value"):
     return np.asarray(values, dtype=float) * lowered[key]
 
 
-def out_field(quantity: str, system: UnitSystem) -> tuple[str, float]:
+def out_field(quantity: str, system: UnitSystem | str) -> tuple[str, float]:
     """Field suffix and factor from SI for an output quantity, e.g. ``("psi", 1.4223)``."""
     return OUTPUT[system][quantity]
 

@@ -11,3 +11,9 @@ def test_ruff_passes():
     out = subprocess.run([sys.executable, "-m", "ruff", "check", "gridflow", "tests", "scripts"],
                          cwd=ROOT, capture_output=True, text=True)
     assert out.returncode == 0, out.stdout[-3000:] + out.stderr[-1000:]
+
+
+def test_mypy_passes():
+    out = subprocess.run([sys.executable, "-m", "mypy", "gridflow"], cwd=ROOT,
+                         capture_output=True, text=True)
+    assert out.returncode == 0, out.stdout[-3000:] + out.stderr[-1000:]

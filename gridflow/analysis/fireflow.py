@@ -334,7 +334,7 @@ class FireflowProblem:
             drop_pin = float(warm.head_m[c] - r_pin.head_m[c])
             drop_ok = float(warm.head_m[c]) - zc - self.minimum_m
             t = (drop_ok / drop_pin) ** (1 / 1.852) if drop_pin > 0 and drop_ok > 0 else 1.0
-            r = ds.blend(r_pin, min(max(t, 0.05), 1.0))
+            r: HydraulicResult | None = ds.blend(r_pin, min(max(t, 0.05), 1.0))
             for _ in range(6):
                 zc = float(net.elevation_m[c])
                 r = ds.solve(k, limit_node=c, limit_head_m=zc + self.minimum_m, start=r)
@@ -350,7 +350,7 @@ class FireflowProblem:
                     ok = True
                     break
                 c = pn
-            if not ok:
+            if not ok or r is None:
                 return None
             available, lim, lim_idx = self.draw(j, r), _LIM_NODE, pn
         if abs(self.residual_m - P20_M) < 1e-9:

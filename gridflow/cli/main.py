@@ -31,7 +31,7 @@ def setup_logging(verbose: int, quiet: int) -> None:
     root = logging.getLogger("gridflow")
     root.setLevel(min(level, logging.DEBUG))
     if not any(getattr(h, "_gridflow_stderr", False) for h in root.handlers):
-        h = logging.StreamHandler(sys.stderr)
+        h: logging.Handler = logging.StreamHandler(sys.stderr)
         h._gridflow_stderr = True  # type: ignore[attr-defined]
         h.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(message)s", "%H:%M:%S"))
         root.addHandler(h)

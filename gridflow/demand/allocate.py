@@ -490,7 +490,7 @@ def _report_unallocated(ctx, k, ids, pts, lines, any_main, eligible, link_zone, 
     for i, j, dj, zc in zip(ids[k], near, near_d, zcodes[k]):
         where = f" in zone {zuniq[zc]}" if zc >= 0 else ""
         if not eligible[j]:
-            why = _why_not_eligible(ctx, j)
+            why = _why_not_eligible(ctx, int(j))
         elif zc >= 0 and link_zone[j] != zuniq[zc]:
             why = f"it is in zone {link_zone[j] or '(none)'}"
         else:
@@ -547,7 +547,7 @@ def _point_demands(ctx: _Context, clean, meters: _MeterResult) -> dict[str, np.n
         key = f"demand.points[{i}].node"
         arr = out.setdefault(p.category, np.zeros(net.n_nodes))
         j = node_pos.get_indexer([p.node])[0]
-        if j < 0 and p.node in hyd_ids:
+        if j < 0 and hyd is not None and p.node in hyd_ids:
             j = int(np.asarray(hyd["node_idx"])[hyd_ids.get_indexer([p.node])[0]])
         if j >= 0:
             if fixed[j]:

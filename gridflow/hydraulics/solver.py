@@ -172,6 +172,7 @@ class HydraulicSystem:
         self.nn, self.nl = nn, nl
         self.fr = net.from_idx
         self.to = net.to_idx
+        self.pattern: FixedPatternSPD
         if share is not None and share.shares_pattern_with(net, self.opt):
             # same links between the same nodes: reuse the ordering and symbolic analysis
             self.pattern = share.pattern
@@ -933,9 +934,13 @@ class DrawSolver:
         f0 = pat.factorizations
         k = int(node)
         mode = ("pin" if head_m is not None else "draw" if draw_m3s is not None else "limit")
-        c = k if mode == "pin" else (int(limit_node) if mode == "limit" else -1)
-        target = float(head_m) if mode == "pin" else (
-            float(limit_head_m) if mode == "limit" else np.nan)
+        c = k if mode == "pin" else (int(limit_node) if limit_node is not None else -1)
+        if mode == "pin":
+            target = float(head_m)  # type: ignore[arg-type]  # set in this mode
+        elif mode == "limit" and limit_head_m is not None:
+            target = float(limit_head_m)
+        else:
+            target = np.nan
         if self.dirichlet[k] or (c >= 0 and self.dirichlet[c]):
             return None
         fr, to, nn = s.fr, s.to, s.nn
@@ -950,7 +955,7 @@ class DrawSolver:
             if tok != "base" and (tok != f"work{self._token}" or not fits):
                 tok = self._factor(q, "work")
         if mode == "draw":
-            draw = float(draw_m3s)
+            draw = float(draw_m3s)  # type: ignore[arg-type]  # set in this mode
         slot = "base" if tok == "base" else "work"
         into_k, outof_k = np.flatnonzero(to == k), np.flatnonzero(fr == k)
         ftol, htol = opt.flow_tolerance, opt.head_tolerance
@@ -975,15 +980,15 @@ class DrawSolver:
                 break
             if it == opt.max_iter:
                 break
-            res = max(mass / ftol, head / htol)
-            if not fresh and it > 0 and res > self.refactor_ratio * prev:
+            score = max(mass / ftol, head / htol)
+            if not fresh and it > 0 and score > self.refactor_ratio * prev:
                 # a pinned node already on its head becomes a Dirichlet row of the new
                 # matrix (no bordered solve); its balance then gives the draw
                 pin = k if mode == "pin" and h[k] == target else -1
                 tok = self._factor(q, "work", g=g, pin=pin)
                 slot = "work"
             fresh = False
-            prev = res
+            prev = score
             w = self._w[slot]
             we = w * e
             rhs = (np.bincount(fr, weights=we, minlength=nn)

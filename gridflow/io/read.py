@@ -114,7 +114,7 @@ def inspect_inputs(cfg) -> dict[str, LayerInfo]:
         bounds = info.get("total_bounds")
         infos[role] = LayerInfo(role, path, sec.layer, crs, fields, str(geom),
                                 int(info.get("features", -1)),
-                                None if bounds is None else tuple(float(b) for b in bounds))
+                                None if bounds is None else _bounds4(bounds))
     return infos
 
 
@@ -446,6 +446,10 @@ def _texts(col: pd.Series, role: str, role_name: str, codes: dict | None, ids, i
             low[rows] = None
         out = low
     return out
+
+
+def _bounds4(b) -> tuple[float, float, float, float]:
+    return float(b[0]), float(b[1]), float(b[2]), float(b[3])
 
 
 def sample_dem(path: Path, x: np.ndarray, y: np.ndarray, crs, unit_factor_m: float) -> np.ndarray:

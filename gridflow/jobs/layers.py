@@ -19,18 +19,18 @@ from gridflow.units import FT, UnitSystem, out_field
 __all__ = ["nodes_layer", "pipes_layer", "hydrants_layer", "field_name"]
 
 
-def field_name(quantity: str, system: UnitSystem, stem: str | None = None) -> str:
+def field_name(quantity: str, system: UnitSystem | str, stem: str | None = None) -> str:
     suffix, _ = out_field(quantity, system)
     return f"{stem or quantity}_{suffix}"
 
 
-def _conv(values, quantity: str, system: UnitSystem) -> np.ndarray:
+def _conv(values, quantity: str, system: UnitSystem | str) -> np.ndarray:
     _, factor = out_field(quantity, system)
     return np.asarray(values, dtype=float) * factor
 
 
 def nodes_layer(net: Network, r: HydraulicResult, geometry, crs, criteria: CriteriaSection,
-                system: UnitSystem) -> gpd.GeoDataFrame:
+                system: UnitSystem | str) -> gpd.GeoDataFrame:
     """``nodes_<scenario>``: one row per node, in network order."""
     flags = node_flags(net, r, criteria)
     cols = {
@@ -50,7 +50,7 @@ def nodes_layer(net: Network, r: HydraulicResult, geometry, crs, criteria: Crite
 
 
 def pipes_layer(net: Network, r: HydraulicResult, geometry, crs, criteria: CriteriaSection,
-                system: UnitSystem, pressure_rating_m=None) -> gpd.GeoDataFrame:
+                system: UnitSystem | str, pressure_rating_m=None) -> gpd.GeoDataFrame:
     """``pipes_<scenario>``: one row per link, in network order."""
     flags = pipe_flags(net, r, criteria)
     dw = net.headloss_model == "darcy-weisbach"
@@ -81,7 +81,7 @@ def pipes_layer(net: Network, r: HydraulicResult, geometry, crs, criteria: Crite
     return gpd.GeoDataFrame(cols, geometry=gpd.GeoSeries(geometry, crs=crs), crs=crs)
 
 
-def hydrants_layer(ff: pd.DataFrame, geometry, crs, system: UnitSystem) -> gpd.GeoDataFrame:
+def hydrants_layer(ff: pd.DataFrame, geometry, crs, system: UnitSystem | str) -> gpd.GeoDataFrame:
     """``hydrants_fireflow`` from the sweep's SI table."""
     cols = {
         "hydrant_id": ff["hydrant_id"].astype(str).to_numpy(),

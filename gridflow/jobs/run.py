@@ -207,7 +207,7 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
             try:
                 r = system.solve()
             except ConvergenceError as exc:
-                r = exc.result
+                r = exc.fields["result"]
                 worst = _worst_nodes(net, system, r, 10)
                 findings.add_many("not_converged", "error", f"nodes_{name}", worst,
                                   [f"scenario {name}: {r.message}"] * len(worst),

@@ -12,6 +12,7 @@ from collections.abc import Sequence
 
 import numpy as np
 import pandas as pd
+from matplotlib.axes import Axes
 from matplotlib.colors import Normalize
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
@@ -65,7 +66,7 @@ def _aspect(gdf) -> float:
     return float(np.clip(ratio, 0.35, 1.3)) if np.isfinite(ratio) else 0.8
 
 
-def _map_figure(pipes) -> tuple[Figure, object]:
+def _map_figure(pipes) -> tuple[Figure, Axes]:
     """A figure sized to the network's extent, with room for a legend on the right."""
     fig = Figure(figsize=(9.0, 0.6 + 6.5 * _aspect(pipes)))
     ax = fig.add_axes((0.02, 0.04, 0.72, 0.88))

@@ -31,6 +31,7 @@ from __future__ import annotations
 
 import functools
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
@@ -40,6 +41,9 @@ from gridflow.config.layers import SEARCH_DISTANCE_DEFAULT, unit_factor
 from gridflow.findings import Findings
 from gridflow.network import Network
 from gridflow.topology.lines import end_points, set_end_points, snap_labels
+
+if TYPE_CHECKING:
+    import geopandas as gpd
 
 __all__ = ["CleanNetwork", "build_network", "MAX_DIAMETER_M", "MIN_DIAMETER_M", "C_RANGE"]
 
@@ -79,13 +83,13 @@ class CleanNetwork:
     """
 
     network: Network
-    nodes: object
-    links: object
-    hydrants: object
-    meters: object
-    crs: object
+    nodes: gpd.GeoDataFrame
+    links: gpd.GeoDataFrame
+    hydrants: gpd.GeoDataFrame
+    meters: gpd.GeoDataFrame
+    crs: Any
     inputs: list = field(default_factory=list)
-    elevation_guessed: object = None  # bool per node: elevation interpolated or 0 m used
+    elevation_guessed: Any = None  # bool per node: elevation interpolated or 0 m used
 
     @property
     def tank_bottom_m(self):
@@ -344,7 +348,7 @@ class _Builder:
         is_node_pt = np.arange(len(pts)) >= 2 * n
         cnt_end = np.bincount(lab[~is_node_pt], minlength=nc)
         cxy = np.column_stack([np.bincount(lab[:2 * n], pts[:2 * n, 0], nc),
-                               np.bincount(lab[:2 * n], pts[:2 * n, 1], nc)])
+                               np.bincount(lab[:2 * n], pts[:2 * n, 1], nc)]).astype(float)
         cxy /= np.maximum(cnt_end, 1)[:, None]
         # a junction point in the cluster fixes its position and lends its id
         node_of_cluster = np.full(nc, -1)
