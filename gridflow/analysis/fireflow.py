@@ -60,10 +60,11 @@ from concurrent.futures import as_completed as futures_completed
 import numpy as np
 import pandas as pd
 
+from gridflow import __version__
 from gridflow.analysis.nfpa import GPM, extrapolate_nfpa291, nfpa_class
 from gridflow.config.fireflow import FireflowSection
 from gridflow.config.sections import CriteriaSection
-from gridflow.errors import InputError
+from gridflow.errors import ConfigError, InputError
 from gridflow.hydraulics import DrawSolver, HydraulicResult, HydraulicSystem, SolveOptions
 from gridflow.network.model import (
     LINK_PIPE,
@@ -739,11 +740,54 @@ def sweep(net: Network, base: HydraulicResult, hydrants: pd.DataFrame, fire: Fir
     return out
 
 
-def _run_dask(problem, batches, scheduler, report) -> list[dict]:
+def connect_scheduler(scheduler: str, *, timeout: str = "20s"):
+    """A Dask client for ``scheduler`` whose workers run this gridflow version.
+
+    Raises
+    ------
+    ConfigError
+        If the scheduler cannot be reached, or a worker cannot import gridflow or runs
+        another version (``--scheduler``; exit code 2).
+    """
     from distributed import Client
+
+    try:
+        client = Client(scheduler, set_as_default=False, timeout=timeout)
+    except (OSError, TimeoutError) as exc:
+        raise ConfigError(f"cannot reach the Dask scheduler at {scheduler}: {exc}",
+                          key="--scheduler") from None
+
+    def probe() -> str:  # nested, so it travels by value: workers need no gridflow for it
+        try:
+            import gridflow
+        except ImportError:
+            return "missing"
+        return gridflow.__version__
+
+    try:
+        versions = client.run(probe)
+    except Exception as exc:
+        client.close()
+        raise ConfigError(f"the Dask workers at {scheduler} did not answer: {exc}",
+                          key="--scheduler") from None
+    bad = {w: v for w, v in versions.items() if v != __version__}
+    if bad or not versions:
+        client.close()
+        if not versions:
+            raise ConfigError(f"the Dask scheduler at {scheduler} has no workers",
+                              key="--scheduler")
+        w, v = next(iter(bad.items()))
+        have = "cannot import gridflow" if v == "missing" else f"runs gridflow {v}"
+        raise ConfigError(f"Dask worker {w} at {scheduler} {have}; this run is gridflow "
+                          f"{__version__}: install the same gridflow on every worker",
+                          key="--scheduler")
+    return client
+
+
+def _run_dask(problem, batches, scheduler, report) -> list[dict]:
     from distributed import as_completed as dask_completed
 
-    client = Client(scheduler, set_as_default=False)
+    client = connect_scheduler(scheduler)
     try:
         shared = client.scatter(problem, broadcast=True, hash=False)
         futs = [client.submit(_run_batch, shared, rows, pure=False,

@@ -168,6 +168,11 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
             raise OutputError(f"cannot make the output folder {out_path.parent}: "
                               f"{exc.strerror}", file=str(out_path)) from None
     check_output_path(out_path, cfg)
+    if scheduler and cfg.fireflow.enabled:
+        # fail in seconds, not after the scenarios: is the cluster there and runnable?
+        from gridflow.analysis.fireflow import connect_scheduler
+
+        connect_scheduler(scheduler).close()
     handler = _attach_log_file(out_path)
     try:
         prev_flags = read_previous_flags(previous) if previous else None

@@ -351,3 +351,26 @@ def test_local_process_batches_balance_and_match_serial():
     assert procs.attrs["summary"]["mode"] == "processes"
     assert procs.attrs["summary"]["batches"] == 3
     pd.testing.assert_frame_equal(serial, procs)
+
+
+def test_unreachable_scheduler_is_a_clear_config_error():
+    from gridflow.analysis.fireflow import connect_scheduler
+    from gridflow.errors import ConfigError
+
+    with pytest.raises(ConfigError, match="cannot reach the Dask scheduler at tcp://127.0.0.1:9"):
+        connect_scheduler("tcp://127.0.0.1:9", timeout="2s")
+
+
+def test_workers_without_gridflow_are_named(monkeypatch):
+    # a worker that cannot import gridflow (simulated by a worker-side version probe answer)
+    import distributed
+
+    from gridflow.analysis.fireflow import connect_scheduler
+    from gridflow.errors import ConfigError
+
+    with distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=False,
+                                  dashboard_address=None) as cluster:
+        monkeypatch.setattr(distributed.Client, "run",
+                            lambda self, fn: {"tcp://127.0.0.1:1": "missing"})
+        with pytest.raises(ConfigError, match="cannot import gridflow.*install the same"):
+            connect_scheduler(cluster.scheduler_address)
