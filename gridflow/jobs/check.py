@@ -12,6 +12,7 @@ import pandas as pd
 
 from gridflow import __version__
 from gridflow.findings import Findings
+from gridflow.jobs.layers import roughness_out
 from gridflow.network import LINK_PIPE, STATUS_NAMES, VALVE_NAMES
 from gridflow.units import out_field
 
@@ -47,9 +48,7 @@ def network_layers(clean, units: str):
     links["to_node"] = net.node_id[net.to_idx]
     links[f"length_{ln}"] = net.length_m * fl
     links[f"diameter_{dm}"] = net.diameter_m * fd
-    dw = net.headloss_model == "darcy-weisbach"
-    rough = net.roughness * (1000.0 if units == "SI" else 1 / 0.3048) if dw else net.roughness
-    links["roughness"] = np.where(net.link_kind == LINK_PIPE, rough, np.nan)
+    links["roughness"] = np.where(net.link_kind == LINK_PIPE, roughness_out(net, units), np.nan)
     links["roughness_model"] = net.headloss_model
     links["minor_loss_k"] = net.minor_k
     links["status"] = np.asarray(STATUS_NAMES, dtype=object)[net.status]

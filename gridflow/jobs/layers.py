@@ -16,7 +16,7 @@ from gridflow.hydraulics import LINK_STATE_NAMES, HydraulicResult
 from gridflow.network import LINK_KINDS, NODE_KINDS, Network
 from gridflow.units import FT, UnitSystem, out_field
 
-__all__ = ["nodes_layer", "pipes_layer", "hydrants_layer", "field_name"]
+__all__ = ["nodes_layer", "pipes_layer", "hydrants_layer", "field_name", "roughness_out"]
 
 
 def field_name(quantity: str, system: UnitSystem | str, stem: str | None = None) -> str:
@@ -27,6 +27,14 @@ def field_name(quantity: str, system: UnitSystem | str, stem: str | None = None)
 def _conv(values, quantity: str, system: UnitSystem | str) -> np.ndarray:
     _, factor = out_field(quantity, system)
     return np.asarray(values, dtype=float) * factor
+
+
+def roughness_out(net: Network, system: UnitSystem | str) -> np.ndarray:
+    """Roughness as written: Hazen-Williams C as is; Darcy-Weisbach absolute roughness in mm
+    for SI runs and in ft for US runs (the contract)."""
+    if net.headloss_model == "darcy-weisbach":
+        return net.roughness * (1000.0 if system == "SI" else 1.0 / FT)
+    return net.roughness
 
 
 def nodes_layer(net: Network, r: HydraulicResult, geometry, crs, criteria: CriteriaSection,
@@ -53,11 +61,7 @@ def pipes_layer(net: Network, r: HydraulicResult, geometry, crs, criteria: Crite
                 system: UnitSystem | str, pressure_rating_m=None) -> gpd.GeoDataFrame:
     """``pipes_<scenario>``: one row per link, in network order."""
     flags = pipe_flags(net, r, criteria)
-    dw = net.headloss_model == "darcy-weisbach"
-    if dw:  # absolute roughness: mm for SI runs, ft for US runs (the contract)
-        rough = net.roughness * (1000.0 if system == "SI" else 1.0 / FT)
-    else:
-        rough = net.roughness
+    rough = roughness_out(net, system)
     cols = {
         "pipe_id": net.link_id.astype(str),
         "kind": np.asarray(LINK_KINDS, dtype=object)[net.link_kind],

@@ -11,7 +11,7 @@ from dataclasses import dataclass
 import pandas as pd
 
 from gridflow.errors import GridflowError
-from gridflow.units import FT, KPA_PER_M_HEAD, M_HEAD_PER_PSI, UnitSystem
+from gridflow.units import FT, KPA_PER_M_HEAD, M_HEAD_PER_PSI, UnitSystem, out_field
 
 __all__ = ["Fields", "detect_units", "fields_for", "require"]
 
@@ -48,24 +48,22 @@ class Fields:
 
 
 def fields_for(system: UnitSystem) -> Fields:
-    """The contract's field names for ``"US"`` or ``"SI"``."""
-    if system == "US":
-        p, q, h = "psi", "gpm", "ft"
-        return Fields("US", "elevation_ft", "head_ft", "pressure_psi", "demand_gpm",
-                      "required_demand_gpm", "length_ft", "diameter_in", "flow_gpm",
-                      "velocity_fps", "headloss_ft", "unit_headloss_ft_per_kft",
-                      "pressure_rating_psi", "static_pressure_psi", "required_flow_gpm",
-                      "available_flow_gpm", "residual_pressure_at_required_psi",
-                      h, p, q, "ft/s", "in", "ft/1000 ft",
-                      M_HEAD_PER_PSI / FT, ("mi", 1.0 / 5280.0))
-    if system == "SI":
-        p, q, h = "kPa", "L/s", "m"
-        return Fields("SI", "elevation_m", "head_m", "pressure_kpa", "demand_lps",
-                      "required_demand_lps", "length_m", "diameter_mm", "flow_lps",
-                      "velocity_mps", "headloss_m", "unit_headloss_m_per_km",
-                      "pressure_rating_kpa", "static_pressure_kpa", "required_flow_lps",
-                      "available_flow_lps", "residual_pressure_at_required_kpa",
-                      h, p, q, "m/s", "mm", "m/km",
+    """The contract's field names for ``"US"`` or ``"SI"`` (from :data:`gridflow.units.OUTPUT`,
+    the table the result layers are written with)."""
+    if system in ("US", "SI"):
+        def f(quantity: str, stem: str | None = None) -> str:
+            return f"{stem or quantity}_{out_field(quantity, system)[0]}"
+
+        names = (f("elevation"), f("head"), f("pressure"), f("demand"),
+                 f("demand", "required_demand"), f("length"), f("diameter"), f("flow"),
+                 f("velocity"), f("headloss"), f("unit_headloss"),
+                 f("pressure", "pressure_rating"), f("pressure", "static_pressure"),
+                 f("flow", "required_flow"), f("flow", "available_flow"),
+                 f("pressure", "residual_pressure_at_required"))
+        if system == "US":
+            return Fields("US", *names, "ft", "psi", "gpm", "ft/s", "in", "ft/1000 ft",
+                          M_HEAD_PER_PSI / FT, ("mi", 1.0 / 5280.0))
+        return Fields("SI", *names, "m", "kPa", "L/s", "m/s", "mm", "m/km",
                       1.0 / KPA_PER_M_HEAD, ("km", 1.0 / 1000.0))
     raise GridflowError(f"unknown unit system {system!r}; expected 'US' or 'SI'", key="units")
 
