@@ -71,7 +71,7 @@ from gridflow.network.model import (
     LINK_VALVE,
     NODE_JUNCTION,
     STATUS_CLOSED,
-    VALVE_TCV,
+    VALVE_THROTTLE,
     Network,
 )
 from gridflow.units import M_HEAD_PER_PSI
@@ -319,9 +319,11 @@ class FireflowProblem:
         if static_head <= target:
             return None
         its = 0
-        r_pin = ds.solve(k, head_m=target)
-        if r_pin is None:
+        out = ds.solve(k, "head", target)
+        if not out.success:
             return None
+        r_pin = out.result
+        assert r_pin is not None
         its += r_pin.iterations
         pm, pn, vm, _ = self._margins(j, r_pin)
         if vm < -_MARGIN_TOL:
@@ -329,18 +331,21 @@ class FireflowProblem:
         available, lim, lim_idx = self.draw(j, r_pin), _LIM_RESIDUAL, main
         if pm < -_MARGIN_TOL:
             c, ok = pn, False
-            # start where the limiting node's drop, growing as the draw^1.852, just reaches
-            # the minimum
+            # start where the limiting node's drop, growing as the draw^n (n the friction
+            # law's flow exponent), just reaches the minimum
             zc = float(net.elevation_m[c])
             drop_pin = float(warm.head_m[c] - r_pin.head_m[c])
             drop_ok = float(warm.head_m[c]) - zc - self.minimum_m
-            t = (drop_ok / drop_pin) ** (1 / 1.852) if drop_pin > 0 and drop_ok > 0 else 1.0
+            n_exp = ds.sys.laws.flow_exponent
+            t = (drop_ok / drop_pin) ** (1 / n_exp) if drop_pin > 0 and drop_ok > 0 else 1.0
             r: HydraulicResult | None = ds.blend(r_pin, min(max(t, 0.05), 1.0))
             for _ in range(6):
                 zc = float(net.elevation_m[c])
-                r = ds.solve(k, limit_node=c, limit_head_m=zc + self.minimum_m, start=r)
-                if r is None:
+                out = ds.solve(k, "limit", zc + self.minimum_m, limit_node=c, start=r)
+                if not out.success:
                     return None
+                r = out.result
+                assert r is not None
                 its += r.iterations
                 if float(r.head_m[k]) < target - _MARGIN_TOL:
                     return None  # not expected (the limit draw is below the pinned one)
@@ -359,9 +364,11 @@ class FireflowProblem:
         elif static_head <= z + P20_M:
             q20 = 0.0
         else:
-            r20 = ds.solve(k, head_m=z + P20_M, start=r_pin)
-            if r20 is None:
+            out = ds.solve(k, "head", z + P20_M, start=r_pin)
+            if not out.success:
                 return None
+            r20 = out.result
+            assert r20 is not None
             its += r20.iterations
             q20 = self.draw(j, r20)
         q_req = self.required_m3s[j]
@@ -370,9 +377,11 @@ class FireflowProblem:
         else:
             q_pin = self.draw(j, r_pin)
             start = ds.blend(r_pin, q_req / q_pin) if q_pin > 0 else r_pin
-            rr = ds.solve(k, draw_m3s=q_req, start=start)
-            if rr is None:
+            out = ds.solve(k, "draw", q_req, start=start)
+            if not out.success:
                 return None
+            rr = out.result
+            assert rr is not None
             its += rr.iterations
             residual = float(rr.pressure_m[k])
         return max(available, 0.0), max(q20, 0.0), residual, lim, lim_idx, its
@@ -445,21 +454,23 @@ class FireflowProblem:
                 raise _Failed(r.message)
             return float(r.pressure_m[k])
         # pressure-driven demand would also scale the fire draw: pin the outlet head instead
-        # and search it by secant on (static head - H) against Q^1.852 (exact on one path)
+        # and search it by secant on (static head - H) against Q^n (exact on one path; n the
+        # friction law's flow exponent)
+        n = self.system().laws.flow_exponent
         pts = [(0.0, 0.0)]
         if r_pin is not None:
-            pts.append((static_head - float(r_pin.head_m[k]), self.draw(j, r_pin) ** 1.852))
+            pts.append((static_head - float(r_pin.head_m[k]), self.draw(j, r_pin) ** n))
         warm = r_pin
-        s = 1.0 if len(pts) < 2 else pts[-1][0] * (q_req**1.852 / max(pts[-1][1], 1e-30))
+        s = 1.0 if len(pts) < 2 else pts[-1][0] * (q_req**n / max(pts[-1][1], 1e-30))
         for _ in range(20):
             r = self._solve(j, static_head - s, warm, its)
             warm = r
             q = self.draw(j, r)
             if abs(q - q_req) <= 1e-9 + 1e-6 * q_req:
                 break
-            pts.append((s, max(q, 0.0) ** 1.852))
+            pts.append((s, max(q, 0.0) ** n))
             (s0, u0), (s1, u1) = pts[-2], pts[-1]
-            s = s1 + (q_req**1.852 - u1) * (s1 - s0) / (u1 - u0) if u1 != u0 else 2 * s1
+            s = s1 + (q_req**n - u1) * (s1 - s0) / (u1 - u0) if u1 != u0 else 2 * s1
             if not np.isfinite(s) or s <= 0:
                 s = 2.0 * pts[-1][0]
         return float(static_head - s - z)
@@ -570,10 +581,10 @@ def _add_laterals(net, hid, main, has_lat, length, diameter, fire):
         "roughness": cat(net.roughness, np.where(is_pipe, rough, np.nan)),
         "minor_k": cat(net.minor_k, np.where(is_pipe, k, 0.0)),
         "status": cat(net.status, np.zeros(m)),
-        "valve_type": cat(net.valve_type, np.where(is_pipe, 0, VALVE_TCV)),
+        "valve_type": cat(net.valve_type, np.where(is_pipe, 0, VALVE_THROTTLE)),
         "valve_setting": cat(net.valve_setting, np.where(is_pipe, np.nan, k)),
-        "pump_a": cat(net.pump_a, nanv), "pump_b": cat(net.pump_b, nanv),
-        "pump_c": cat(net.pump_c, nanv), "pump_speed": cat(net.pump_speed, np.ones(m)),
+        "pump_h0": cat(net.pump_h0, nanv), "pump_h1": cat(net.pump_h1, nanv),
+        "pump_h2": cat(net.pump_h2, nanv), "pump_speed": cat(net.pump_speed, np.ones(m)),
     }
     return net.replace(**changes), outlet
 

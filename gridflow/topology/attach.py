@@ -32,12 +32,12 @@ from gridflow.network import (
     NODE_KINDS,
     NODE_SOURCE,
     NODE_TANK,
+    STATUS_CHECK,
     STATUS_CLOSED,
-    STATUS_CV,
     STATUS_OPEN,
     VALVE_ISOLATION,
-    VALVE_PRV,
-    VALVE_TCV,
+    VALVE_PRESSURE_REDUCING,
+    VALVE_THROTTLE,
     Network,
     fit_pump_curve,
 )
@@ -493,8 +493,8 @@ class Attacher:
             elevation_m=elev, fixed_head_m=fixed_head, node_kind=kind, zone=zone,
             link_kind=c["kind"], length_m=np.where(c["kind"] == LINK_PIPE, c["length"], 0.0),
             diameter_m=c["diameter"], roughness=c["rough"], minor_k=c["mk"],
-            status=c["status"], valve_type=c["vt"], valve_setting=c["vs"], pump_a=c["pa"],
-            pump_b=c["pb"], pump_c=c["pc"], pump_speed=c["speed"],
+            status=c["status"], valve_type=c["vt"], valve_setting=c["vs"], pump_h0=c["pa"],
+            pump_h1=c["pb"], pump_h2=c["pc"], pump_speed=c["speed"],
             headloss_model=cfg.run.headloss_model)
         node_pts = shapely.points(node_xy)
         connectivity_findings(f, net, c["geom"], node_pts, b.pipe_layer)
@@ -523,12 +523,12 @@ class Attacher:
     def _prv_reach(self, net, geoms) -> None:
         """A PRV whose setting puts its downstream grade above every grade the network can
         give (the highest source or tank plus every pump's shut-off head) never regulates."""
-        prv = (net.link_kind == LINK_VALVE) & (net.valve_type == VALVE_PRV)
+        prv = (net.link_kind == LINK_VALVE) & (net.valve_type == VALVE_PRESSURE_REDUCING)
         if not prv.any() or not net.is_fixed.any():
             return
-        pump = (net.link_kind == LINK_PUMP) & np.isfinite(net.pump_a)
+        pump = (net.link_kind == LINK_PUMP) & np.isfinite(net.pump_h0)
         ceiling = float(np.max(net.fixed_head_m[net.is_fixed])) + float(
-            np.sum(net.pump_a[pump] * net.pump_speed[pump] ** 2))
+            np.sum(net.pump_h0[pump] * net.pump_speed[pump] ** 2))
         grade = net.elevation_m[net.to_idx] + net.valve_setting
         hi = prv & (grade > ceiling)
         self.f.add_many("prv_setting_unreachable", "warning", self.b.lname("valves"),
@@ -614,7 +614,7 @@ class Attacher:
             typ = _col(fr, "type", object).astype(str)
             raw = _col(fr, "setting")
             vt[:] = VALVE_ISOLATION
-            prv = typ == "prv"
+            prv = typ == "pressure_reducing"
             sec = self.b.cfg.layers.valves
             if prv.any() and "setting" in sec.fields:
                 fac = unit_factor("valves", "setting", sec.units.get("setting"))
@@ -623,16 +623,16 @@ class Attacher:
             f.add_many("valve_setting_missing", "error", layer, ids[bad],
                        "pressure-reducing valve without a setting: modelled as an open valve",
                        pts[bad])
-            vt[prv & ~bad] = VALVE_PRV
+            vt[prv & ~bad] = VALVE_PRESSURE_REDUCING
             tcv = typ == "throttle"
             vs[tcv] = raw[tcv]
             badt = tcv & ~(np.isfinite(vs) & (vs >= 0))
             f.add_many("valve_setting_missing", "error", layer, ids[badt],
                        "throttle valve without a loss coefficient setting: K = 0 used", pts[badt])
             vs[badt] = 0.0
-            vt[tcv] = VALVE_TCV
+            vt[tcv] = VALVE_THROTTLE
             cv = (typ == "check") & ~closed
-            status[cv] = STATUS_CV
+            status[cv] = STATUS_CHECK
         else:
             sp = _col(fr, "speed")
             speed = np.where(np.isfinite(sp), sp, 1.0)
@@ -640,11 +640,21 @@ class Attacher:
             for r in range(m):  # a few pumps per utility: not a hot path
                 pts3 = [(_col(fr, f"flow_{i}")[r], _col(fr, f"head_{i}")[r]) for i in (1, 2, 3)]
                 design = (_col(fr, "design_flow")[r], _col(fr, "design_head")[r])
+                shut = _col(fr, "shut_off_head")[r]
                 try:
                     if all(np.isfinite(v) for p in pts3 for v in p):
                         a, b_, c_ = fit_pump_curve(pts3, link_id=str(ids[r]))
                     elif all(np.isfinite(design)):
-                        a, b_, c_ = fit_pump_curve([design], link_id=str(ids[r]))
+                        if not np.isfinite(shut):
+                            ratio = self.b.cfg.solver.pump_shutoff_ratio
+                            shut = ratio * design[1]
+                            f.add("pump_shutoff_assumed", "warning", layer, ids[r],
+                                  f"pump given by one design point without a shut-off head: "
+                                  f"{ratio:g} x the design head assumed (solver."
+                                  "pump_shutoff_ratio); map layers.pumps.fields.shut_off_head "
+                                  "for the maker's value", pts[r])
+                        a, b_, c_ = fit_pump_curve([design], shutoff_head_m=shut,
+                                                   link_id=str(ids[r]))
                     else:
                         raise ValueError("no design point or three curve points")
                     pa[r], pb[r], pc[r] = a, b_, c_

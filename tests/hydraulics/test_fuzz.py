@@ -32,10 +32,10 @@ from gridflow.network import (
     NODE_SOURCE,
     NODE_TANK,
     STATUS_CLOSED,
-    STATUS_CV,
+    STATUS_CHECK,
     STATUS_OPEN,
     VALVE_ISOLATION,
-    VALVE_PRV,
+    VALVE_PRESSURE_REDUCING,
     Network,
     fit_pump_curve,
 )
@@ -97,10 +97,11 @@ def networks(draw):
             link_kind[k] = LINK_PUMP
             q_d = draw(floats(0.005, 0.2))
             h_d = draw(floats(5, 60))
-            pa[k], pb[k], pc[k] = fit_pump_curve([(q_d, h_d)])
+            ratio = draw(floats(1.05, 1.5))
+            pa[k], pb[k], pc[k] = fit_pump_curve([(q_d, h_d)], shutoff_head_m=ratio * h_d)
             length[k] = 0.0
         elif role == "prv":
-            link_kind[k], vtype[k] = LINK_VALVE, VALVE_PRV
+            link_kind[k], vtype[k] = LINK_VALVE, VALVE_PRESSURE_REDUCING
             vset[k] = draw(floats(5, 70))
             length[k] = 0.0
         elif role == "isolation":
@@ -110,7 +111,7 @@ def networks(draw):
         elif role == "closed":
             status[k] = STATUS_CLOSED
         elif role == "cv":
-            status[k] = STATUS_CV
+            status[k] = STATUS_CHECK
         if draw(st.integers(0, 9)) == 0:
             minor[k] = draw(floats(0, 10))
     net = Network.from_arrays(
@@ -118,7 +119,7 @@ def networks(draw):
         from_idx=fr, to_idx=to, elevation_m=elev, demand_m3s=demand, fixed_head_m=fixed,
         node_kind=kind, link_kind=link_kind, length_m=length, diameter_m=diam,
         roughness=rough, minor_k=minor, status=status, valve_type=vtype, valve_setting=vset,
-        pump_a=pa, pump_b=pb, pump_c=pc)
+        pump_h0=pa, pump_h1=pb, pump_h2=pc)
     opts = SolveOptions(pressure_driven=draw(st.booleans()))
     return net, opts
 
@@ -161,7 +162,7 @@ def test_solver_converges_to_a_verified_solution_or_raises_a_documented_error(ca
     # limit: a converged loop may keep a residual of that size)
     closed = r.link_state == 1
     assert np.all(np.abs(r.flow_m3s[closed]) <= 1e-9)
-    cv = (net.status == STATUS_CV) & between
+    cv = (net.status == STATUS_CHECK) & between
     assert np.all(r.flow_m3s[cv] >= -10 * opts.flow_tolerance)
     # demand delivered never exceeds the demand required, nor falls below zero
     assert np.all(r.demand_m3s[sup] <= r.required_demand_m3s[sup] + 1e-12)
@@ -179,7 +180,7 @@ def test_prv_into_a_fixed_head_node_beside_a_pipe_converges():
         to_idx=[0, 0, 2], elevation_m=[0.0, 0.0, 0.0], demand_m3s=[0.0, 0.0, 0.03125],
         fixed_head_m=[0.0, nan, nan], link_kind=[LINK_VALVE, LINK_PIPE, LINK_PIPE],
         length_m=[0.0, 1.0, 1.0], diameter_m=[2 * INCH] * 3, roughness=[60.0] * 3,
-        valve_type=[VALVE_PRV, 0, 0], valve_setting=[5.0, nan, nan])
+        valve_type=[VALVE_PRESSURE_REDUCING, 0, 0], valve_setting=[5.0, nan, nan])
     system = HydraulicSystem(net, SolveOptions())
     r = system.solve()
     mass, head, _, _ = verify_solution(system, r)
