@@ -114,7 +114,7 @@ def test_written_results_obey_mass_and_energy(run_output, scenario):
     j = nodes[(nodes["fixed_head"] == 0) & (nodes["supplied"] == 1)]
     inflow = (pipes.groupby("to_node")["flow_gpm"].sum()
               .sub(pipes.groupby("from_node")["flow_gpm"].sum(), fill_value=0))
-    active_prv_to = set(pipes.loc[pipes["status"] == "active", "to_node"])
+    active_prv_to = set(pipes.loc[pipes["status"] == "regulating", "to_node"])
     j = j[~j["node_id"].isin(active_prv_to)]
     bal = inflow.reindex(j["node_id"]).fillna(0).to_numpy() - j["demand_gpm"].to_numpy()
     assert np.max(np.abs(bal)) < 0.05  # gpm
@@ -250,10 +250,14 @@ def test_nonconvergence_exits_3_with_diagnostics(tmp_path):
     assert "max_iter = 1" in text
     cfg.write_text(text)
     out = tmp_path / "diag.gpkg"
+    out.write_bytes(b"last night's results")  # what a nightly schedule still needs
     res = _run("run", str(cfg), "--out", str(out))
     assert res.exit_code == 3, res.output
     assert "did not converge" in res.output
-    f = pyogrio.read_dataframe(out, layer="findings", read_geometry=False)
+    assert out.read_bytes() == b"last night's results"  # never written over
+    diag = tmp_path / "diag.diagnostics.gpkg"
+    assert str(diag) in res.output
+    f = pyogrio.read_dataframe(diag, layer="findings", read_geometry=False)
     worst = f[f["kind"] == "not_converged"]
     assert len(worst) == 10 and (worst["severity"] == "error").all()
     assert worst["feature_id"].iloc[0] in res.output

@@ -13,7 +13,9 @@ Rules (``tol`` the status tolerance, a head margin that acts as hysteresis):
 - a shut device whose upstream node is supplied and whose downstream node lies in a zone with
   no supply is tried open (the alternative to a zone left dry) when the upstream head (plus the
   pump's shut-off head) reaches above the highest node of that zone: water can get there.
-  Otherwise the zone stays unsupplied and :func:`shut_zones` reports it.
+  Otherwise the zone stays unsupplied and :func:`shut_zones` reports it. Likewise a running
+  device that alone feeds a zone (no source or tank in it) stops when the head it brings stays
+  below the zone's highest node: it cannot lift water there.
 """
 
 from __future__ import annotations
@@ -82,6 +84,21 @@ def update_status(laws: LinkLaws, state: np.ndarray, q: np.ndarray, h: np.ndarra
         np.maximum.at(top, label, net.elevation_m)
         reach = np.where(laws.pump_on, hu + laws.pump_shutoff, hu)
         can_fill = into_dry & (reach > top[label[to]] + tol)
+    # a device that alone feeds a zone (no source or tank in it) cannot fill it when the head
+    # it brings (plus a pump's shut-off head) stays below the zone's highest node
+    dev_on = laws.is_device & (old != CLOSED) & ~always_closed & supplied[fr]
+    if dev_on.any():
+        ncomp, lab = components.labels((old == OPEN) & ~laws.is_device)
+        has_fixed = np.zeros(ncomp, dtype=bool)
+        has_fixed[lab[net.is_fixed]] = True
+        ztop = np.full(ncomp, -np.inf)
+        np.maximum.at(ztop, lab, net.elevation_m)
+        reach_on = np.where(laws.pump_on, hu + laws.pump_shutoff, hu)
+        cannot = dev_on & ~has_fixed[lab[to]] & (reach_on < ztop[lab[to]] - tol)
+        state[cannot] = CLOSED
+        old_closed = cannot
+    else:
+        old_closed = np.zeros(laws.nl, dtype=bool)
     # check valves
     cv = laws.is_check & ~always_closed
     state[cv & (old == OPEN) & (q < -qtol)] = CLOSED
@@ -106,6 +123,7 @@ def update_status(laws: LinkLaws, state: np.ndarray, q: np.ndarray, h: np.ndarra
     state[c_ok & ~fd & (hu > hs + tol) & ((hd < hs - tol) | can_fill)] = REGULATING
     state[c_ok & ~fd & (hu <= hs + tol) & ((hu > hd + tol) | can_fill)] = OPEN
     state[c & both & fd & (hd < hs - tol) & (hu > hd + tol)] = OPEN
+    state[old_closed] = CLOSED
     return bool((state != old).any())
 
 

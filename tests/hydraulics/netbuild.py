@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from gridflow.hydraulics.headloss import hw_resistance, minor_coefficient
+from gridflow.hydraulics.results import OPEN, REGULATING
 from gridflow.network import LINK_PIPE, LINK_PUMP, Network
 
 NAN = float("nan")
@@ -78,3 +79,38 @@ def assert_physics(network: Network, r, *, mass_tol=1e-6, head_tol=1e-3, skip_li
     assert res.max_error < head_tol, f"head-loss residual {res.max_error}"
     closed = r.link_state == CLOSED
     assert np.all(r.flow_m3s[closed] == 0)
+
+
+def root_reference(n, r0):
+    """Solve the same equations with scipy.optimize.root, statuses taken from r0."""
+    nn, nl = n.n_nodes, n.n_links
+    free = ~n.is_fixed & r0.supplied
+    active = r0.link_state == REGULATING
+    pinned = np.zeros(nn, bool)
+    pinned[n.to_idx[active]] = True
+    hfree = free & ~pinned
+    open_ = (r0.link_state == OPEN) & r0.supplied[n.from_idx] & r0.supplied[n.to_idx]
+    H0 = np.where(n.is_fixed, n.fixed_head_m, 0.0)
+    H0[pinned] = n.elevation_m[pinned] + n.valve_setting[active]
+    fi = np.flatnonzero(hfree)
+
+    def F(x):
+        q = x[:nl]
+        H = H0.copy()
+        H[fi] = x[nl:]
+        hl = independent_headloss(n, q)
+        e = np.where(open_, hl - (H[n.from_idx] - H[n.to_idx]), q)
+        e = np.where(active, 0.0, e)
+        # active PRVs: the flow balances the pinned node
+        inflow = (np.bincount(n.to_idx, weights=q, minlength=nn)
+                  - np.bincount(n.from_idx, weights=q, minlength=nn))
+        mass = inflow - np.where(r0.supplied, n.demand_m3s, 0.0)
+        e[active] = mass[n.to_idx[active]]
+        return np.concatenate([e, mass[fi]])
+
+    from scipy.optimize import root
+
+    x0 = np.concatenate([r0.flow_m3s * 1.1 + 1e-3, r0.head_m[fi] + 0.5])
+    sol = root(F, x0, method="hybr", options={"xtol": 1e-12})
+    assert sol.success, sol.message
+    return sol.x[:nl], sol.x[nl:], fi

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from scipy.optimize import root
 
 from gridflow.errors import ConvergenceError, NetworkError, SolverError
 from gridflow.hydraulics import SolveOptions, solve
@@ -13,15 +12,16 @@ from gridflow.hydraulics.solver import smooth_sqrt_ramp
 from gridflow.network import (
     LINK_PUMP,
     LINK_VALVE,
-    STATUS_CLOSED,
     STATUS_CHECK,
+    STATUS_CLOSED,
     VALVE_PRESSURE_REDUCING,
     VALVE_THROTTLE,
     fit_pump_curve,
 )
 from gridflow.units import FT, INCH, US_GALLON
 
-from .netbuild import NAN, assert_physics, independent_headloss, net, pipe
+from .netbuild import NAN, assert_physics, net, pipe
+from .netbuild import root_reference as _root_reference
 
 GPM = US_GALLON / 60
 TIGHT = SolveOptions(head_tolerance=1e-9, flow_tolerance=1e-12)
@@ -354,39 +354,6 @@ def test_nonconvergence_names_worst_node_and_link():
 
 
 # ---------------------------------------------------------------- against a root finder
-def _root_reference(n, r0):
-    """Solve the same equations with scipy.optimize.root, statuses taken from r0."""
-    nn, nl = n.n_nodes, n.n_links
-    free = ~n.is_fixed & r0.supplied
-    active = r0.link_state == 2
-    pinned = np.zeros(nn, bool)
-    pinned[n.to_idx[active]] = True
-    hfree = free & ~pinned
-    open_ = r0.link_state == 0
-    H0 = np.where(n.is_fixed, n.fixed_head_m, 0.0)
-    H0[pinned] = n.elevation_m[pinned] + n.valve_setting[active]
-    fi = np.flatnonzero(hfree)
-
-    def F(x):
-        q = x[:nl]
-        H = H0.copy()
-        H[fi] = x[nl:]
-        hl = independent_headloss(n, q)
-        e = np.where(open_, hl - (H[n.from_idx] - H[n.to_idx]), q)
-        e = np.where(active, 0.0, e)
-        # active PRVs: the flow balances the pinned node
-        inflow = (np.bincount(n.to_idx, weights=q, minlength=nn)
-                  - np.bincount(n.from_idx, weights=q, minlength=nn))
-        mass = inflow - n.demand_m3s
-        e[active] = mass[n.to_idx[active]]
-        return np.concatenate([e, mass[fi]])
-
-    x0 = np.concatenate([r0.flow_m3s * 1.1 + 1e-3, r0.head_m[fi] + 0.5])
-    sol = root(F, x0, method="hybr", options={"xtol": 1e-12})
-    assert sol.success, sol.message
-    return sol.x[:nl], sol.x[nl:], fi
-
-
 def test_against_scipy_root_with_pump_check_valve_and_prv():
     a, b, c = fit_pump_curve([(0.03, 45.0)], shutoff_head_m=56.0)
     n = net([("W", 0, 0, 20.0), ("A", 5, 0.004, None), ("B", 12, 0.006, None),
