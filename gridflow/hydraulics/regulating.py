@@ -18,7 +18,8 @@ __all__ = ["regulating_flows"]
 
 def regulating_flows(system, h0, y, w, conducting, regulating, known, demand, elev, pdd,
                      h_prev):
-    """``(Q, H)``: flows of the regulating valves and the heads corrected for them."""
+    """``(Q, shift)``: flows of the regulating valves and the change ``Z Q`` they make to the
+    heads ``h0`` (the heads with them are ``h0 - shift``)."""
     fr, to, nn = system.fr, system.to, system.nn
     ia = np.flatnonzero(regulating)
     u, d = fr[ia], to[ia]
@@ -54,4 +55,4 @@ def regulating_flows(system, h0, y, w, conducting, regulating, known, demand, el
         q_reg = np.linalg.solve(m, -out0[d])
     except np.linalg.LinAlgError:
         q_reg = np.linalg.lstsq(m, -out0[d], rcond=None)[0]
-    return q_reg, h0 - z @ q_reg
+    return q_reg, z @ q_reg

@@ -26,7 +26,9 @@ falling (the scaled residual has not halved in ``STALL_ITERATIONS`` iterations) 
 stops: accepted as ``at_precision_floor`` when the mass residual is within the precision
 floor ``PRECISION_FACTOR * eps * (max w * max|H| + max|Q|)`` (``w = 1/G``: the flow error a
 rounding of the heads makes) and the head residual within ``max(head_tolerance,
-PRECISION_FACTOR * eps * max|H|)``; else ``stalled``, naming the worst node and link.
+PRECISION_FACTOR * eps * max|H|)``; ``stalled`` (not converged, naming the worst node and link)
+when the plateau lies within ``STALL_SPAN`` times those bounds; farther above them the
+residuals are still on their way (slow progress is not a plateau) and iterations go on.
 """
 
 from __future__ import annotations
@@ -65,6 +67,9 @@ STATUS_CHECK_EVERY = 10
 STALL_ITERATIONS = 8
 #: the precision floor in units of machine epsilon times the scale of heads and flows
 PRECISION_FACTOR = 64.0
+#: a plateau within this factor of the precision floor is a stall; farther away the residuals
+#: are still on their way (pressure-driven demand can progress slowly) and iterations go on
+STALL_SPAN = 1e3
 _EPS = float(np.finfo(float).eps)
 
 
@@ -331,36 +336,38 @@ class HydraulicSystem:
         elev = self.net.elevation_m
         hl, g = laws.headloss(q)
         cond_f = conducting.astype(float)
-        hk = np.where(known, h, 0.0)
-        hfo_f = hk[to] * free[fr]  # known head at the other end, seen from the from node
-        hfo_t = hk[fr] * free[to]
         any_reg = bool(regulating.any())
         free_chk = free.copy()
         data = np.zeros(pat.nnz)
         status = "running"
         it = 0
         for it in range(1, max_iter + 1):
+            # Newton in correction form: the head change dH, not the heads, is solved for, so
+            # rounding scales with the change (small near the solution), not with the heads
             w = cond_f / g
-            y = cond_f * q - w * hl
-            rhs = (np.bincount(fr, weights=w * hfo_f - y, minlength=nn)
-                   + np.bincount(to, weights=w * hfo_t + y, minlength=nn))
+            we = w * (cond_f * (hl - (h[fr] - h[to])))
             extra = None
             if pdd:
                 dq, ddq = delivered_share(h - elev, demand, opt.pdd_min_pressure,
                                           opt.pdd_required_pressure)
                 extra = np.where(free, ddq, 0.0)
-                rhs -= dq - ddq * h
+                m = net_outflow(cond_f * q, fr, to, nn, dq)
             else:
-                rhs -= demand
+                m = net_outflow(cond_f * q, fr, to, nn, demand)
+            rhs = (np.bincount(fr, weights=we, minlength=nn)
+                   - np.bincount(to, weights=we, minlength=nn) - m)
             data = head_matrix(pat, fr, to, w, known, extra, out=data)
-            rhs = np.where(known, hk, rhs)
+            rhs = np.where(known, 0.0, rhs)
             pat.factor(data)
-            h_new = pat.solve(rhs)
-            h_new[known] = h[known]
+            dh = pat.solve(rhs)
+            dh[known] = 0.0
             if any_reg:
-                q_reg, h_new = regulating_flows(self, h_new, y, w, conducting, regulating,
+                y = cond_f * q - w * hl
+                q_reg, shift = regulating_flows(self, h + dh, y, w, conducting, regulating,
                                                 known, demand, elev, pdd, h)
-            q_new = np.where(conducting, y + w * (h_new[fr] - h_new[to]), 0.0)
+                dh = dh - shift
+            q_new = np.where(conducting, q - we + w * (dh[fr] - dh[to]), 0.0)
+            h_new = h + dh
             if any_reg:
                 q_new[regulating] = q_reg
             if pdd:
@@ -386,9 +393,15 @@ class HydraulicSystem:
                 qmax = float(np.max(np.abs(q), initial=0.0))
                 mass_floor = PRECISION_FACTOR * _EPS * (wmax * hmax + qmax)
                 head_floor = max(opt.head_tolerance, PRECISION_FACTOR * _EPS * hmax)
-                ok = res.max_mass <= max(mtol, mass_floor) and res.max_error <= head_floor
-                status = "at_precision_floor" if ok else "stalled"
-                break
+                mlim, hlim = max(mtol, mass_floor), head_floor
+                if res.max_mass <= mlim and res.max_error <= hlim:
+                    status = "at_precision_floor"
+                    break
+                if (res.max_mass <= STALL_SPAN * mlim and res.max_error <= STALL_SPAN * hlim):
+                    status = "stalled"  # a plateau just above the floor: it will not get there
+                    break
+                track["since"] = 0  # far from the floor: slow progress, not a plateau
+
         return q, h, it, status, supplied, fixed
 
     def _merit(self, q, h, free, conducting, demand, w):

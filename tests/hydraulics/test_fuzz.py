@@ -6,9 +6,11 @@ check valves and closed valves, demand-driven or pressure-driven. For each, :fun
 either converge to a solution that passes the run's own check (:func:`verify_solution`) and an
 independent recheck with the plain published head-loss formulas, with finite heads, pressures
 and flows at every supplied node and every link between supplied nodes; or raise
-:class:`ConvergenceError`, :class:`SolverError` or :class:`NetworkError`. Anything else is a bug.
+:class:`ConvergenceError` naming its cause (``HydraulicResult.status``) and where, or
+:class:`SolverError` / :class:`NetworkError`. Anything else is a bug. At least
+:data:`MIN_CONVERGED_SHARE` of the valid networks must converge.
 
-Profiles: ``ci`` (default, 60 examples, derandomised so CI is repeatable) and ``long``
+Profiles: ``ci`` (default, 200 examples, derandomised so CI is repeatable) and ``long``
 (``GRIDFLOW_FUZZ=long``: 3000 examples, random seeds; ``GRIDFLOW_FUZZ_EXAMPLES`` overrides the
 count). Run the long one with ``--hypothesis-show-statistics`` to see how many examples
 converged and which errors were raised.
@@ -45,7 +47,8 @@ from .netbuild import independent_headloss
 INCH = 0.0254  # m (definition of the inch)
 _common = dict(deadline=None, suppress_health_check=[HealthCheck.too_slow,
                                                      HealthCheck.data_too_large])
-settings.register_profile("ci", max_examples=60, derandomize=True, **_common)
+settings.register_profile("ci", max_examples=200, derandomize=True, database=None,
+                          **_common)
 settings.register_profile(
     "long", max_examples=int(os.environ.get("GRIDFLOW_FUZZ_EXAMPLES", "3000")), **_common)
 FUZZ = settings.get_profile(os.environ.get("GRIDFLOW_FUZZ", "ci"))
@@ -124,20 +127,32 @@ def networks(draw):
     return net, opts
 
 
-@FUZZ
-@given(networks())
-def test_solver_converges_to_a_verified_solution_or_raises_a_documented_error(case):
+#: why a solve may stop without converging (HydraulicResult.status)
+CAUSES = {"stalled", "iteration_limit", "status_cycle", "status_round_limit", "not_finite"}
+#: the share of cases (that are valid networks) that must converge: measured 193 of 200 on the
+#: ci profile; the 7 that do not (pumps in series driven far past their curves beside loops of
+#: loss-free open valves) end as "stalled" or "iteration_limit", and did not converge in 200
+#: iterations before the solver's rework either
+MIN_CONVERGED_SHARE = 0.95
+
+
+def _check(case) -> str:
+    """Solve one case: verify a converged solution, or check the failure names its cause."""
     net, opts = case
     system = HydraulicSystem(net, opts)
     try:
         r = system.solve()
     except ConvergenceError as exc:
-        event("ConvergenceError")
+        r = exc.fields["result"]
+        assert r.status in CAUSES, r.status
+        assert "did not converge (" in r.message, r.message  # the cause in words
         assert exc.fields.get("node_id") in set(net.node_id)  # it says where
-        return
+        assert exc.fields.get("link_id") in set(net.link_id)
+        event(f"not converged: {r.status}")
+        return r.status
     except (SolverError, NetworkError) as exc:
         event(type(exc).__name__)
-        return
+        return type(exc).__name__
     event("converged" + (" (pressure-driven)" if opts.pressure_driven else ""))
     assert r.converged
     sup = r.supplied
@@ -149,9 +164,9 @@ def test_solver_converges_to_a_verified_solution_or_raises_a_documented_error(ca
     # velocity is not defined through a pump, head loss not across a closed link (NaN there)
     assert np.isfinite(r.velocity_ms[between & (net.link_kind != LINK_PUMP)]).all()
     assert np.isfinite(r.headloss_m[open_]).all()
-    # the run's own check, at the run's limits (10 x the solver's tolerances)
+    # the run's own check, at the run's limits (10 x the solver's mass and head tolerances)
     mass, head, wn, wl = verify_solution(system, r)
-    assert mass <= 10 * opts.flow_tolerance, (mass, net.node_id[wn])
+    assert mass <= 10 * max(opts.flow_tolerance, r.mass_tolerance_m3s), (mass, net.node_id[wn])
     assert head <= 10 * opts.head_tolerance, (head, net.link_id[wl])
     # independent recheck: plain Hazen-Williams, minor loss and pump curve at the written flows
     hl = independent_headloss(net, r.flow_m3s)
@@ -167,6 +182,22 @@ def test_solver_converges_to_a_verified_solution_or_raises_a_documented_error(ca
     # demand delivered never exceeds the demand required, nor falls below zero
     assert np.all(r.demand_m3s[sup] <= r.required_demand_m3s[sup] + 1e-12)
     assert np.all(r.demand_m3s[sup] >= -1e-12)
+    return "converged"
+
+
+def test_solver_converges_to_a_verified_solution_or_names_why_not():
+    outcomes: list[str] = []
+
+    @FUZZ
+    @given(networks())
+    def run(case):
+        outcomes.append(_check(case))
+
+    run()
+    valid = [o for o in outcomes if o not in ("SolverError", "NetworkError")]
+    converged = sum(o == "converged" for o in valid)
+    assert valid, outcomes
+    assert converged / len(valid) >= MIN_CONVERGED_SHARE, sorted(set(outcomes))
 
 
 def test_prv_into_a_fixed_head_node_beside_a_pipe_converges():
