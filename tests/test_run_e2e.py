@@ -269,3 +269,43 @@ def test_run_prints_a_summary_with_the_caution(tmp_path):
     assert res.exit_code == 0
     assert "peak_hour:" in res.output and "low-pressure" in res.output
     assert "model estimates" in res.output and "licensed engineers decide" in res.output
+
+
+#: words and codes of another modelling vocabulary that no output may carry as a value
+#: (a regulating valve's status, short valve and check-valve codes, the status-loop word)
+_FOREIGN_VALUES = {"active", "prv", "tcv", "cv", "gpv", "psv", "pbv", "fcv"}
+
+
+def _coded_values(path: Path) -> dict[str, set[str]]:
+    found: dict[str, set[str]] = {}
+    for name, _ in pyogrio.list_layers(path):
+        df = pyogrio.read_dataframe(path, layer=str(name), read_geometry=False)
+        for col in df.columns:
+            if not (pd.api.types.is_numeric_dtype(df[col])
+                    or pd.api.types.is_datetime64_any_dtype(df[col])):
+                found[f"{name}.{col}"] = set(df[col].dropna().astype(str).str.lower())
+    return found
+
+
+def test_outputs_use_our_own_words(run_output, tmp_path):
+    out, cfg = run_output
+    values = _coded_values(out)
+    for where, vals in values.items():
+        if where.endswith(("_id", "_node", ".message", ".feature_id", ".value")):
+            continue  # the utility's own ids and free text
+        assert not vals & _FOREIGN_VALUES, (where, vals & _FOREIGN_VALUES)
+    status = set().union(*(v for k, v in values.items() if k.startswith("pipes_")
+                           and k.endswith(".status")))
+    assert status <= {"open", "closed", "regulating"}
+    assert "regulating" in status  # the sample's pressure-reducing valves hold their settings
+    keys = values["run_info.key"]
+    words = {w for k in keys for w in re.split(r"[^a-z]+", k)}
+    assert not words & {"trial", "trials"}
+    assert any(k.endswith(":status_rounds") for k in keys)
+    # the cleaned network that `gridflow check` writes names valve types in words
+    chk = tmp_path / "check.gpkg"
+    res = _run("check", str(cfg), "--out", str(chk))
+    assert res.exit_code == 0, res.output
+    cvals = _coded_values(chk)
+    vt = set().union(*(v for k, v in cvals.items() if k.endswith(".valve_type")))
+    assert "pressure_reducing" in vt and not vt & _FOREIGN_VALUES

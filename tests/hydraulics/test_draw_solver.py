@@ -57,7 +57,7 @@ def test_single_pipe_pinned_closed_form():
     assert rd.head_m[1] == pytest.approx(60.0, abs=1e-6)
 
 
-@settings(max_examples=25, deadline=None)
+@settings(max_examples=25, deadline=None, derandomize=True, database=None)
 @given(seed=st.integers(0, 10**6), n=st.integers(3, 35), pick=st.integers(0, 10**6),
        frac=st.floats(0.05, 0.8))
 def test_pinned_draw_matches_full_newton_and_conserves(seed, n, pick, frac):
@@ -82,7 +82,7 @@ def test_pinned_draw_matches_full_newton_and_conserves(seed, n, pick, frac):
     assert supply == pytest.approx(network.demand_m3s.sum() + draw, rel=1e-7, abs=1e-10)
 
 
-@settings(max_examples=20, deadline=None)
+@settings(max_examples=20, deadline=None, derandomize=True, database=None)
 @given(seed=st.integers(0, 10**6), n=st.integers(3, 35), pick=st.integers(0, 10**6),
        q=st.floats(0.001, 0.05))
 def test_given_draw_matches_full_newton_with_demand(seed, n, pick, q):
@@ -105,7 +105,7 @@ def test_given_draw_matches_full_newton_with_demand(seed, n, pick, q):
     np.testing.assert_allclose(r2.head_m, full.head_m, atol=1e-6)
 
 
-@settings(max_examples=20, deadline=None)
+@settings(max_examples=20, deadline=None, derandomize=True, database=None)
 @given(seed=st.integers(0, 10**6), n=st.integers(4, 35), pick=st.integers(0, 10**6),
        frac=st.floats(0.1, 0.7))
 def test_limit_node_recovers_the_pinned_solution(seed, n, pick, frac):

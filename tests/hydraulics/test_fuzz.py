@@ -129,11 +129,11 @@ def networks(draw):
 
 #: why a solve may stop without converging (HydraulicResult.status)
 CAUSES = {"stalled", "iteration_limit", "status_cycle", "status_round_limit", "not_finite"}
-#: the share of cases (that are valid networks) that must converge: measured 193 of 200 on the
-#: ci profile; the 7 that do not (pumps in series driven far past their curves beside loops of
-#: loss-free open valves) end as "stalled" or "iteration_limit", and did not converge in 200
-#: iterations before the solver's rework either
-MIN_CONVERGED_SHARE = 0.95
+#: the share of cases (that are valid networks) that must converge: measured 200 of 200 on the
+#: ci profile and 976 of 1000 on a derandomised 1000-example run; those that do not (pumps in
+#: series driven far past their curves beside loops of loss-free open valves) end as "stalled"
+#: or "iteration_limit" naming the worst node and link
+MIN_CONVERGED_SHARE = 0.97
 
 
 def _check(case) -> str:
