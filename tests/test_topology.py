@@ -17,8 +17,8 @@ from gridflow.findings import Findings
 from gridflow.network import (
     LINK_PUMP,
     LINK_VALVE,
-    STATUS_CLOSED,
     STATUS_CHECK,
+    STATUS_CLOSED,
     VALVE_PRESSURE_REDUCING,
     Network,
 )

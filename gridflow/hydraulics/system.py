@@ -145,8 +145,8 @@ class HydraulicSystem:
     def statuses_hold(self, state: np.ndarray, q: np.ndarray, h: np.ndarray,
                       supplied: np.ndarray, fixed: np.ndarray) -> bool:
         """True if no device would change status at ``(q, h)``."""
-        trial = state.copy()
-        return not update_status(self.laws, trial, q, h, supplied, fixed, self.always_closed,
+        probe = state.copy()
+        return not update_status(self.laws, probe, q, h, supplied, fixed, self.always_closed,
                                  self.components, tol=self.opt.status_tolerance,
                                  qtol=self.opt.flow_tolerance)
 
