@@ -268,6 +268,10 @@ def test_run_prints_a_summary_with_the_caution(tmp_path):
     res = _run("-q", "run", str(cfg), "--out", str(tmp_path / "s.gpkg"))
     assert res.exit_code == 0
     assert "peak_hour:" in res.output and "low-pressure" in res.output
+    # every scenario line says how much demand is not delivered and what shut devices cut off
+    lines = [ln for ln in res.output.splitlines() if ln.startswith("  ") and "low-pressure" in ln]
+    assert len(lines) == 3
+    assert all("demand not delivered" in ln and "cut off by shut devices" in ln for ln in lines)
     assert "model estimates" in res.output and "licensed engineers decide" in res.output
 
 

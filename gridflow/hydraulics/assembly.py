@@ -100,16 +100,24 @@ def residuals(headloss, q: np.ndarray, h: np.ndarray, *, fr: np.ndarray, to: np.
     nn = len(h)
     m = net_outflow(q, fr, to, nn, delivered)
     m = np.where(free, m, 0.0)
-    bad_node = free & ~(np.isfinite(m) & np.isfinite(h))
-    m[bad_node] = np.inf
     if hl is None:
         hl = headloss(q)[0]
     with np.errstate(invalid="ignore"):
         e = np.where(conducting, hl - (h[fr] - h[to]), 0.0)
-    e[conducting & ~np.isfinite(e)] = np.inf
     am, ae = np.abs(m), np.abs(e)
     wn = int(np.argmax(am)) if nn else 0
     wl = int(np.argmax(ae)) if len(e) else 0
+    # a non-finite value where it is checked is an infinite residual there (argmax finds a
+    # NaN first; the full scan runs only when something is not finite)
+    if (nn and not np.isfinite(am[wn])) or not np.isfinite(h).all():
+        bad = free & ~(np.isfinite(m) & np.isfinite(h))
+        m[bad] = np.inf
+        am = np.abs(m)
+        wn = int(np.argmax(am))
+    if len(e) and not np.isfinite(ae[wl]):
+        e[conducting & ~np.isfinite(e)] = np.inf
+        ae = np.abs(e)
+        wl = int(np.argmax(ae))
     return Residuals(mass=m, error=e, max_mass=float(am[wn]) if nn else 0.0,
                      max_error=float(ae[wl]) if len(e) else 0.0, worst_node=wn,
                      worst_link=wl)
