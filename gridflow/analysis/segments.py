@@ -11,8 +11,8 @@ Notes
 -----
 Unintended isolation is found for every segment at once with the dominator tree of the
 *segment graph* (in an undirected graph, from cut vertices and one depth-first search; tests
-check it against networkx's general dominance algorithm): one vertex per segment, an edge per open isolating valve, and a root joined
-to every segment that holds a source or tank. Segment ``t`` loses supply when segment ``s``
+check it against networkx's general dominance algorithm): one vertex per segment, an edge
+per open isolating valve, and a root joined to every segment that holds a source or tank. Segment ``t`` loses supply when segment ``s``
 closes exactly when every path from the root to ``t`` passes through ``s``, that is, when
 ``s`` dominates ``t``; so the segments cut off by closing ``s`` are ``s``'s descendants in the
 dominator tree. Totals over them are subtree sums, accumulated level by level with
