@@ -10,14 +10,15 @@ same code answers one "what if these valves close" question and the nightly swee
 Notes
 -----
 Unintended isolation is found for every segment at once with the dominator tree of the
-*segment graph* (in an undirected graph, from cut vertices and one depth-first search; tests
-check it against networkx's general dominance algorithm): one vertex per segment, an edge
-per open isolating valve, and a root joined to every segment that holds a source or tank. Segment ``t`` loses supply when segment ``s``
+*segment graph*: one vertex per segment, an edge per open isolating valve, and a root joined
+to every segment that holds a source or tank. Segment ``t`` loses supply when segment ``s``
 closes exactly when every path from the root to ``t`` passes through ``s``, that is, when
 ``s`` dominates ``t``; so the segments cut off by closing ``s`` are ``s``'s descendants in the
-dominator tree. Totals over them are subtree sums, accumulated level by level with
-``np.add.at``. Cost: O(links) for the segments (``scipy.sparse.csgraph``), about O(segments
-log segments) for the tree.
+dominator tree. The graph is undirected, so the dominators come from its cut vertices and one
+depth-first search (:func:`immediate_dominators`; the tests check it against networkx's
+general dominance algorithm). Totals over the cut-off segments are prefix sums over the
+tree's depth-first order. Cost: O(links) for the segments (``scipy.sparse.csgraph``),
+O(segments + valves) for the tree.
 
 Closed links carry no water: valves mapped closed bound segments but are no way for supply,
 and a closed pipe inside a segment is kept in it (it is still where a crew works).
