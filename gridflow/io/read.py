@@ -515,7 +515,7 @@ def _texts(col: pd.Series, role: str, role_name: str, codes: dict | None, ids, i
             "unknown_code", "warning", info.layer, ["" for _ in vals],
             [f"{c} feature(s) of layer {info.layer!r} hold {v!r} in field {fname!r} "
              f"({role_name}), which {key} does not list{aim}; {treat}"
-             for v, c in zip(vals, counts)])
+             for v, c in zip(vals.tolist(), counts.tolist())])
         if targets is not None:
             out[bad] = default
     return out
