@@ -97,7 +97,9 @@ def _fixed_heads(ctx: Context, key_xy: np.ndarray, used_end_keys: np.ndarray):
     """Tanks and sources onto the nearest pipe-end node: {key: (kind, id, head, elev)}."""
     from scipy.spatial import cKDTree
 
-    f, out, standin_keys = ctx.findings, {}, set()
+    f = ctx.findings
+    out: dict[int, tuple[int, str, float, float]] = {}
+    standin_keys: set[int] = set()
     cand = np.flatnonzero(used_end_keys)
     tree = cKDTree(key_xy[cand]) if len(cand) else None
     for role, kind in (("tanks", NODE_TANK), ("sources", NODE_SOURCE)):

@@ -104,8 +104,8 @@ def _node_at_shared_vertices(geoms: np.ndarray):
 
 def build(tmp: Path, *, seed: int = 13) -> Town:
     rng = np.random.default_rng(seed)
-    raw = pyogrio.read_dataframe(pbf_path(), layer="lines",
-                                 where="highway IN (%s)" % ",".join(f"'{h}'" for h in STREETS))
+    wanted = ",".join(f"'{h}'" for h in STREETS)
+    raw = pyogrio.read_dataframe(pbf_path(), layer="lines", where=f"highway IN ({wanted})")
     raw = raw.to_crs(CRS)
     tags = raw["other_tags"].fillna("").to_numpy(dtype=object)
     lines, src = _node_at_shared_vertices(np.asarray(raw.geometry.values, dtype=object))
