@@ -38,8 +38,7 @@ def prepare_pipes(ctx: Context) -> Pipes:
     gdf = ctx.read.layers["pipes"]
     layer = ctx.layer_name("pipes")
     ids = gdf["pipe_id"].to_numpy(dtype=object)
-    geoms = gdf.geometry.values._data if hasattr(gdf.geometry.values, "_data") else \
-        np.asarray(gdf.geometry.values)
+    geoms = np.asarray(gdf.geometry.values, dtype=object)
     keep = np.ones(len(gdf), bool)
     if "status" in gdf:
         ab = (gdf["status"] == "abandoned").to_numpy()
