@@ -91,7 +91,7 @@ def _config() -> dict:
             "valves": {"input": "gis", "layer": "valves", "id": "VALVE_ID",
                        "fields": {"type": "VTYPE", "status": "POS", "setting": "SET_PSI"},
                        "units": {"setting": "psi"},
-                       "codes": {"type": {"GATE": "isolation", "PRV": "pressure_reducing"},
+                       "codes": {"type": {"GATE": "isolation", "PRV": "prv"},
                                  "status": {"NO": "open", "NC": "closed"}}},
             "hydrants": {"input": "gis", "layer": "hydrants", "id": "HYD_ID"},
             "meters": {"input": "gis", "layer": "meters", "id": "METER_NO",
