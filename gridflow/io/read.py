@@ -16,10 +16,12 @@ from __future__ import annotations
 import contextlib
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pandas as pd
 
+from gridflow.config.database import is_database
 from gridflow.config.layers import CODE_TARGETS, NUMERIC_FIELDS, ROLES, unit_factor
 from gridflow.errors import ConfigError, InputError
 from gridflow.findings import Findings
@@ -42,7 +44,7 @@ class LayerInfo:
     """What inspecting a mapped layer found (no features read)."""
 
     role: str
-    file: Path
+    file: Any  # a Path; for a database input a gridflow.io.postgis.DatabaseSource
     layer: str
     crs: str | None
     fields: tuple[str, ...]
@@ -80,6 +82,11 @@ def inspect_inputs(cfg) -> dict[str, LayerInfo]:
     for role in ROLES:
         sec = getattr(cfg.layers, role)
         if sec is None:
+            continue
+        if is_database(cfg.inputs[sec.input]):
+            from gridflow.io import postgis
+
+            infos[role] = postgis.inspect_layer(cfg, role, sec)
             continue
         path = cfg.resolve(cfg.inputs[sec.input])
         if not path.exists():
@@ -177,13 +184,17 @@ def read_inputs(cfg, findings: Findings) -> ReadResult:
         Missing layer or field, no CRS, or text where a number belongs (naming file, layer,
         feature id and field).
     """
+    from gridflow.io.postgis import snapshots
+
     paths = sorted({cfg.resolve(cfg.inputs[getattr(cfg.layers, r).input]) for r in ROLES
-                    if getattr(cfg.layers, r) is not None})
-    with shared_locks(paths):
+                    if getattr(cfg.layers, r) is not None
+                    and not is_database(cfg.inputs[getattr(cfg.layers, r).input])})
+    with shared_locks(paths), snapshots(cfg):
         infos = inspect_inputs(cfg)
         crs = working_crs(cfg, infos, findings)
         out = ReadResult(infos=infos, crs=crs)
-        out.files = sorted({info.file.resolve() for info in infos.values()})
+        out.files = sorted({info.file.resolve() for info in infos.values()
+                            if isinstance(info.file, Path)})
         for role, info in infos.items():
             out.layers[role] = _read_role(cfg, role, info, crs, findings)
     return out
@@ -329,7 +340,14 @@ def _read_role(cfg, role: str, info: LayerInfo, crs, findings: Findings):
     sec = getattr(cfg.layers, role)
     columns = list(dict.fromkeys([sec.id, *sec.fields.values()]))
     try:
-        gdf = _read_frame(info, columns, sec.where or None, findings, sec.id)
+        if is_database(cfg.inputs[sec.input]):
+            from gridflow.io import postgis
+
+            gdf = postgis.read_frame(cfg, role, info, columns, sec.where or None)
+        else:
+            gdf = _read_frame(info, columns, sec.where or None, findings, sec.id)
+    except InputError:
+        raise
     except Exception as exc:
         key = f"layers.{role}.where" if sec.where else f"layers.{role}"
         raise InputError(f"{info.file}: cannot read layer {info.layer!r} ({key}): {exc}",
