@@ -7,7 +7,6 @@ skip: without a server they fail and say how to get one.
 from __future__ import annotations
 
 import re
-import shutil
 from pathlib import Path
 
 import numpy as np
@@ -131,8 +130,9 @@ def test_where_filter_runs_on_the_server(server, tmp_path):
     from gridflow.findings import Findings
     from gridflow.io.read import read_inputs
 
+    where = 'where = "\\"HYD_ID\\" ILIKE \'hyd-10%\'"'
     cfg = load_config(_config(tmp_path, server.conninfo, **{
-        'layer = "gis.Hydrants"': 'layer = "gis.Hydrants"\nwhere = "\\"HYD_ID\\" ILIKE \'hyd-10%\'"'}))
+        'layer = "gis.Hydrants"': f'layer = "gis.Hydrants"\n{where}'}))
     rr = read_inputs(cfg, Findings())
     ids = rr.layers["hydrants"]["hydrant_id"]
     with server.connect() as c:
@@ -420,4 +420,14 @@ def test_binary_copy_stream_round_trips_nulls_and_text(server):
                     (3, 3, -0.25, "", "LINESTRING(0 0,1 1)", 26916)]
 
 
-_ = shutil
+
+
+
+def test_check_publishes_the_cleaned_network_to_a_schema(server, tmp_path):
+    cfg = _config(tmp_path, server.conninfo, fireflow=False, report=False)
+    res = _run("check", str(cfg), "--out", f"{server.conninfo} schema=checked")
+    assert res.exit_code == 0, res.output
+    assert "schema 'checked' of database 'millbrook'" in res.output
+    assert {"findings", "nodes_network", "pipes_network", "run_info"} <= \
+        _schema_tables(server, "checked")
+    assert not list(tmp_path.glob("host=*"))  # no file named after the connection
