@@ -95,18 +95,13 @@ def _fixed(values: np.ndarray, null: np.ndarray, be_dtype: str):
 
 
 def _varlen(arr):
-    """Arrow (large) string/binary array -> (offsets int64[n+1], data uint8, null mask)."""
+    """Arrow string/binary array -> ('var', large_binary array, null mask)."""
     import pyarrow as pa
 
     if isinstance(arr, pa.ChunkedArray):
         arr = arr.combine_chunks()
-    n = len(arr)
-    bufs = arr.buffers()
-    offsets = np.frombuffer(bufs[1], dtype=np.int64)[arr.offset:arr.offset + n + 1]
-    data = np.frombuffer(bufs[2], dtype=np.uint8) if bufs[2] is not None else \
-        np.zeros(0, np.uint8)
     null = arr.is_null().to_numpy(zero_copy_only=False)
-    return ("var", (offsets, data), null)
+    return ("var", arr.cast(pa.large_binary()), null)
 
 
 def _encode_column(values, kind: str):
@@ -134,50 +129,52 @@ def _encode_column(values, kind: str):
     return _varlen(arr)
 
 
+def _binary_column(raw: np.ndarray):
+    """An (n, w) uint8 array as an Arrow large_binary array of w-byte values (no copy of
+    the values into Python objects)."""
+    import pyarrow as pa
+
+    n, w = raw.shape
+    fixed = pa.FixedSizeBinaryArray.from_buffers(
+        pa.binary(w), n, [None, pa.py_buffer(np.ascontiguousarray(raw))])
+    return fixed.cast(pa.large_binary())
+
+
 def copy_stream(fields: list, n: int) -> bytes:
     """The tuples of a binary COPY stream for ``n`` rows (no header or trailer).
 
     ``fields`` holds encoded columns (:func:`_encode_column`). Each row is an int16 field
-    count, then per field an int32 length (-1 for NULL) and the bytes; the whole buffer is
-    laid out with numpy: lengths by column, row offsets by cumulative sum, fixed-width data
-    by fancy indexing, variable-width data by one scatter of the Arrow data buffer.
+    count, then per field an int32 length (-1 for NULL) and the bytes. Every piece is an Arrow
+    binary column (length prefixes and fixed-width values laid out with numpy); one
+    element-wise join in Arrow's compute kernels concatenates them row by row, and its data
+    buffer is the stream.
     """
-    nf = len(fields)
-    sizes = np.zeros((n, nf), dtype=np.int64)
-    for j, (kind, payload, null) in enumerate(fields):
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    if n == 0:
+        return b""
+    minus_one = pa.scalar(np.array(-1, ">i4").tobytes(), pa.large_binary())
+    parts = [_binary_column(np.frombuffer(np.full(n, len(fields), ">i2").tobytes(),
+                                          np.uint8).reshape(n, 2))]
+    for kind, payload, null in fields:
         if kind == "fixed":
             w = payload.shape[1]
-            sizes[:, j] = np.where(null, 0, w)
+            prefix = np.frombuffer(np.full(n, w, ">i4").tobytes(), np.uint8).reshape(n, 4)
+            col = _binary_column(np.hstack([prefix, payload]))
+            if null.any():
+                col = pc.if_else(pa.array(null), minus_one, col)
+            parts.append(col)
         else:
-            off = payload[0]
-            sizes[:, j] = np.where(null, 0, np.diff(off))
-    row_len = 2 + 4 * nf + sizes.sum(axis=1)
-    start = np.zeros(n, dtype=np.int64)
-    if n:
-        np.cumsum(row_len[:-1], out=start[1:])
-    buf = np.zeros(int(row_len.sum()), dtype=np.uint8)
-    two, four = np.arange(2), np.arange(4)
-    buf[start[:, None] + two] = np.frombuffer(np.array(nf, ">i2").tobytes(), np.uint8)
-    pos = start + 2
-    for j, (kind, payload, null) in enumerate(fields):
-        lens = np.where(null, -1, sizes[:, j]).astype(">i4")
-        buf[pos[:, None] + four] = lens.view(np.uint8).reshape(n, 4)
-        dst = pos + 4
-        if kind == "fixed":
-            ok = ~null
-            w = payload.shape[1]
-            buf[dst[ok, None] + np.arange(w)] = payload[ok]
-        else:
-            off, data = payload
-            ln = sizes[:, j]
-            total = int(ln.sum())
-            if total:
-                first = np.zeros(n, dtype=np.int64)
-                np.cumsum(ln[:-1], out=first[1:])
-                within = np.arange(total) - np.repeat(first, ln)
-                buf[np.repeat(dst, ln) + within] = data[np.repeat(off[:-1], ln) + within]
-        pos = dst + sizes[:, j]
-    return buf.tobytes()
+            lens = pc.binary_length(payload).to_numpy(zero_copy_only=False)
+            lens = np.where(null, -1, np.nan_to_num(lens, nan=0)).astype(">i4")
+            parts.append(_binary_column(lens.view(np.uint8).reshape(n, 4)))
+            parts.append(pc.fill_null(payload, pa.scalar(b"", pa.large_binary()))
+                         if null.any() else payload)
+    rows = pc.binary_join_element_wise(*parts, pa.scalar(b"", pa.large_binary()))
+    bufs = rows.buffers()
+    off = np.frombuffer(bufs[1], dtype=np.int64)[rows.offset:rows.offset + n + 1]
+    return memoryview(bufs[2])[int(off[0]):int(off[-1])].tobytes()
 
 
 def _layout(df, crs_srid: int):
