@@ -29,6 +29,7 @@ from __future__ import annotations
 
 import contextlib
 import contextvars
+import gc
 import logging
 import os
 import re
@@ -322,9 +323,6 @@ def read_frame(cfg, role: str, info, columns: list[str], where: str | None):
     the server; rows in primary-key order (else by the first column asked for), so runs are
     repeatable.
     """
-    import geopandas as gpd
-    import shapely
-
     sec = getattr(cfg.layers, role)
     s = _session(cfg, sec.input)
     t = s.tables.get((sec.input, sec.layer)) or _find_table(s, sec.layer, role)
@@ -338,16 +336,28 @@ def read_frame(cfg, role: str, info, columns: list[str], where: str | None):
            + (f" WHERE ({where})" if where else "")
            + f" ORDER BY {', '.join(_quote(c) for c in order)}")
     s.conn.execute("SAVEPOINT gridflow_read")
+    gc_was_on = gc.isenabled()
+    gc.disable()  # millions of fresh tuples would trigger full collections over and over
     try:
-        with s.conn.cursor(binary=True) as cur:
-            cur.execute(sql)
-            rows = cur.fetchall()
+        return _fetch_frame(s, sql, columns, real, t, info)
     except psycopg.Error as exc:
         s.conn.execute("ROLLBACK TO SAVEPOINT gridflow_read")
         detail = scrub(str(exc).strip().splitlines()[0])
         key = f"layers.{role}.where" if where else f"layers.{role}"
         raise InputError(f"{info.file}: cannot read table {t.label!r} ({key}): {detail}",
                          file=str(info.file), layer=t.label) from None
+    finally:
+        if gc_was_on:
+            gc.enable()
+
+
+def _fetch_frame(s: Session, sql: str, columns: list[str], real: list[str], t: _Table, info):
+    import geopandas as gpd
+    import shapely
+
+    with s.conn.cursor(binary=True) as cur:
+        cur.execute(sql)
+        rows = cur.fetchall()
     s.conn.execute("RELEASE SAVEPOINT gridflow_read")
     n = len(rows)
     cols = list(zip(*rows)) if n else [()] * (len(columns) + 1)
