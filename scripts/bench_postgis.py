@@ -67,12 +67,12 @@ def main(sizes: list[int]) -> None:
             with tempfile.TemporaryDirectory() as tmp:
                 gpkg = Path(tmp) / "mains.gpkg"
 
-                def write_gpkg():
+                def write_gpkg(gdf=gdf, gpkg=gpkg):
                     gpkg.unlink(missing_ok=True)
                     pyogrio.write_dataframe(gdf, gpkg, layer="mains", driver="GPKG",
                                             use_arrow=True)
 
-                def write_pg():
+                def write_pg(gdf=gdf):
                     with srv.connect() as c:
                         c.execute("DROP SCHEMA IF EXISTS bench CASCADE")
                         c.execute("CREATE SCHEMA bench")
@@ -93,10 +93,10 @@ def main(sizes: list[int]) -> None:
                                 + body.format(layer="bench.mains"))
                 cfg_p = load_config(toml)
 
-                def read_gpkg():
+                def read_gpkg(info_f=info_f, cols=cols):
                     return _read_frame(info_f, cols, None, Findings(), "MAIN_ID")
 
-                def read_pg():
+                def read_pg(cfg_p=cfg_p, cols=cols):
                     with postgis.snapshots(cfg_p):
                         info = postgis.inspect_layer(cfg_p, "pipes", cfg_p.layers.pipes)
                         return postgis.read_frame(cfg_p, "pipes", info, cols, None)

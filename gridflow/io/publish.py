@@ -271,7 +271,7 @@ def _srid(crs) -> int:
 
 
 def _styles(conn, staging: str, schema: str, dbname: str, layers: list[str]) -> int:
-    from gridflow.io.styles import STYLE_RULES, style_xml
+    from gridflow.io.styles import style_for, style_xml
 
     conn.execute(f"""CREATE TABLE {_q(staging)}.layer_styles (
         id serial PRIMARY KEY, f_table_catalog varchar, f_table_schema varchar,
@@ -280,12 +280,13 @@ def _styles(conn, staging: str, schema: str, dbname: str, layers: list[str]) -> 
         ui xml, update_time timestamp DEFAULT CURRENT_TIMESTAMP, type varchar)""")
     rows = []
     for name in layers:
-        for prefix, (kind, rules) in STYLE_RULES.items():
-            if name.startswith(prefix):
-                rows.append((dbname, schema, name, "geom", f"gridflow {name}",
-                             style_xml(kind, rules), True,
-                             "gridflow default style: flagged features stand out",
-                             "Point" if kind == "point" else "Line"))
+        found = style_for(name)
+        if found is not None:
+            kind, rules = found
+            rows.append((dbname, schema, name, "geom", f"gridflow {name}",
+                         style_xml(kind, rules), True,
+                         "gridflow default style: what needs action stands out",
+                         "Point" if kind == "point" else "Line"))
     if rows:
         with conn.cursor() as cur:
             cur.executemany(

@@ -107,7 +107,7 @@ def check_job(config_path, out=None) -> int:
         written = publish_postgis(db_out, layers, crs=clean.crs)
     else:
         write_geopackage(out_path, layers,
-                         inputs=[*clean.inputs, *([cfg.path] if cfg.path else [])])
+                         inputs=[*clean.inputs, *([cfg.path] if cfg.path else [])], styles=True)
     kinds = pd.Series(findings.kind, dtype=object)
     print(f"gridflow check: {clean.network.n_nodes} nodes, {clean.network.n_links} links, "
           f"{len(clean.hydrants)} hydrants, {len(set(clean.network.zone))} zones")
