@@ -431,3 +431,65 @@ def test_check_publishes_the_cleaned_network_to_a_schema(server, tmp_path):
     assert {"findings", "nodes_network", "pipes_network", "run_info"} <= \
         _schema_tables(server, "checked")
     assert not list(tmp_path.glob("host=*"))  # no file named after the connection
+
+
+_QGIS_LOAD = """
+import json, os, sys
+os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
+from qgis.core import QgsApplication, QgsVectorLayer
+app = QgsApplication([], False)
+app.initQgis()
+out = {}
+for table in sys.argv[3:]:
+    uri = (f"host=127.0.0.1 port={sys.argv[1]} dbname=millbrook user={sys.argv[2]} "
+           f"key='fid' table=\\"nightly_q\\".\\"{table}\\" (geom)")
+    layer = QgsVectorLayer(uri, table, "postgres")
+    msg, loaded = layer.loadDefaultStyle()
+    r = layer.renderer()
+    rules = [c.label() for c in r.rootRule().children()] if hasattr(r, "rootRule") else []
+    out[table] = {"valid": layer.isValid(), "loaded": bool(loaded), "rules": rules}
+print(json.dumps(out))
+"""
+
+
+def test_desktop_gis_loads_the_published_styles(server, tmp_path):
+    """A desktop GIS (QGIS, Debian's python3-qgis) opening a published table from the
+    database loads gridflow's style from public.layer_styles (the table it creates when a
+    style is first saved to the database), after the first night and after the swap."""
+    import json
+    import os
+    import subprocess
+
+    from gridflow.io.styles import style_for
+
+    probe = subprocess.run(["/usr/bin/python3", "-c", "import qgis.core"], capture_output=True,
+                           check=False) if os.path.exists("/usr/bin/python3") else None
+    assert probe is not None and probe.returncode == 0, (
+        "QGIS's Python bindings are needed: apt-get install python3-qgis "
+        "(scripts/test.sh installs them when run as root)")
+    with server.connect(autocommit=True) as c:  # the layout desktop GIS creates
+        c.execute("""CREATE TABLE IF NOT EXISTS public.layer_styles (id serial PRIMARY KEY,
+            f_table_catalog varchar, f_table_schema varchar, f_table_name varchar,
+            f_geometry_column varchar, stylename text, styleqml xml, stylesld xml,
+            useasdefault boolean, description text, owner varchar(63) DEFAULT CURRENT_USER,
+            ui xml, update_time timestamp DEFAULT CURRENT_TIMESTAMP, type varchar)""")
+    cfg = _config(tmp_path, server.conninfo, fireflow=False, report=False)
+    out = f"{server.conninfo} schema=nightly_q"
+    tables = ["nodes_peak_hour", "pipes_max_day"]
+    for night in (1, 2):
+        res = _run("run", str(cfg), "--out", out)
+        assert res.exit_code == 0, res.output
+        got = subprocess.run(["/usr/bin/python3", "-c", _QGIS_LOAD, str(server.port),
+                              pg_server.SUPERUSER, *tables], capture_output=True, text=True,
+                             check=True, env={**os.environ}, timeout=120)
+        seen = json.loads(got.stdout.strip().splitlines()[-1])
+        for t in tables:
+            kind_rules = style_for(t)
+            assert kind_rules is not None
+            want = [r[0] for r in kind_rules[1]]
+            assert seen[t]["valid"] and seen[t]["loaded"], (night, t, seen[t])
+            assert set(want) <= set(seen[t]["rules"]), (night, t, seen[t]["rules"], want)
+    with server.connect() as c:  # one row per layer and set, none left from the first night
+        n = c.execute("SELECT f_table_schema, count(*) FROM public.layer_styles WHERE "
+                      "f_table_name = 'nodes_peak_hour' GROUP BY 1 ORDER BY 1").fetchall()
+    assert n == [("nightly_q", 1), ("nightly_q_previous", 1)]

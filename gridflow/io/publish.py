@@ -14,7 +14,9 @@ schema queue on an advisory lock.
 
 Each table has a ``fid`` primary key, a ``geom`` column typed with its geometry type and SRID
 (so it appears in ``geometry_columns``) and a GiST spatial index. The default styles go into a
-``layer_styles`` table inside the schema (the layout desktop GIS reads styles from). Who could
+``layer_styles`` table inside the schema (the layout desktop GIS reads styles from), and, where
+``public.layer_styles`` exists and may be written, gridflow's rows there are replaced in the same
+transaction (desktop GIS finds styles through the search path). Who could
 read the old schema (``USAGE``) gets ``USAGE`` on the new one and ``SELECT`` on its tables.
 
 Rows go in by binary ``COPY``: the whole COPY stream is built with numpy from Arrow buffers
@@ -284,9 +286,7 @@ def _styles(conn, staging: str, schema: str, dbname: str, layers: list[str]) -> 
         if found is not None:
             kind, rules = found
             rows.append((dbname, schema, name, "geom", f"gridflow {name}",
-                         style_xml(kind, rules), True,
-                         "gridflow default style: what needs action stands out",
-                         "Point" if kind == "point" else "Line"))
+                         style_xml(kind, rules), True, STYLE_DESCRIPTION, None))
     if rows:
         with conn.cursor() as cur:
             cur.executemany(
@@ -294,6 +294,31 @@ def _styles(conn, staging: str, schema: str, dbname: str, layers: list[str]) -> 
                 "f_table_name, f_geometry_column, stylename, styleqml, useasdefault, "
                 "description, type) VALUES (%s, %s, %s, %s, %s, %s::xml, %s, %s, %s)", rows)
     return len(rows)
+
+
+#: marks the rows gridflow owns in a shared ``public.layer_styles``
+STYLE_DESCRIPTION = "gridflow default style: what needs action stands out"
+_STYLE_COLS = ("f_table_catalog, f_table_schema, f_table_name, f_geometry_column, stylename, "
+               "styleqml, useasdefault, description")
+
+
+def _share_styles(conn, schema: str, previous: str, dbname: str) -> bool:
+    """Mirror the published sets' styles into ``public.layer_styles`` when that table exists
+    and may be written (desktop GIS looks for styles there through the search path); inside
+    the publishing transaction, so it changes with the swap. Returns whether it did."""
+    ok = conn.execute("SELECT to_regclass('public.layer_styles') IS NOT NULL AND "
+                      "has_table_privilege('public.layer_styles', 'INSERT') AND "
+                      "has_table_privilege('public.layer_styles', 'DELETE')").fetchone()[0]
+    if not ok:
+        return False
+    conn.execute("DELETE FROM public.layer_styles WHERE f_table_catalog = %s AND "
+                 "f_table_schema IN (%s, %s) AND description = %s",
+                 (dbname, schema, previous, STYLE_DESCRIPTION))
+    for sch in (schema, previous):
+        if conn.execute("SELECT to_regclass(%s)", (f"{_q(sch)}.layer_styles",)).fetchone()[0]:
+            conn.execute(f"INSERT INTO public.layer_styles ({_STYLE_COLS}) SELECT {_STYLE_COLS} "
+                         f"FROM {_q(sch)}.layer_styles")
+    return True
 
 
 def _copy_grants(conn, old: str, new: str) -> None:
@@ -377,6 +402,9 @@ def publish_postgis(spec: DatabaseSpec, layers: Mapping[str, object], *, crs,
             _copy_grants(conn, schema, staging)
             step = f"swapping {staging} in as {schema}"
             _swap(conn, schema, staging, previous)
+            if styles:
+                step = "sharing the styles in public.layer_styles"
+                _share_styles(conn, schema, previous, dbname)
             step = "committing"
         for name in layers:
             with contextlib.suppress(Exception):
