@@ -8,7 +8,7 @@ cd "$(dirname "$0")/.."
 apt_missing=()
 command -v chromium >/dev/null 2>&1 || apt_missing+=(chromium)
 ls /usr/lib/postgresql/*/bin/initdb >/dev/null 2>&1 || apt_missing+=(postgresql)
-ls /usr/share/postgresql/*/extension/postgis.control >/dev/null 2>&1 || apt_missing+=(postgis)
+ls /usr/share/postgresql/*/extension/postgis.control >/dev/null 2>&1 || apt_missing+=(postgresql-postgis)
 if [ "${#apt_missing[@]}" -gt 0 ] && [ "$(id -u)" = 0 ] && command -v apt-get >/dev/null; then
   for attempt in 1 2 3 4 5 6 7 8 9 10; do
     if (apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq \

@@ -30,6 +30,7 @@ class Server:
     passfile: Path
     bin: Path
     run_as: str | None
+    old_passfile: str | None = None
 
     @property
     def conninfo(self) -> str:
@@ -58,8 +59,8 @@ def _bin() -> Path:
     ext = glob.glob(str(b.parents[2] / "share" / "postgresql" / b.parent.name / "extension"
                         / "postgis.control"))
     if not ext and not glob.glob("/usr/share/postgresql/*/extension/postgis.control"):
-        raise RuntimeError("PostGIS is not installed: scripts/test.sh installs Debian's postgis "
-                           "package (as root)")
+        raise RuntimeError("PostGIS is not installed: scripts/test.sh installs Debian's "
+                           "postgresql-postgis package (as root)")
     return b
 
 
@@ -90,7 +91,7 @@ def start() -> Server:
     passfile = folder / "pgpass"  # read by this process's libpq: owned by us, mode 0600
     passfile.write_text(f"127.0.0.1:{port}:*:{SUPERUSER}:{PASSWORD}\n")
     passfile.chmod(0o600)
-    srv = Server(folder, port, passfile, b, run_as)
+    srv = Server(folder, port, passfile, b, run_as, os.environ.get("PGPASSFILE"))
     os.environ["PGPASSFILE"] = str(passfile)
     import psycopg
 
@@ -108,6 +109,10 @@ def stop(srv: Server) -> None:
               "-w", "stop"], srv.run_as)
     finally:
         shutil.rmtree(srv.folder, ignore_errors=True)
+        if srv.old_passfile is None:
+            os.environ.pop("PGPASSFILE", None)
+        else:
+            os.environ["PGPASSFILE"] = srv.old_passfile
 
 
 def load_gpkg(srv: Server, gpkg: Path, schema: str = "gis") -> list[str]:
