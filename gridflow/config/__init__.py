@@ -13,6 +13,7 @@ from pathlib import Path
 
 from gridflow.config.demand import DEFAULT_SCENARIOS, DemandSection, ScenarioSection
 from gridflow.config.fireflow import FireflowSection, ReportSection
+from gridflow.config.flowtests import FlowTestsSection, check_flow_test_layers
 from gridflow.config.layers import (
     ElevationSection,
     LayersSection,
@@ -52,6 +53,9 @@ class Config:
                           doc="named demand scenarios (default average_day, max_day, peak_hour)")
     fireflow: FireflowSection = opt(parse=section(FireflowSection),
                                     default_factory=FireflowSection, doc="fire-flow sweep")
+    flow_tests: FlowTestsSection = opt(parse=section(FlowTestsSection),
+                                       default_factory=FlowTestsSection,
+                                       doc="field hydrant flow tests and roughness calibration")
     report: ReportSection = opt(parse=section(ReportSection), default_factory=ReportSection,
                                 doc="HTML report")
     raw: dict = field(default_factory=dict, repr=False)
@@ -73,6 +77,7 @@ def parse_config(table: dict, *, base_dir: Path = Path("."), path: Path | None =
     """Validate an already-parsed TOML table (cross-checks included)."""
     cfg = parse_section(Config, table, "")
     check_layer_roles(cfg.layers, cfg.inputs)
+    check_flow_test_layers(cfg.layers, cfg.inputs, cfg.flow_tests)
     import re
 
     for name in cfg.scenarios:

@@ -158,6 +158,10 @@ class LayersSection:
                                        doc="fixed-grade sources: plants, wells, connections")
     meters: LayerSection | None = opt(None, parse=section(LayerSection),
                                       doc="customer meters with consumption (points)")
+    flow_tests: LayerSection | None = opt(None, parse=section(LayerSection),
+                                          doc="field hydrant flow tests (points or a table)")
+    flow_test_outlets: LayerSection | None = opt(None, parse=section(LayerSection),
+                                                 doc="pitot readings per flowing outlet (table)")
 
 
 @dataclass(frozen=True, kw_only=True)

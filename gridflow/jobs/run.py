@@ -257,6 +257,14 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
             layers["hydrants_fireflow"] = _fireflow(cfg, clean, results, opts, workers,
                                                     scheduler, findings, info)
 
+        if failure is None:
+            from gridflow.jobs.flowtests import flow_tests_step
+
+            ft, _ = flow_tests_step(cfg, clean, alloc, opts, findings, info, previous=previous,
+                                    workers=workers, scheduler=scheduler)
+            if ft is not None:
+                layers["flow_tests"] = ft
+
         findings_gdf = findings.to_geodataframe(crs=clean.crs)
         layers["findings"] = findings_gdf
         if prev_flags is not None:
