@@ -55,8 +55,8 @@ def groups_from_table(kind, material, install_year, roughness) -> RoughnessGroup
         Per link, in network order (``kind`` 'pipe' for pipes; others get no group).
     roughness : RoughnessSection
     """
-    kind = np.asarray(kind, dtype=object)
-    mat = np.asarray(material, dtype=object)
+    kind = pd.Series(kind, dtype="string").fillna("").to_numpy(dtype=object)
+    mat = pd.Series(material, dtype="string").fillna("\0").to_numpy(dtype=object)
     year = np.nan_to_num(np.asarray(install_year, dtype=float), nan=-1e9)
     n = len(kind)
     g = np.full(n, -1, dtype=np.int64)

@@ -209,9 +209,9 @@ def test_local_processes_match_serial():
 def test_bad_tests_are_problems_naming_the_test_not_crashes():
     network, kind, mat, year = grid_network()
     n = len(PAIRS)
-    static = np.full(n, 50.0)
-    resid = np.full(n, 40.0)
-    resid[0] = 55.0  # residual above static
+    static = np.full(n, 50.0 * PSI)
+    resid = np.full(n, 40.0 * PSI)
+    resid[0] = 55.0 * PSI  # residual above static
     df = make_tests(static=static, residual=resid)
     df.loc[1, "flowing_hydrants"] = "H-J22; H-NOPE"  # a flowing hydrant not attached
     df.loc[2, "date"] = pd.Timestamp("2009-04-01")  # older than 10 years
