@@ -83,7 +83,8 @@ class CalibrationResult:
     """What a calibration found.
 
     ``groups``: one row per group: ``group``, ``pipes``, ``tests`` (tests informing it),
-    ``fitted`` (0/1), ``value_before``, ``value_after``, ``value_sd`` (one standard deviation;
+    ``fitted`` (0/1; a group informed by tests is still not fitted when there are fewer tests
+    than informed groups and others move the tests more), ``value_before``, ``value_after``, ``value_sd`` (one standard deviation;
     NaN where not estimable), ``factor``. ``tests``: ``test_id``, ``error_before_m``,
     ``error_after_m`` (model minus field residual pressure). ``status`` and ``message`` are
     the optimiser's.
@@ -133,6 +134,9 @@ def calibrate(runner: TestRunner, groups: RoughnessGroups, *, field_residual_m: 
     informs = np.abs(np.nan_to_num(sens)) >= sensitivity_m
     n_tests = informs.sum(axis=0)
     fit = np.flatnonzero(n_tests > 0)
+    if len(fit) > len(rows):  # more unknowns than tests: fit the most sensitive groups only
+        weight = np.abs(np.nan_to_num(sens)).sum(axis=0)
+        fit = np.sort(fit[np.argsort(-weight[fit], kind="stable")[:len(rows)]])
     cache: dict[bytes, np.ndarray] = {}
 
     def full(x):

@@ -34,6 +34,9 @@ __all__ = ["FlowTestSet", "FlowTestProblem", "prepare", "simulate", "compare", "
 AVERAGE_DAY = "average day"
 #: residual pressure at which both flows are compared (NFPA 291 hydrant rating)
 TARGET_20PSI_M = 20 * M_HEAD_PER_PSI
+#: smallest field pressure drop extrapolated to 20 psi: NFPA 291 asks for a drop of at least
+#: 10 psi for a reliable result (from memory); smaller drops give implausibly large flows
+MIN_DROP_M = 10 * M_HEAD_PER_PSI
 
 
 @dataclass(frozen=True)
@@ -308,15 +311,16 @@ def merge(records: list[dict], n: int) -> dict[str, np.ndarray]:
     return out
 
 
-def compare(tests: FlowTestSet, sim: dict[str, np.ndarray], *, tolerance_m: float
-            ) -> pd.DataFrame:
+def compare(tests: FlowTestSet, sim: dict[str, np.ndarray], *, tolerance_m: float,
+            min_drop_m: float = MIN_DROP_M) -> pd.DataFrame:
     """Field beside model, per test (SI).
 
     Columns: ``test_id``, ``used`` (0/1: usable, supplied and solved), ``problem``,
     ``field_static_m``, ``model_static_m``, ``static_diff_m``, ``field_residual_m``,
     ``model_residual_m``, ``residual_diff_m`` (model minus field), ``field_flow_m3s``,
     ``field_flow_20psi_m3s``, ``model_flow_20psi_m3s`` (both by the NFPA 291 extrapolation at
-    the test's flow), ``flow_20psi_diff_m3s``, ``out_of_tolerance`` (0/1).
+    the test's flow; NaN where the field drop is below ``min_drop_m``, too small to
+    extrapolate from), ``flow_20psi_diff_m3s``, ``out_of_tolerance`` (0/1).
     """
     problem = tests.problem.copy()
     solved = tests.usable & sim["converged"]
@@ -327,8 +331,11 @@ def compare(tests: FlowTestSet, sim: dict[str, np.ndarray], *, tolerance_m: floa
     ms = np.where(used, sim["static_m"], np.nan)
     mr = np.where(used, sim["residual_m"], np.nan)
     q = tests.flow_m3s
-    fq = extrapolate_nfpa291(tests.static_m, tests.residual_m, q, TARGET_20PSI_M)
-    mq = np.where(used, extrapolate_nfpa291(ms, mr, q, TARGET_20PSI_M), np.nan)
+    with np.errstate(invalid="ignore"):
+        enough = (tests.static_m - tests.residual_m) >= min_drop_m
+    fq = np.where(enough, extrapolate_nfpa291(tests.static_m, tests.residual_m, q,
+                                              TARGET_20PSI_M), np.nan)
+    mq = np.where(used & enough, extrapolate_nfpa291(ms, mr, q, TARGET_20PSI_M), np.nan)
     diff = mr - tests.residual_m
     with np.errstate(invalid="ignore"):
         out_tol = used & (np.abs(diff) > tolerance_m)
