@@ -45,7 +45,7 @@ def _config(gpkg: Path, toml_path: Path):
 def make_flow_tests(gpkg: Path, toml_path: Path, seed: int):
     """The two flow-test layers (tests as points at the residual hydrant; outlets a table)."""
     from gridflow.analysis.calibrate import groups_from_table
-    from gridflow.analysis.flowtests import AVERAGE_DAY, FlowTestProblem, prepare, simulate
+    from gridflow.analysis.flowtests import FlowTestProblem, prepare, simulate
     from gridflow.analysis.nfpa import GPM, nozzle_flow_gpm
     from gridflow.demand import allocate
     from gridflow.findings import Findings

@@ -84,10 +84,10 @@ class CalibrationResult:
 
     ``groups``: one row per group: ``group``, ``pipes``, ``tests`` (tests informing it),
     ``fitted`` (0/1; a group informed by tests is still not fitted when there are fewer tests
-    than informed groups and others move the tests more), ``value_before``, ``value_after``, ``value_sd`` (one standard deviation;
-    NaN where not estimable), ``factor``. ``tests``: ``test_id``, ``error_before_m``,
-    ``error_after_m`` (model minus field residual pressure). ``status`` and ``message`` are
-    the optimiser's.
+    than informed groups and others move the tests more), ``value_before``, ``value_after``,
+    ``value_sd`` (one standard deviation; NaN where not estimable), ``factor``. ``tests``:
+    ``test_id``, ``error_before_m``, ``error_after_m`` (model minus field residual pressure).
+    ``status`` and ``message`` are the optimiser's.
     """
 
     groups: pd.DataFrame

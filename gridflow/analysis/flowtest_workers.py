@@ -11,6 +11,7 @@ import logging
 import os
 from concurrent.futures import ProcessPoolExecutor
 from concurrent.futures import as_completed as futures_completed
+from typing import Any
 
 import numpy as np
 
@@ -78,8 +79,8 @@ class TestRunner:
         self.mode = "dask" if scheduler else ("processes" if self.workers > 1
                                               and len(self.batches) > 1 else "serial")
         self._pool: ProcessPoolExecutor | None = None
-        self._client = None
-        self._shared = None
+        self._client: Any = None
+        self._shared: Any = None
         self.evaluations = 0
 
     def __enter__(self) -> TestRunner:
@@ -90,6 +91,7 @@ class TestRunner:
         elif self.mode == "dask":
             from gridflow.analysis.fireflow import connect_scheduler
 
+            assert self.scheduler
             self._client = connect_scheduler(self.scheduler)
             self._shared = self._client.scatter(self.problem, broadcast=True, hash=False)
         return self

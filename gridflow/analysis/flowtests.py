@@ -18,6 +18,7 @@ from __future__ import annotations
 import datetime as _dt
 import re
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -27,8 +28,8 @@ from gridflow.hydraulics import HydraulicSystem, SolveOptions
 from gridflow.network import Network
 from gridflow.units import INCH, M_HEAD_PER_PSI
 
-__all__ = ["FlowTestSet", "FlowTestProblem", "prepare", "simulate", "compare", "summarise",
-           "AVERAGE_DAY"]
+__all__ = ["FlowTestSet", "FlowTestProblem", "FlowTestSummary", "prepare", "simulate", "merge",
+           "compare", "summarise", "AVERAGE_DAY"]
 
 #: the demand level of tests that name neither scenario nor factor
 AVERAGE_DAY = "average day"
@@ -146,16 +147,18 @@ def prepare(tests: pd.DataFrame, outlets: pd.DataFrame | None, hydrants: pd.Data
             else np.full(n, None, dtype=object))
     fac = (tests["demand_factor"].to_numpy(float) if "demand_factor" in tests
            else np.full(n, np.nan))
-    scen = np.where(pd.isna(scen) | (scen == ""), default_level or None, scen)
+    sc = pd.Series(scen, dtype=object)
+    scen = sc.where(~(sc.isna() | (sc == "")), default_level or None).to_numpy(dtype=object)
     lookup = {name: i for i, name in enumerate(levels)}
     for i in range(n):
         if np.isfinite(fac[i]):
             factor[i] = fac[i]
         elif scen[i] is not None:
-            if scen[i] not in lookup:
-                flag(np.arange(n) == i, f"scenario {scen[i]!r} is not in the config")
+            name = str(scen[i])
+            if name not in lookup:
+                flag(np.arange(n) == i, f"scenario {name!r} is not in the config")
             else:
-                level[i] = lookup[scen[i]]
+                level[i] = lookup[name]
     flag(~np.isfinite(factor) | (factor < 0), "demand factor below zero")
 
     # flows per flowing hydrant
@@ -248,10 +251,11 @@ def simulate(problem: FlowTestProblem, rows: np.ndarray, factors: np.ndarray | N
     t = problem.tests
     rows = np.asarray(rows, dtype=np.int64)
     m = len(rows)
-    out = {"row": rows, "static_m": np.full(m, np.nan), "residual_m": np.full(m, np.nan),
-           "supplied": np.zeros(m, bool), "converged": np.zeros(m, bool),
-           "mass_residual_m3s": np.full(m, np.nan), "head_residual_m": np.full(m, np.nan),
-           "seconds": np.zeros(m)}
+    out: dict[str, Any] = {
+        "row": rows, "static_m": np.full(m, np.nan), "residual_m": np.full(m, np.nan),
+        "supplied": np.zeros(m, bool), "converged": np.zeros(m, bool),
+        "mass_residual_m3s": np.full(m, np.nan), "head_residual_m": np.full(m, np.nan),
+        "seconds": np.zeros(m)}
     kept: list = []
     systems: dict[int, HydraulicSystem] = {}
     shared = None
@@ -349,18 +353,29 @@ def compare(tests: FlowTestSet, sim: dict[str, np.ndarray], *, tolerance_m: floa
     })
 
 
-def summarise(table: pd.DataFrame) -> dict[str, object]:
-    """Count, mean absolute and worst residual-pressure error [m], tests out of tolerance."""
+@dataclass(frozen=True)
+class FlowTestSummary:
+    """Count of tests, how many were compared, the mean absolute and the worst residual
+    pressure error [m of head] and its test, and the tests out of tolerance."""
+
+    tests: int
+    used: int
+    left_out: int
+    mean_abs_error_m: float
+    worst_error_m: float
+    worst_test: str
+    out_of_tolerance: tuple[str, ...]
+
+
+def summarise(table: pd.DataFrame) -> FlowTestSummary:
+    """The summary of a :func:`compare` table."""
     used = table["used"].to_numpy() == 1
     err = np.abs(table["residual_diff_m"].to_numpy(float)[used])
     worst = int(np.argmax(err)) if len(err) else -1
-    return {
-        "tests": int(len(table)), "used": int(used.sum()),
-        "left_out": int((~used).sum()),
-        "mean_abs_error_m": float(err.mean()) if len(err) else float("nan"),
-        "worst_error_m": float(err[worst]) if len(err) else float("nan"),
-        "worst_test": str(table["test_id"].to_numpy()[used][worst]) if len(err) else "",
-        "out_of_tolerance": [str(v) for v in
-                             table.loc[table["out_of_tolerance"] == 1, "test_id"]],
-    }
-
+    return FlowTestSummary(
+        tests=int(len(table)), used=int(used.sum()), left_out=int((~used).sum()),
+        mean_abs_error_m=float(err.mean()) if len(err) else float("nan"),
+        worst_error_m=float(err[worst]) if len(err) else float("nan"),
+        worst_test=str(table["test_id"].to_numpy()[used][worst]) if len(err) else "",
+        out_of_tolerance=tuple(str(v) for v in
+                               table.loc[table["out_of_tolerance"] == 1, "test_id"]))

@@ -99,7 +99,7 @@ def flow_tests_layer(table: pd.DataFrame, tables, geom, crs, system: str,
     cols["out_of_tolerance"] = table["out_of_tolerance"].astype(np.int32)
     if previous is not None:
         prev = previous.reindex(table["test_id"].astype(str)).to_numpy(float)
-        now = np.abs(cols[f"residual_diff_{p_suf}"])  # type: ignore[arg-type]
+        now = np.abs(table["residual_diff_m"].to_numpy(float) * p_f)
         cols[f"previous_residual_diff_{p_suf}"] = prev
         cols[f"abs_error_change_{p_suf}"] = now - np.abs(prev)
     return gpd.GeoDataFrame(pd.DataFrame(cols).reset_index(drop=True),
@@ -150,12 +150,12 @@ def flow_tests_step(cfg, clean, alloc, options: SolveOptions, findings: Findings
     s = summarise(table)
     p_suf, p_f = out_field("pressure", cfg.run.units)
     used = table["used"].to_numpy() == 1
-    info += [("flow_tests:count", str(s["tests"])), ("flow_tests:used", str(s["used"])),
-             ("flow_tests:left_out", str(s["left_out"])),
-             (f"flow_tests:mean_abs_error_{p_suf}", f"{s['mean_abs_error_m'] * p_f:.2f}"),
-             (f"flow_tests:worst_error_{p_suf}", f"{s['worst_error_m'] * p_f:.2f}"),
-             ("flow_tests:worst_test", s["worst_test"]),
-             ("flow_tests:out_of_tolerance", str(len(s["out_of_tolerance"]))),
+    info += [("flow_tests:count", str(s.tests)), ("flow_tests:used", str(s.used)),
+             ("flow_tests:left_out", str(s.left_out)),
+             (f"flow_tests:mean_abs_error_{p_suf}", f"{s.mean_abs_error_m * p_f:.2f}"),
+             (f"flow_tests:worst_error_{p_suf}", f"{s.worst_error_m * p_f:.2f}"),
+             ("flow_tests:worst_test", s.worst_test),
+             ("flow_tests:out_of_tolerance", str(len(s.out_of_tolerance))),
              (f"flow_tests:tolerance_{p_suf}", f"{cfg.flow_tests.tolerance * p_f:.2f}"),
              ("flow_tests:mass_residual_m3s",
               f"{np.nanmax(sim['mass_residual_m3s'][used], initial=0.0):.3e}"),
@@ -163,6 +163,6 @@ def flow_tests_step(cfg, clean, alloc, options: SolveOptions, findings: Findings
               f"{np.nanmax(sim['head_residual_m'][used], initial=0.0):.3e}"),
              ("flow_tests:mode", mode),
              ("flow_tests:seconds", f"{time.perf_counter() - t0:.2f}")]
-    log.info("flow tests: %d used of %d, mean error %.2f %s, %d out of tolerance", s["used"],
-             s["tests"], s["mean_abs_error_m"] * p_f, p_suf, len(s["out_of_tolerance"]))
+    log.info("flow tests: %d used of %d, mean error %.2f %s, %d out of tolerance", s.used,
+             s.tests, s.mean_abs_error_m * p_f, p_suf, len(s.out_of_tolerance))
     return layer, s

@@ -20,9 +20,9 @@ import numpy as np
 import pandas as pd
 
 from gridflow.errors import GridflowError, OutputError
-from gridflow.report.flowtests import flow_tests_section
 from gridflow.report import figures
 from gridflow.report.fields import Fields, fields_for, require
+from gridflow.report.flowtests import flow_tests_section
 from gridflow.report.profile import hgl_profile
 from gridflow.units import OUTPUT, UnitSystem, pressure_m_from
 

@@ -144,7 +144,7 @@ def test_simulated_test_solves_conserve_mass_and_energy():
     p = problem_for(network, make_tests(), groups.link_group)
     out = simulate(p, np.arange(len(PAIRS)), keep=True)
     assert out["converged"].all()
-    for i, (netw, r0, r1, demand) in enumerate(out["solves"]):
+    for i, (netw, r0, r1, _demand) in enumerate(out["solves"]):
         assert_physics(netw, r0, mass_tol=1e-8, head_tol=1e-6)
         assert_physics(netw, r1, mass_tol=1e-8, head_tol=1e-6)
         # the test's flow leaves the network at the flowing hydrant: supply rises by it
@@ -235,7 +235,7 @@ def test_bad_tests_are_problems_naming_the_test_not_crashes():
     used = table["used"].to_numpy()
     assert list(used[:6]) == [0] * 6 and used[6:].all()
     s = summarise(table)
-    assert s["tests"] == n and s["used"] == n - 6
+    assert s.tests == n and s.used == n - 6
 
 
 def test_pitot_outlets_and_several_flowing_hydrants():
