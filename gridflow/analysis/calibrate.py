@@ -18,6 +18,7 @@ differences; each column is one extra solve of every test, run in parallel.
 from __future__ import annotations
 
 import datetime as _dt
+import logging
 import time
 from dataclasses import dataclass
 
@@ -28,6 +29,8 @@ from gridflow.analysis.flowtest_workers import TestRunner
 
 __all__ = ["RoughnessGroups", "CalibrationResult", "groups_from_table", "calibrate",
            "toml_snippet"]
+
+log = logging.getLogger("gridflow")
 
 #: relative step of the forward-difference Jacobian
 JAC_STEP = 0.02
@@ -152,6 +155,8 @@ def calibrate(runner: TestRunner, groups: RoughnessGroups, *, field_residual_m: 
         key = np.asarray(x, float).tobytes()
         if key not in cache:
             cache[key] = resid(runner.run([full(x)], static=False)[0]["residual_m"][rows])
+            log.info("calibration: evaluation %d, RMS residual error %.3f m", len(cache),
+                     float(np.sqrt(np.mean(cache[key] ** 2))))
         return cache[key]
 
     def jac(x):

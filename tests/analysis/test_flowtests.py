@@ -206,6 +206,25 @@ def test_local_processes_match_serial():
         np.testing.assert_array_equal(x["static_m"], y["static_m"])
 
 
+def test_dask_cluster_matches_serial():
+    distributed = pytest.importorskip("distributed")
+    field = field_tests()
+    network, kind, mat, year = grid_network()
+    groups = groups_from_table(kind, mat, year, TABLE)
+    p = problem_for(network, field, groups.link_group)
+    f = np.array([0.8, 0.9, 1.0, 1.0, 1.0])
+    with TestRunner(p, workers=1) as serial:
+        a = serial.run([None, f])
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=False,
+                                  dashboard_address=None) as cluster:
+        with TestRunner(p, scheduler=cluster.scheduler_address, batch_size=5) as dask:
+            assert dask.mode == "dask"
+            b = dask.run([None, f])
+    for x, y in zip(a, b):
+        np.testing.assert_array_equal(x["residual_m"], y["residual_m"])
+        np.testing.assert_array_equal(x["static_m"], y["static_m"])
+
+
 def test_bad_tests_are_problems_naming_the_test_not_crashes():
     network, kind, mat, year = grid_network()
     n = len(PAIRS)
