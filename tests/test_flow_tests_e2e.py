@@ -131,3 +131,24 @@ def test_calibrate_without_flow_tests_exits_2(tmp_path):
     assert res.exit_code == 2
     assert "map layers.flow_tests" in res.output
     assert not (tmp_path / "x.toml").exists()
+
+
+def test_text_in_a_measured_field_exits_2_naming_file_layer_feature_and_field(tmp_path):
+    tests = pyogrio.read_dataframe(SAMPLE / "millbrook.gpkg", layer="HydrantFlowTests")
+    tests["STATIC_PSI"] = tests["STATIC_PSI"].map(lambda v: f"{v:.1f}").astype(object)
+    tests.loc[2, "STATIC_PSI"] = "n/a"
+    other = tmp_path / "tests.gpkg"
+    pyogrio.write_dataframe(tests, other, layer="HydrantFlowTests")
+    text = _config(tmp_path).read_text()
+    text = text.replace("[inputs]\n", f'[inputs]\nfield = "{other.as_posix()}"\n', 1)
+    text = text.replace('[layers.flow_tests]\ninput = "gis"',
+                        '[layers.flow_tests]\ninput = "field"')
+    cfg = tmp_path / "bad.toml"
+    cfg.write_text(text)
+    out = tmp_path / "out.gpkg"
+    res = _run("run", str(cfg), "--out", str(out), "--workers", "1")
+    assert res.exit_code == 2
+    tid = tests.loc[2, "TEST_ID"]
+    assert re.search(rf"tests\.gpkg: layer 'HydrantFlowTests', feature {tid}: field "
+                     r"'STATIC_PSI' holds 'n/a' where a number belongs", res.output), res.output
+    assert not out.exists()
