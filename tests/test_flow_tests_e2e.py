@@ -49,6 +49,8 @@ def run_output(tmp_path_factory):
     out = tmp / "night1.gpkg"
     res = _run("run", str(_config(tmp)), "--out", str(out), "--workers", "1")
     assert res.exit_code == 0, res.output
+    assert re.search(r"field flow tests: 15 of 16 compared, residual error mean [0-9.]+ psi, "
+                     r"worst [0-9.]+ psi; \d+ out of tolerance", res.output), res.output
     return out, tmp
 
 

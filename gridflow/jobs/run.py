@@ -311,6 +311,14 @@ def _print_summary(out_path: Path, layers: dict, findings: Findings, report: boo
         h = layers["hydrants_fireflow"]
         print(f"  fire flow: {int((h['meets_required'] == 0).sum())} of {len(h)} hydrant(s) "
               "below their required flow")
+    if "flow_tests" in layers:
+        ft = layers["flow_tests"]
+        col = next(c for c in ft.columns if c.startswith("residual_diff_"))
+        err = ft.loc[ft["used"] == 1, col].abs()
+        unit = col.rsplit("_", 1)[-1]
+        print(f"  field flow tests: {len(err)} of {len(ft)} compared, residual error mean "
+              f"{err.mean():.1f} {unit}, worst {err.max():.1f} {unit}; "
+              f"{int(ft['out_of_tolerance'].sum())} out of tolerance")
     if "changes" in layers:
         c = layers["changes"]
         print(f"  since the previous run: {int((c['change'] == 'new').sum())} new, "
