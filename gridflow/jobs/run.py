@@ -302,6 +302,13 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
             layers["hydrants_fireflow"] = _fireflow(cfg, clean, results, opts, workers,
                                                     scheduler, findings, info)
 
+        if failure is None:
+            from gridflow.jobs.flowtests import flow_tests_step
+
+            ft, _ = flow_tests_step(cfg, clean, alloc, opts, findings, info, previous=previous,
+                                    workers=workers, scheduler=scheduler)
+            if ft is not None:
+                layers["flow_tests"] = ft
         if failure is None and cfg.segments.enabled:
             from gridflow.jobs.segments import segments_step
 
@@ -377,6 +384,14 @@ def _print_summary(out_path: Path, layers: dict, findings: Findings, report: boo
         h = layers["hydrants_fireflow"]
         print(f"  fire flow: {int((h['meets_required'] == 0).sum())} of {len(h)} hydrant(s) "
               "below their required flow")
+    if "flow_tests" in layers:
+        ft = layers["flow_tests"]
+        col = next(c for c in ft.columns if c.startswith("residual_diff_"))
+        err = ft.loc[ft["used"] == 1, col].abs()
+        unit = col.rsplit("_", 1)[-1]
+        print(f"  field flow tests: {len(err)} of {len(ft)} compared, residual error mean "
+              f"{err.mean():.1f} {unit}, worst {err.max():.1f} {unit}; "
+              f"{int(ft['out_of_tolerance'].sum())} out of tolerance")
     if "segments" in layers:
         g = layers["segments"]
         print(f"  valve segments: {len(g)}, {int(g['oversized'].sum())} oversized, "

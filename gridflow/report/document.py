@@ -22,6 +22,7 @@ import pandas as pd
 from gridflow.errors import GridflowError, OutputError
 from gridflow.report import figures
 from gridflow.report.fields import Fields, fields_for, require
+from gridflow.report.flowtests import flow_tests_section
 from gridflow.report.profile import hgl_profile
 from gridflow.units import OUTPUT, UnitSystem, pressure_m_from
 
@@ -661,6 +662,7 @@ def write_report(html_path: Path, layers: dict, run_info: list[tuple[str, str]],
         _hgl(layers, worst, f, hgl_path, criteria, units),
         _tables(layers, scenarios, f, worst_rows),
         _histograms(layers, scenarios, f, criteria, units),
+        flow_tests_section(layers.get("flow_tests"), units),
     ]
     text = _page(title, subtitle, sections)
     _write_atomic(html_path, text)
