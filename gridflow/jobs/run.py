@@ -301,8 +301,10 @@ def _print_summary(out_path: Path, layers: dict, findings: Findings, report: boo
                   f"{int(pipes['high_headloss'].sum())} high-loss pipe(s)")
     if "hydrants_fireflow" in layers:
         h = layers["hydrants_fireflow"]
-        print(f"  fire flow: {int((h['meets_required'] == 0).sum())} of {len(h)} hydrant(s) "
-              "below their required flow")
+        ins = h[h["in_service"] == 1]
+        print(f"  fire flow: {int((ins['meets_required'] == 0).sum())} of {len(ins)} "
+              "in-service hydrant(s) below their required flow"
+              + (f"; {len(h) - len(ins)} out of service" if len(h) > len(ins) else ""))
     if "changes" in layers:
         c = layers["changes"]
         print(f"  since the previous run: {int((c['change'] == 'new').sum())} new, "
@@ -360,8 +362,12 @@ def _fireflow(cfg, clean, results, opts, workers, scheduler, findings, info):
     order = pd.Index(ff["hydrant_id"].astype(str))
     geo = hyd.set_index(hyd["hydrant_id"].astype(str)).geometry.reindex(order).values
     layer = hydrants_layer(ff, geo, clean.crs, cfg.run.units)
-    info += [("fireflow:scenario", name), ("fireflow:hydrants", str(len(ff))),
-             ("fireflow:failing", str(int((ff["meets_required"] == 0).sum()))),
+    summary = ff.attrs["summary"]
+    info += [("fireflow:scenario", name), ("fireflow:hydrants", str(summary["hydrants"])),
+             ("fireflow:out_of_service", str(summary["out_of_service"])),
+             ("fireflow:failing", str(summary["hydrants"] - summary["meets_required"])),
+             ("fireflow:required_not_achievable", str(summary["required_not_achievable"])),
+             ("fireflow:high_velocity", str(summary["high_velocity"])),
              ("fireflow:seconds", f"{time.perf_counter() - t0:.2f}")]
     return layer
 
