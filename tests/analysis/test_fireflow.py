@@ -170,7 +170,9 @@ def test_unsupplied_hydrant():
     assert out["limited_by"].tolist() == ["residual", "unsupplied"]
     assert out["available_flow_m3s"][1] == 0.0
     assert out["meets_required"][1] == 0
-    assert out["nfpa_class"][1] == ""
+    # no supply: rated 0 gpm, class C (NFPA 291 chapter 5 via secondary sources: C < 500 gpm)
+    assert out["rated_flow_20psi_m3s"][1] == 0.0 and out["nfpa_class"][1] == "C"
+    assert out["limiting_node_id"][1] == "B"
 
 
 def test_required_flow_sources_in_order():
