@@ -189,7 +189,7 @@ def _summary(layers, scenarios, run_info, f: Fields, criteria, worst: str) -> st
     is_pipe = first_p["kind"].astype(str) == "pipe"
     unit, k = f.long_length
     total = float(first_p.loc[is_pipe, f.length].sum()) * k
-    hyd = layers.get("hydrants_fireflow")
+    hyd = _in_service(layers.get("hydrants_fireflow"))
     fnd = layers.get("findings")
     cards = [("nodes", f"{len(first_n):,}", ", ".join(f"{v:,} {i}" for i, v in kinds.items())),
              ("links", f"{len(first_p):,}", ", ".join(f"{v:,} {i}" for i, v in pkinds.items())),
@@ -276,8 +276,15 @@ def _summary(layers, scenarios, run_info, f: Fields, criteria, worst: str) -> st
             ("AA", "class AA", _num(0)), ("A", "class A", _num(0)), ("B", "class B", _num(0)),
             ("C", "class C", _num(0)),
             ("min_avail", f"lowest available [{f.u_flow}]", _num(0))], table_id="fire-by-zone"))
+        lim = _limiting_nodes(hyd)
+        body.append(f"<h3>Nodes limiting fire flow ({len(lim)})</h3>")
+        body.append(_table(lim.head(50), [
+            ("zone", "zone", _txt), ("limiting_node_id", "node at the system minimum", _txt),
+            ("hydrants", "hydrants it limits", _num(0)), ("hydrant_ids", "hydrants", _txt)],
+            table_id="limiting-nodes"))
         si = " (about 95, 63 and 32 L/s)" if f.system == "SI" else ""
-        body.append(_p("Classes by available flow at 20 psi residual (NFPA 291): AA 1500 gpm "
+        body.append(_p("Counts are of in-service hydrants. Classes by the rated flow at 20 psi "
+                       "residual (NFPA 291): AA 1500 gpm "
                        f"or more, A 1000-1499, B 500-999, C below 500{si}. Fire-flow figures "
                        "are model estimates: confirm them by field flow tests.", "note"))
     body.append(_changes(layers.get("changes")))
@@ -309,6 +316,27 @@ def _flags_by_zone(layers, scenarios) -> pd.DataFrame:
     out = pd.concat(parts, ignore_index=True)
     out["zone"] = out["zone"].replace("", "(none)")
     return out
+
+
+def _in_service(hyd):
+    """The in-service hydrants only (all where the layer has no ``in_service``)."""
+    if hyd is None or "in_service" not in hyd.columns:
+        return hyd
+    return hyd[hyd["in_service"].fillna(1).astype(int) == 1]
+
+
+def _limiting_nodes(hyd: pd.DataFrame) -> pd.DataFrame:
+    """Per zone, the nodes at the system minimum that limit hydrants, most hydrants first."""
+    if "limiting_node_id" not in hyd.columns:
+        return pd.DataFrame(columns=["zone", "limiting_node_id", "hydrants", "hydrant_ids"])
+    h = hyd[hyd["limited_by"].astype(str) == "node_pressure"]
+    g = (h.groupby([h["zone"].fillna("").astype(str), h["limiting_node_id"].astype(str)])
+         ["hydrant_id"].agg(hydrants="size",
+                            hydrant_ids=lambda v: ", ".join(sorted(map(str, v))[:8])
+                            + (" ..." if len(v) > 8 else ""))
+         .reset_index())
+    return g.sort_values(["hydrants", "zone", "limiting_node_id"],
+                         ascending=[False, True, True], kind="stable")
 
 
 def _fire_by_zone(hyd: pd.DataFrame, f: Fields) -> pd.DataFrame:
@@ -396,7 +424,7 @@ def _maps(layers, scenarios, f: Fields) -> str:
     if isinstance(fnd, gpd.GeoDataFrame) and fnd.geometry.name in fnd.columns:
         body.append(_figure(figures.findings_map(pipes, same(fnd)), "map of findings",
                             "Findings in the GIS that have a location, by severity."))
-    hyd = layers.get("hydrants_fireflow")
+    hyd = _in_service(layers.get("hydrants_fireflow"))
     if isinstance(hyd, gpd.GeoDataFrame) and hyd.geometry.name in hyd.columns:
         body.append(_figure(figures.hydrants_map(pipes, same(hyd)),
                             "map of hydrants by fire-flow class",
@@ -501,7 +529,7 @@ def _tables(layers, scenarios, f: Fields, worst_rows: int) -> str:
                                _num(2)),
                               ("flags", "flags", _txt)], table_id="fastest-mains"))
 
-    hyd = layers.get("hydrants_fireflow")
+    hyd = _in_service(layers.get("hydrants_fireflow"))
     if hyd is not None:
         h = pd.DataFrame(hyd.drop(columns="geometry", errors="ignore"))
         h = h[h["meets_required"].fillna(0).astype(int) == 0].copy()
