@@ -14,6 +14,8 @@ import xml.etree.ElementTree as ET
 from html.parser import HTMLParser
 from pathlib import Path
 
+import pandas as pd
+
 import numpy as np
 import pytest
 from scipy.sparse import coo_matrix
@@ -350,3 +352,22 @@ def test_sparse_layers(run_us, tmp_path):
     assert _table_rows(root, "failing-hydrants") == [{None: "none"}]
     ids = {r["node_id"] for r in _table_rows(root, "worst-nodes")}
     assert not ids & {"J-146", "J-147"}
+
+
+def test_fire_tables_count_in_service_hydrants_and_limiting_nodes():
+    from gridflow.report.document import _in_service, _limiting_nodes
+
+    hyd = pd.DataFrame({
+        "hydrant_id": ["H1", "H2", "H3", "H4", "H5"],
+        "zone": ["N", "N", "N", "S", "N"],
+        "in_service": [1, 1, 1, 1, 0],
+        "limited_by": ["node_pressure", "node_pressure", "residual", "node_pressure",
+                       "out_of_service"],
+        "limiting_node_id": ["J7", "J7", "J1", "J9", ""],
+    })
+    ins = _in_service(hyd)
+    assert ins["hydrant_id"].tolist() == ["H1", "H2", "H3", "H4"]
+    table = _limiting_nodes(ins)
+    assert table[["zone", "limiting_node_id", "hydrants"]].values.tolist() == [
+        ["N", "J7", 2], ["S", "J9", 1]]
+    assert table["hydrant_ids"].iloc[0] == "H1, H2"

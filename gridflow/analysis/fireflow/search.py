@@ -164,10 +164,11 @@ class FullRoute:
         if start is not None:
             pts.append((static - float(start.head_m[k]), max(p.draw(j, start), 0.0) ** n))
         s = 1.0 if pts[-1][1] <= 0 else pts[-1][0] * (q**n / pts[-1][1])
-        r = start
+        last = start
         for _ in range(30):
             s = min(s, static - z)
-            r = self.pin(j, static - s, r)
+            r = self.pin(j, static - s, last)
+            last = r
             got = p.draw(j, r)
             if abs(got - q) <= 1e-9 + 1e-6 * q or (s >= static - z and got < q):
                 return r
