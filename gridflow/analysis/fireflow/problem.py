@@ -22,6 +22,7 @@ import uuid
 import numpy as np
 import pandas as pd
 
+from gridflow.analysis.fireflow.search import run_rows
 from gridflow.config.fireflow import FireflowSection
 from gridflow.config.sections import CriteriaSection
 from gridflow.errors import InputError
@@ -359,6 +360,4 @@ def _extend_base(base: HydraulicResult, net: Network, aug: Network, at: np.ndarr
 
 def run_batch(problem: FireflowProblem, rows: np.ndarray) -> dict[str, np.ndarray]:
     """Evaluate hydrants at row positions ``rows`` (see :func:`.search.run_rows`)."""
-    from gridflow.analysis.fireflow.search import run_rows
-
     return run_rows(problem, rows)
