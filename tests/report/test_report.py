@@ -14,9 +14,8 @@ import xml.etree.ElementTree as ET
 from html.parser import HTMLParser
 from pathlib import Path
 
-import pandas as pd
-
 import numpy as np
+import pandas as pd
 import pytest
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import dijkstra
