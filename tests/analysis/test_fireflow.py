@@ -170,8 +170,10 @@ def test_unsupplied_hydrant():
     assert out["limited_by"].tolist() == ["residual", "unsupplied"]
     assert out["available_flow_m3s"][1] == 0.0
     assert out["meets_required"][1] == 0
-    # no supply: rated 0 gpm, class C (NFPA 291 chapter 5 via secondary sources: C < 500 gpm)
-    assert out["rated_flow_20psi_m3s"][1] == 0.0 and out["nfpa_class"][1] == "C"
+    # no supply: nothing available, no rating and no class; the required flow is not
+    # achievable and nothing flows at 0 psi
+    assert np.isnan(out["rated_flow_20psi_m3s"][1]) and out["nfpa_class"][1] == ""
+    assert out["required_achievable"][1] == 0 and out["flow_at_0psi_m3s"][1] == 0.0
     assert out["limiting_node_id"][1] == "B"
 
 

@@ -68,8 +68,7 @@ def assemble(problem: FireflowProblem, net: Network, hydrants: pd.DataFrame,
     has_v = cols["vmax_idx"] >= 0
     vpipe[has_v] = aug.link_id[cols["vmax_idx"][has_v]]
     q20, avail = cols["q20"], cols["available"]
-    # the class follows the written rated flow wherever there is one (an unsupplied hydrant
-    # rates 0 gpm: class C)
+    # the class follows the written rated flow wherever there is one (none where unsupplied)
     cls = np.where(figures, nfpa_class(np.where(figures, q20, np.nan) / GPM), "")
     required = problem.required_m3s
     with np.errstate(invalid="ignore"):

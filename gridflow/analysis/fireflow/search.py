@@ -238,7 +238,8 @@ def search_hydrant(p: FireflowProblem, j: int, route: Route) -> HydrantRecord:
     if net.is_fixed[main]:
         return HydrantRecord(limit=LIM_FIXED, limit_idx=main)
     if not warm.supplied[main]:
-        return HydrantRecord(available=0.0, q20=0.0, achievable=0, q0=0.0,
+        # no supply, no rating: the rated flow (and the class) stay empty
+        return HydrantRecord(available=0.0, q20=np.nan, achievable=0, q0=0.0,
                              limit=LIM_UNSUPPLIED, limit_idx=main)
     z = float(net.elevation_m[k])
     static = float(warm.head_m[k])
