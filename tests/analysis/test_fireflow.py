@@ -552,3 +552,20 @@ def test_class_rests_on_the_written_rated_flow():
     out = run(n, hydrants([(f"F{i}", i) for i in range(2, 10)]), FireflowSection())
     # NFPA 291 chapter 5 (via secondary sources): the class from the flow at 20 psi
     assert (out["nfpa_class"] == nfpa_class(out["rated_flow_20psi_m3s"] / GPM)).all()
+
+
+def test_allocator_tuned_only_where_a_worker_trims_memory():
+    import os
+    import subprocess
+    import sys
+
+    code = ("from gridflow.analysis.fireflow.backends import tune_allocator as t; "
+            "print(t(), t())")
+    env = {k: v for k, v in os.environ.items() if k != "MALLOC_TRIM_THRESHOLD_"}
+    plain = subprocess.run([sys.executable, "-c", code], env=env, capture_output=True,
+                           text=True, check=True)
+    assert plain.stdout.split() == ["False", "False"]
+    nanny = subprocess.run([sys.executable, "-c", code],
+                           env={**env, "MALLOC_TRIM_THRESHOLD_": "65536"}, capture_output=True,
+                           text=True, check=True)
+    assert nanny.stdout.split() == ["True", "False"]  # once per process
