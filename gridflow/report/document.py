@@ -121,7 +121,8 @@ tbody tr:nth-child(even){background:#f6f8fa}
 figure{margin:10px 0 18px}
 figure img{max-width:100%;height:auto;border:1px solid #e1e4e8}
 figcaption{font-size:0.9em;color:#4d5966}
-.gf-map{height:620px;border:1px solid #c3c9d1;background:#fbfcfd}
+.gf-map{height:620px;border:1px solid #c3c9d1}
+.gf-map.leaflet-container{background:#fbfcfd}
 .gf-pop table{font-size:0.85em;margin:4px 0}
 pre.licence{font-size:0.8em;white-space:pre-wrap}
 footer{margin-top:28px;font-size:0.85em;color:#6b7785;border-top:1px solid #d5dae0;

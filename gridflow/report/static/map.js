@@ -104,7 +104,7 @@
           .addTo(g);
       }
     }
-    var r = N.id.length > 3000 ? 3 : 5;
+    var r = N.id.length > 1000 ? 3.5 : 5;
     nodeMarkers[s] = {};
     for (var i = 0; i < N.id.length; i++) {
       var fl = N.flags[s][i], fixed = N.kind[i] !== "junction";
