@@ -63,8 +63,9 @@ def _segments(d: ReportData, idx: np.ndarray) -> np.ndarray:
 
 def _base(ax, d: ReportData, *, color=pal.PIPE_BACKGROUND) -> None:
     idx = skeleton(d.network.diameter_m)
-    ax.add_collection(LineCollection(_segments(d, idx), colors=color,
+    ax.add_collection(LineCollection(list(_segments(d, idx)), colors=color,
                                      linewidths=_line_width(len(idx)), zorder=1))
+    assert d.node_xy is not None
     x0, y0, x1, y1 = extent(d.node_xy)
     pad = 0.03 * max(x1 - x0, y1 - y0, 1.0)
     ax.set_xlim(x0 - pad, x1 + pad)
@@ -75,6 +76,7 @@ def _base(ax, d: ReportData, *, color=pal.PIPE_BACKGROUND) -> None:
 
 def _aspect(d: ReportData) -> float:
     """Height over width of the network's extent, kept between 0.35 and 1.3."""
+    assert d.node_xy is not None
     x0, y0, x1, y1 = extent(d.node_xy)
     ratio = (y1 - y0) / max(x1 - x0, 1e-9)
     return float(np.clip(ratio, 0.35, 1.3)) if np.isfinite(ratio) else 0.8
@@ -103,7 +105,7 @@ def _cells(ax, xy, value, ext, norm) -> None:
     g = grid_min(xy, value, ext)
     sq = np.stack([np.c_[g.x0, g.y0], np.c_[g.x0 + g.size, g.y0],
                    np.c_[g.x0 + g.size, g.y0 + g.size], np.c_[g.x0, g.y0 + g.size]], axis=1)
-    pc = PolyCollection(sq, array=np.where(np.isfinite(g.worst), g.worst, np.nan),
+    pc = PolyCollection(list(sq), array=np.where(np.isfinite(g.worst), g.worst, np.nan),
                         cmap=pal.PRESSURE_CMAP, norm=norm, edgecolors="none", zorder=3)
     ax.add_collection(pc)
 
@@ -172,7 +174,7 @@ def flagged_pipes_map(d: ReportData, velocity_flag: np.ndarray,
                              ("both", both, "both")):
         idx = np.flatnonzero(mask)
         if idx.size:
-            ax.add_collection(LineCollection(_segments(d, idx), colors=pal.FLAG[key],
+            ax.add_collection(LineCollection(list(_segments(d, idx)), colors=pal.FLAG[key],
                                              linewidths=lw, zorder=3))
         handles.append(Line2D([], [], color=pal.FLAG[key], lw=3,
                               label=f"{label} ({idx.size})"))

@@ -84,7 +84,7 @@ def map_payload(d: ReportData) -> dict | None:
         low = np.nanmin(np.where(np.isfinite(p), p, np.inf), axis=0)
     shown = pick(low, node_bad if many else np.ones(net.n_nodes, bool))
     shown = np.union1d(shown, np.flatnonzero(net.is_fixed))
-    cells = []
+    cells: list[dict | None] = []
     for s, ps in zip(scen, p):
         if many:
             j = np.flatnonzero(s.junction)

@@ -151,7 +151,7 @@ def fire_by_zone(d: ReportData) -> pd.DataFrame:
     return _unnamed_last(g.reset_index(), [])
 
 
-def _flag_text(flags: dict[str, np.ndarray], idx: np.ndarray) -> list[str]:
+def _flag_text(flags: dict[str, np.ndarray], idx) -> list[str]:
     out = []
     for i in idx:
         out.append(", ".join(k.replace("_", " ") for k, v in flags.items() if v[i]))
