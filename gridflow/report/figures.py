@@ -15,15 +15,23 @@ from collections.abc import Sequence
 import numpy as np
 import pandas as pd
 from matplotlib.axes import Axes
-from matplotlib.collections import LineCollection, PolyCollection
-from matplotlib.colors import Normalize
+from matplotlib.collections import LineCollection
+from matplotlib.colors import Normalize, to_rgba
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 
 from gridflow.report import palette as pal
 from gridflow.report.data import ReportData
 from gridflow.report.fields import Fields
-from gridflow.report.geometry import MAX_POINTS, extent, grid_min, pick, skeleton
+from gridflow.report.geometry import (
+    MAX_POINTS,
+    MAX_SEGMENTS,
+    cells_image,
+    extent,
+    grid_min,
+    pick,
+    raster_lines,
+)
 
 __all__ = [
     "findings_map",
@@ -36,13 +44,15 @@ __all__ = [
 ]
 
 DPI = 80
+_RASTERS: dict[tuple, tuple[np.ndarray, tuple[float, float, float, float]]] = {}
 
 
-def to_data_uri(fig: Figure) -> str:
-    """Render a figure to PNG and return it as a data URI."""
+def to_data_uri(fig: Figure, *, tight: bool = True) -> str:
+    """Render a figure to PNG and return it as a data URI (``tight``: trim the margins, at the
+    cost of a second drawing; maps are laid out to fit and skip it)."""
     buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=DPI, facecolor=pal.PAPER, bbox_inches="tight",
-                metadata={"Software": None})
+    fig.savefig(buf, format="png", dpi=DPI, facecolor=pal.PAPER,
+                bbox_inches="tight" if tight else None, metadata={"Software": None})
     return "data:image/png;base64," + base64.b64encode(buf.getvalue()).decode("ascii")
 
 
@@ -62,11 +72,27 @@ def _segments(d: ReportData, idx: np.ndarray) -> np.ndarray:
 
 
 def _base(ax, d: ReportData, *, color=pal.PIPE_BACKGROUND) -> None:
-    idx = skeleton(d.network.diameter_m)
-    ax.add_collection(LineCollection(list(_segments(d, idx)), colors=color,
-                                     linewidths=_line_width(len(idx)), zorder=1))
+    """The mains: vector segments on a small network, a raster of every main on a large one."""
     assert d.node_xy is not None
-    x0, y0, x1, y1 = extent(d.node_xy)
+    net = d.network
+    ext = extent(d.node_xy)
+    if net.n_links <= MAX_SEGMENTS:
+        idx = np.arange(net.n_links)
+        ax.add_collection(LineCollection(list(_segments(d, idx)), colors=color,
+                                         linewidths=_line_width(len(idx)), zorder=1))
+    else:
+        key = (color, ext, net.n_links, float(np.nansum(d.node_xy)),
+               int(net.from_idx.sum()), int(net.to_idx.sum()))
+        if key not in _RASTERS:  # one raster per report and colour, shared by its maps
+            _RASTERS.clear()
+            img, size = raster_lines(d.node_xy[net.from_idx], d.node_xy[net.to_idx], ext)
+            rgba = np.zeros((*img.shape, 4), dtype=np.float32)
+            rgba[img] = to_rgba(color)
+            ny, nx = img.shape
+            _RASTERS[key] = (rgba, (ext[0], ext[0] + nx * size, ext[1], ext[1] + ny * size))
+        rgba, box = _RASTERS[key]
+        ax.imshow(rgba, extent=box, origin="lower", interpolation="nearest", zorder=1)
+    x0, y0, x1, y1 = ext
     pad = 0.03 * max(x1 - x0, y1 - y0, 1.0)
     ax.set_xlim(x0 - pad, x1 + pad)
     ax.set_ylim(y0 - pad, y1 + pad)
@@ -103,11 +129,10 @@ def _crs_note(fig: Figure, d: ReportData) -> None:
 def _cells(ax, xy, value, ext, norm) -> None:
     """Aggregated points: one square per occupied cell, coloured by its lowest value."""
     g = grid_min(xy, value, ext)
-    sq = np.stack([np.c_[g.x0, g.y0], np.c_[g.x0 + g.size, g.y0],
-                   np.c_[g.x0 + g.size, g.y0 + g.size], np.c_[g.x0, g.y0 + g.size]], axis=1)
-    pc = PolyCollection(list(sq), array=np.where(np.isfinite(g.worst), g.worst, np.nan),
-                        cmap=pal.PRESSURE_CMAP, norm=norm, edgecolors="none", zorder=3)
-    ax.add_collection(pc)
+    img = cells_image(g, ext)
+    ny, nx = img.shape
+    ax.imshow(img, cmap=pal.PRESSURE_CMAP, norm=norm, origin="lower", interpolation="nearest",
+              extent=(ext[0], ext[0] + nx * g.size, ext[1], ext[1] + ny * g.size), zorder=3)
 
 
 def pressure_maps(d: ReportData) -> str:
@@ -150,7 +175,7 @@ def pressure_maps(d: ReportData) -> str:
     cb = fig.colorbar(sm, ax=list(axes[: len(names)]), shrink=0.9, fraction=0.03, pad=0.02)
     cb.set_label(f"pressure [{f.u_pressure}]")
     _crs_note(fig, d)
-    return to_data_uri(fig)
+    return to_data_uri(fig, tight=False)
 
 
 def _scalar_mappable(norm):
@@ -182,7 +207,7 @@ def flagged_pipes_map(d: ReportData, velocity_flag: np.ndarray,
     _legend(ax, handles)
     ax.set_title("Pipes flagged in any scenario", fontsize=10, color=pal.INK)
     _crs_note(fig, d)
-    return to_data_uri(fig)
+    return to_data_uri(fig, tight=False)
 
 
 def findings_map(d: ReportData, xy: np.ndarray, severity: np.ndarray) -> str:
@@ -203,7 +228,7 @@ def findings_map(d: ReportData, xy: np.ndarray, severity: np.ndarray) -> str:
     ax.set_title(f"Findings with a location ({located} of {len(severity)})", fontsize=10,
                  color=pal.INK)
     _crs_note(fig, d)
-    return to_data_uri(fig)
+    return to_data_uri(fig, tight=False)
 
 
 def hydrants_map(d: ReportData, xy: np.ndarray, cls: np.ndarray, fail: np.ndarray) -> str:
@@ -226,7 +251,7 @@ def hydrants_map(d: ReportData, xy: np.ndarray, cls: np.ndarray, fail: np.ndarra
     ax.set_title("Hydrants by fire-flow class (available flow at the residual target)",
                  fontsize=10, color=pal.INK)
     _crs_note(fig, d)
-    return to_data_uri(fig)
+    return to_data_uri(fig, tight=False)
 
 
 def hgl_figure(profile: pd.DataFrame, f: Fields, *, title: str,
@@ -262,7 +287,8 @@ def hgl_figure(profile: pd.DataFrame, f: Fields, *, title: str,
     ax.grid(True, color="#e4e7eb", lw=0.6)
     ax.legend(loc="best", fontsize=8)
     ax.set_title(title, fontsize=10, color=pal.INK)
-    return to_data_uri(fig)
+    fig.subplots_adjust(left=0.08, right=0.98, bottom=0.12, top=0.9)
+    return to_data_uri(fig, tight=False)
 
 
 def pressure_histograms(d: ReportData, lines: Sequence[tuple[str, float]] = ()) -> str:
@@ -291,4 +317,4 @@ def pressure_histograms(d: ReportData, lines: Sequence[tuple[str, float]] = ()) 
     if lines:
         axes[0].legend(fontsize=8, loc="upper left")
     fig.tight_layout()
-    return to_data_uri(fig)
+    return to_data_uri(fig, tight=False)

@@ -4,7 +4,8 @@ Both the printed figures and the interactive map draw mains as straight segments
 their end nodes (the network arrays' coordinates), and draw at most a budget of features per
 layer: below the budget everything is drawn; above it, the widest mains are kept (the
 skeleton a planner reads), and points are aggregated on a grid of cells (each cell shows its
-count and its worst value). Flagged features are chosen first, up to their own budget.
+count and its worst value). Flagged features are chosen first, up to their own budget. The
+printed maps of a large network burn every main into a raster instead (:func:`raster_lines`).
 """
 
 from __future__ import annotations
@@ -14,7 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 
 __all__ = ["MAX_SEGMENTS", "MAX_POINTS", "GRID_CELLS", "skeleton", "pick", "grid_min",
-           "GridCells"]
+           "GridCells", "raster_lines", "cells_image", "extent"]
 
 MAX_SEGMENTS = 20_000  # mains drawn per map
 MAX_POINTS = 12_000  # points drawn one by one per layer; more are aggregated
@@ -85,3 +86,43 @@ def extent(xy: np.ndarray) -> tuple[float, float, float, float]:
         return (0.0, 0.0, 1.0, 1.0)
     lo, hi = xy[ok].min(axis=0), xy[ok].max(axis=0)
     return (float(lo[0]), float(lo[1]), float(hi[0]), float(hi[1]))
+
+
+def raster_lines(a: np.ndarray, b: np.ndarray, ext: tuple[float, float, float, float],
+                 width: int = 900) -> tuple[np.ndarray, float]:
+    """Segments ``a[i] -> b[i]`` burnt into a boolean image (rows from the bottom), and the
+    pixel size; pixel (0, 0) has its lower-left corner at the extent's lower-left.
+
+    Each segment is sampled at about one point per pixel of its length (at least its two
+    ends), so the cost is one vector pass over the samples: about the network's length in
+    pixels, whatever the number of mains.
+    """
+    x0, y0, x1, y1 = ext
+    size = max(x1 - x0, y1 - y0, 1e-9) / width
+    nx = max(1, int(np.ceil((x1 - x0) / size)) + 1)
+    ny = max(1, int(np.ceil((y1 - y0) / size)) + 1)
+    pa = (a - [x0, y0]) / size
+    d = (b - a) / size
+    ok = np.isfinite(pa).all(axis=1) & np.isfinite(d).all(axis=1)
+    pa, d = pa[ok], d[ok]
+    n = np.clip(np.ceil(np.abs(d).max(axis=1)).astype(np.int64) + 1, 2, 4 * width)
+    seg = np.repeat(np.arange(len(n)), n)
+    start = np.cumsum(n) - n
+    t = (np.arange(int(n.sum())) - start[seg]) / (n[seg] - 1)
+    px = np.clip((pa[seg, 0] + t * d[seg, 0]).astype(np.int64), 0, nx - 1)
+    py = np.clip((pa[seg, 1] + t * d[seg, 1]).astype(np.int64), 0, ny - 1)
+    img = np.zeros(nx * ny, bool)
+    img[py * nx + px] = True
+    return img.reshape(ny, nx), size
+
+
+def cells_image(g: GridCells, ext: tuple[float, float, float, float]) -> np.ndarray:
+    """Grid cells as an image of their worst values (NaN where no cell; rows from the bottom)."""
+    x0, y0, x1, y1 = ext
+    nx = int(np.floor((x1 - x0) / g.size)) + 1
+    ny = int(np.floor((y1 - y0) / g.size)) + 1
+    img = np.full((ny, nx), np.nan)
+    i = np.clip(np.round((g.x0 - x0) / g.size).astype(np.int64), 0, nx - 1)
+    j = np.clip(np.round((g.y0 - y0) / g.size).astype(np.int64), 0, ny - 1)
+    img[j, i] = np.where(np.isfinite(g.worst), g.worst, np.nan)
+    return img

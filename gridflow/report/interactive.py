@@ -35,7 +35,9 @@ _NODE_BITS = (*NODE_FLAGS, "unsupplied")
 def _r(values, digits: int) -> list:
     """Rounded floats for JSON, None where not finite."""
     a = np.round(np.asarray(values, dtype=float), digits)
-    return [None if not np.isfinite(v) else float(v) for v in a]
+    out = a.astype(object)
+    out[~np.isfinite(a)] = None
+    return out.tolist()
 
 
 def _bits(flags: list[np.ndarray], idx: np.ndarray) -> list[int]:
