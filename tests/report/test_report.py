@@ -23,7 +23,7 @@ from scipy.sparse.csgraph import dijkstra
 import gridflow.report
 from gridflow.errors import ConfigError, GridflowError, OutputError
 from gridflow.report import CAUTIONS, ReportData, hgl_profile, write_report
-from gridflow.report.geometry import grid_min, skeleton
+from gridflow.report.geometry import grid_min, raster_lines, skeleton
 from gridflow.report.sections import UNNAMED_ZONE
 from tests.report.cdp import CHROMIUM, Browser
 from tests.report.millbrook import SCENARIOS, report_data
@@ -402,6 +402,25 @@ def test_skeleton_keeps_the_widest_mains():
     assert np.all(d[idx] >= 0.2)
     assert list(skeleton(d, budget=200)) == list(range(100))
     assert 3 in skeleton(d, keep=np.arange(100) == 3, budget=30)
+
+
+def test_raster_lines_follow_the_segments():
+    """Every burnt pixel lies on its segment (distance by shapely), and each segment burns at
+    least one pixel per pixel of its longer extent."""
+    import shapely
+
+    rng = np.random.default_rng(11)
+    a = rng.uniform(0, 1000, size=(40, 2))
+    b = a + rng.normal(0, 150, size=(40, 2))
+    ext = (min(a[:, 0].min(), b[:, 0].min()), min(a[:, 1].min(), b[:, 1].min()),
+           max(a[:, 0].max(), b[:, 0].max()), max(a[:, 1].max(), b[:, 1].max()))
+    for k in range(len(a)):
+        img, size = raster_lines(a[k:k + 1], b[k:k + 1], ext, width=300)
+        j, i = np.nonzero(img)
+        centres = shapely.points(ext[0] + (i + 0.5) * size, ext[1] + (j + 0.5) * size)
+        line = shapely.LineString([a[k], b[k]])
+        assert shapely.distance(centres, line).max() <= size * np.sqrt(0.5) + 1e-9
+        assert len(i) >= np.abs((b[k] - a[k]) / size).max() - 1
 
 
 # ------------------------------------------------------------------ a real browser

@@ -94,7 +94,13 @@
 
   var nodeMarkers = {};
   function pressureLayer(s) {
-    var g = L.layerGroup(), C = D.cells[s], N = D.nodes;
+    // filled when first shown: a large network's scenarios are not all drawn up front
+    var g = L.layerGroup(), filled = false;
+    g.on("add", function () { if (!filled) { filled = true; fillPressure(g, s); } });
+    return g;
+  }
+  function fillPressure(g, s) {
+    var C = D.cells[s], N = D.nodes;
     if (C) {
       for (var c = 0; c < C.x.length; c++) {
         L.rectangle([ll(C.x[c], C.y[c]), ll(C.x[c] + C.size, C.y[c] + C.size)],
@@ -117,7 +123,6 @@
       m.addTo(g);
       nodeMarkers[s][N.id[i]] = m;
     }
-    return g;
   }
   function mainsLayer(only, flagged) {
     var g = L.layerGroup(), M = D.mains, list = only;
@@ -179,7 +184,7 @@
     map: map, layers: {base: base, overlays: overlays},
     nodeMarker: function (scenario, id) {
       var s = D.scenarios.indexOf(scenario);
-      return s < 0 ? null : (nodeMarkers[s][id] || null);
+      return s < 0 || !nodeMarkers[s] ? null : (nodeMarkers[s][id] || null);
     },
     flaggedNode: function (scenario) {
       var s = D.scenarios.indexOf(scenario), N = D.nodes;
