@@ -98,15 +98,26 @@ class Findings:
 
         ``routine=False`` leaves out the routine facts (severity ``info``): the run's layer
         holds only what someone should look at; :meth:`routine_counts` has the rest.
+        A line of zero length (a pipe whose ends meet) is written as its point: a map draws
+        nothing for a degenerate line, and the finding must be visible where it is.
         """
         import geopandas as gpd
+        import shapely
 
         keep = [i for i, s in enumerate(self.severity) if routine or s != ROUTINE_SEVERITY]
 
         def col(values: list) -> list:
             return values if len(keep) == len(values) else [values[i] for i in keep]
 
+        geoms = np.empty(len(keep), dtype=object)
+        geoms[:] = col(self.geometry)
+        lines = np.isin(shapely.get_type_id(geoms), (1, 5))
+        degenerate = np.flatnonzero(lines & (shapely.length(geoms) == 0.0))
+        if degenerate.size:
+            xy, owner = shapely.get_coordinates(geoms[degenerate], return_index=True)
+            first = np.unique(owner, return_index=True)[1]
+            geoms[degenerate[owner[first]]] = shapely.points(xy[first])
         return gpd.GeoDataFrame(
             {"kind": col(self.kind), "severity": col(self.severity), "layer": col(self.layer),
              "feature_id": col(self.feature_id), "message": col(self.message)},
-            geometry=gpd.GeoSeries(col(self.geometry), crs=crs), crs=crs)
+            geometry=gpd.GeoSeries(geoms, crs=crs), crs=crs)
