@@ -124,6 +124,9 @@ figcaption{font-size:0.9em;color:#4d5966}
 .gf-map{height:620px;border:1px solid #c3c9d1}
 .gf-map.leaflet-container{background:#fbfcfd}
 .gf-pop table{font-size:0.85em;margin:4px 0}
+.gf-legend{background:#fff;padding:6px 8px;border:1px solid #c3c9d1;font-size:0.8em;
+max-width:220px;line-height:1.3}
+.gf-ramp{display:inline-block;width:200px;height:10px;margin-top:3px}
 pre.licence{font-size:0.8em;white-space:pre-wrap}
 footer{margin-top:28px;font-size:0.85em;color:#6b7785;border-top:1px solid #d5dae0;
 padding-top:8px}

@@ -179,6 +179,18 @@
   overlays["Findings"].addTo(map);
   L.control.layers(base, overlays, {collapsed: false}).addTo(map);
   L.control.scale({imperial: U.len === "ft", metric: U.len !== "ft"}).addTo(map);
+  var legend = L.control({position: "bottomright"});
+  legend.onAdd = function () {
+    var div = L.DomUtil.create("div", "gf-legend");
+    div.innerHTML = "<b>pressure [" + esc(U.pressure) + "]</b><br/>" +
+      '<span class="gf-ramp" style="background:linear-gradient(to right,' +
+      D.ramp.join(",") + ')"></span><br/>' + num(D.pressureRange[0]) +
+      '<span style="float:right">' + num(D.pressureRange[1]) + "</span><br/>" +
+      "dark ring: flagged; white: not supplied; large dark: source or tank" +
+      (D.counts.aggregated ? "<br/>squares: lowest pressure in the cell" : "");
+    return div;
+  };
+  legend.addTo(map);
 
   window.gridflowMap = {
     map: map, layers: {base: base, overlays: overlays},
