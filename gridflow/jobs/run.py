@@ -321,8 +321,11 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
                 findings=findings, info=info, progress=terminal_progress("segment closures"))
             info.append(("seconds_segments", f"{time.perf_counter() - t0:.2f}"))
 
-        findings_gdf = findings.to_geodataframe(crs=clean.crs)
+        # the layer holds what someone should look at; routine facts become counts
+        findings_gdf = findings.to_geodataframe(crs=clean.crs, routine=False)
         layers["findings"] = findings_gdf
+        routine = findings.routine_counts()
+        info += [(f"routine:{k}", str(v)) for k, v in routine.items()]
         if prev_flags is not None:
             changes = compare_flags(flag_set(layers), prev_flags)
             layers["changes"] = changes
@@ -330,7 +333,7 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
             n_res = int((changes["change"] == "resolved").sum())
             info += [("changes_new", str(n_new)), ("changes_resolved", str(n_res))]
             log.info("since the previous run: %d new flag(s), %d resolved", n_new, n_res)
-        info += [("findings", str(len(findings))),
+        info += [("findings", str(len(findings_gdf))),
                  ("started_utc", started.isoformat(timespec="seconds")),
                  ("ended_utc", _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds")),
                  ("seconds_total", f"{time.perf_counter() - t_start:.2f}")]
@@ -351,7 +354,7 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
             write_geopackage(out_path, layers, inputs=inputs, styles=True)
             log.info("wrote %s", out_path)
         if cfg.report.enabled:
-            _report(cfg, out_path, layers, info)
+            _report(cfg, out_path, clean, results, layers, info, routine, rating)
         _print_summary(out_path, layers, findings, cfg.report.enabled, published)
         return 0
     finally:
@@ -363,7 +366,7 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
 def _print_summary(out_path: Path, layers: dict, findings: Findings, report: bool,
                    published: str | None = None) -> None:
     """A few lines on stdout for whoever ran the command: what was flagged, where it went."""
-    print(f"gridflow run: {len(findings)} finding(s) "
+    print(f"gridflow run: {len(layers['findings'])} finding(s) "
           f"({findings.count(severity='error')} error, {findings.count(severity='warning')} "
           "warning)")
     for name, df in layers.items():
@@ -382,8 +385,10 @@ def _print_summary(out_path: Path, layers: dict, findings: Findings, report: boo
                   "delivered")
     if "hydrants_fireflow" in layers:
         h = layers["hydrants_fireflow"]
-        print(f"  fire flow: {int((h['meets_required'] == 0).sum())} of {len(h)} hydrant(s) "
-              "below their required flow")
+        ins = h[h["in_service"] == 1]
+        print(f"  fire flow: {int((ins['meets_required'] == 0).sum())} of {len(ins)} "
+              "in-service hydrant(s) below their required flow"
+              + (f"; {len(h) - len(ins)} out of service" if len(h) > len(ins) else ""))
     if "flow_tests" in layers:
         ft = layers["flow_tests"]
         col = next(c for c in ft.columns if c.startswith("residual_diff_"))
@@ -445,27 +450,42 @@ def _fireflow(cfg, clean, results, opts, workers, scheduler, findings, info):
     order = pd.Index(ff["hydrant_id"].astype(str))
     geo = hyd.set_index(hyd["hydrant_id"].astype(str)).geometry.reindex(order).values
     layer = hydrants_layer(ff, geo, clean.crs, cfg.run.units)
-    info += [("fireflow:scenario", name), ("fireflow:hydrants", str(len(ff))),
-             ("fireflow:failing", str(int((ff["meets_required"] == 0).sum()))),
+    summary = ff.attrs["summary"]
+    info += [("fireflow:scenario", name), ("fireflow:hydrants", str(summary["hydrants"])),
+             ("fireflow:out_of_service", str(summary["out_of_service"])),
+             ("fireflow:failing", str(summary["hydrants"] - summary["meets_required"])),
+             ("fireflow:required_not_achievable", str(summary["required_not_achievable"])),
+             ("fireflow:high_velocity", str(summary["high_velocity"])),
              ("fireflow:seconds", f"{time.perf_counter() - t0:.2f}")]
     return layer
 
 
-def _report(cfg, out_path, layers, info):
-    from gridflow.report import write_report
+def _report(cfg, out_path, clean, results, layers, info, routine, rating):
+    """The HTML report, from the results in memory (SI arrays, typed criteria)."""
+    import shapely
+
+    from gridflow.report import ReportData, ScenarioData, write_report
+    from gridflow.report.fireflow import in_service, limiting_nodes_table
+    from gridflow.report.flowtests import flow_tests_table
+    from gridflow.report.segments import segments_table
 
     html = out_path.with_suffix(".html")
-    c = cfg.criteria
-    from gridflow.units import FT, KPA_PER_M_HEAD, M_HEAD_PER_PSI
-
-    if cfg.run.units == "US":
-        crit = {"min_pressure": f"{c.min_pressure / M_HEAD_PER_PSI:.0f} psi",
-                "max_pressure": f"{c.max_pressure / M_HEAD_PER_PSI:.0f} psi",
-                "max_velocity": f"{c.max_velocity / FT:.1f} ft/s"}
-    else:
-        crit = {"min_pressure": f"{c.min_pressure * KPA_PER_M_HEAD:.0f} kPa",
-                "max_pressure": f"{c.max_pressure * KPA_PER_M_HEAD:.0f} kPa",
-                "max_velocity": f"{c.max_velocity:.2f} m/s"}
-    write_report(html, layers, info, units=cfg.run.units, hgl_path=cfg.report.hgl_path or None,
-                 worst_rows=cfg.report.worst_rows, criteria=crit)
+    scenarios = [ScenarioData.solved(name, net, r, cfg.criteria)
+                 for name, (net, r, _) in results.items()]
+    geoms = clean.nodes.geometry.values
+    xy = None
+    if len(geoms) == scenarios[0].network.n_nodes:
+        xy = shapely.get_coordinates(geoms)
+        xy = xy if len(xy) == len(geoms) else None
+    data = ReportData(scenarios=scenarios, criteria=cfg.criteria, units=cfg.run.units,
+                      name=cfg.run.name, node_xy=xy,
+                      crs=clean.crs.name if clean.crs is not None else "",
+                      pressure_rating_m=rating,
+                      hydrants=in_service(layers.get("hydrants_fireflow")),
+                      findings=layers.get("findings"), changes=layers.get("changes"),
+                      flow_tests=layers.get("flow_tests"), segments=layers.get("segments"),
+                      routine=routine, run_info=list(info),
+                      hgl_path=cfg.report.hgl_path or None, worst_rows=cfg.report.worst_rows)
+    write_report(html, data, extra_tables=[limiting_nodes_table, flow_tests_table,
+                                           segments_table])
     log.info("wrote %s", html)
