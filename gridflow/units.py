@@ -24,6 +24,7 @@ NU_WATER_20C = 1.004e-6  # kinematic viscosity at 20 degC [m2/s]
 FT = 0.3048
 INCH = 0.0254
 US_GALLON = 3.785411784e-3  # m3
+GPM = US_GALLON / 60.0  # m3/s per US gallon per minute
 PSI_PA = 6894.757293168361
 KPA_PER_M_HEAD = RHO_WATER * G / 1000.0  # 9.80665
 M_HEAD_PER_PSI = PSI_PA / (RHO_WATER * G)  # 0.70307 m of water per psi

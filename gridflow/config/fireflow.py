@@ -14,11 +14,12 @@ from gridflow.config.schema import (
     quantity,
     table_of,
 )
-from gridflow.units import INCH, M_HEAD_PER_PSI, US_GALLON
+from gridflow.units import GPM as _GPM
+from gridflow.units import INCH, M_HEAD_PER_PSI
 
 __all__ = ["FireflowSection", "ReportSection"]
 
-GPM = US_GALLON / 60.0
+GPM = _GPM
 
 
 @dataclass(frozen=True, kw_only=True)

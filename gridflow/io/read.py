@@ -23,6 +23,7 @@ import pandas as pd
 from gridflow.config.layers import CODE_TARGETS, NUMERIC_FIELDS, ROLES, unit_factor
 from gridflow.errors import ConfigError, InputError
 from gridflow.findings import Findings
+from gridflow.io.paths import require_regular_file
 
 __all__ = ["LayerInfo", "ReadResult", "ID_COLUMN", "inspect_inputs", "working_crs",
            "read_inputs", "sample_dem", "shared_locks"]
@@ -82,9 +83,7 @@ def inspect_inputs(cfg) -> dict[str, LayerInfo]:
         if sec is None:
             continue
         path = cfg.resolve(cfg.inputs[sec.input])
-        if not path.exists():
-            raise InputError(f"input file {path} (inputs.{sec.input}) does not exist",
-                             file=str(path))
+        require_regular_file(path, "input file", key=f"inputs.{sec.input}")
         try:
             names = [str(n) for n in pyogrio.list_layers(path)[:, 0]]
         except Exception as exc:
@@ -358,7 +357,14 @@ def _read_role(cfg, role: str, info: LayerInfo, crs, findings: Findings):
         else:
             data[role_name] = _texts(col, role, role_name, sec.codes.get(role_name), ids, info,
                                      findings)
+    from gridflow.io.validate import check_layer
+
+    geoms = np.asarray(gdf.geometry.values, dtype=object)
+    keep = ~check_layer(cfg, role, info, data, ids, geoms, findings)
     frame = gpd.GeoDataFrame(data, geometry=gdf.geometry.values, crs=gdf.crs)
+    if not keep.all():
+        frame = frame[keep].reset_index(drop=True)
+        ids = ids[keep]
     if frame.crs is None:  # inspected already; a layer can still lose it through a view
         raise InputError(f"{info.file}: layer {info.layer!r} has no coordinate reference system",
                          file=str(info.file), layer=info.layer)
