@@ -15,11 +15,10 @@ from __future__ import annotations
 import dataclasses
 import difflib
 from collections.abc import Callable, Iterable
-from functools import lru_cache
 from typing import Any
 
 from gridflow.errors import ConfigError
-from gridflow.units import RHO_WATER, G
+from gridflow.units import FT, GPM, M_HEAD_PER_PSI, RHO_WATER, G
 
 __all__ = [
     "opt",
@@ -115,18 +114,10 @@ def one_of(*choices: str) -> Parser:
     return parse
 
 
-@lru_cache(maxsize=1)
 def _ureg():
-    import pint
+    from gridflow.units import ureg
 
-    reg = pint.UnitRegistry()
-    reg.define("gpm = gallon / minute")
-    reg.define("mgd = 1e6 gallon / day")
-    reg.define("lps = liter / second")
-    reg.define("fps = foot / second")
-    reg.define("mps = meter / second")
-    reg.define("kft = 1000 foot")
-    return reg
+    return ureg()
 
 
 _DIMS = {
@@ -245,10 +236,10 @@ def reference_rows(cls: type, where: str = "") -> Iterable[tuple[str, str, str]]
             yield from reference_rows(sub, key)
 
 
-_SHOW_UNITS = {"length": ("m", 1.0, "ft", 1 / 0.3048),
-               "pressure": ("m of head", 1.0, "psi", 1 / 0.70307),
-               "flow": ("m3/s", 1.0, "gpm", 15850.32),
-               "velocity": ("m/s", 1.0, "ft/s", 1 / 0.3048)}
+_SHOW_UNITS = {"length": ("m", 1.0, "ft", 1 / FT),
+               "pressure": ("m of head", 1.0, "psi", 1 / M_HEAD_PER_PSI),
+               "flow": ("m3/s", 1.0, "gpm", 1 / GPM),
+               "velocity": ("m/s", 1.0, "ft/s", 1 / FT)}
 
 
 def _show_default(value: Any, parser: Parser) -> str:

@@ -246,7 +246,7 @@ class OutputSet:
 
     def discard(self) -> None:
         """Remove every temporary not yet renamed into place."""
-        for t, tmp in self._temps.items():
+        for tmp in self._temps.values():
             _remove(tmp)
         self._written.clear()
 

@@ -23,8 +23,8 @@ from gridflow.findings import Findings
 from gridflow.hydraulics import HydraulicSystem, SolveOptions
 from gridflow.hydraulics.solver import HydraulicResult
 from gridflow.io.atomic import OutputSet
-from gridflow.jobs.signals import stop_on_signals
 from gridflow.jobs.check import file_sha256
+from gridflow.jobs.signals import stop_on_signals
 from gridflow.network import NODE_JUNCTION, Network
 
 __all__ = ["run_job", "solve_options", "verify_solution", "require_solvable",

@@ -9,9 +9,7 @@ from __future__ import annotations
 
 import html
 import logging
-import os
 import re
-import tempfile
 from collections.abc import Callable, Iterable
 from pathlib import Path
 
@@ -19,7 +17,7 @@ import geopandas as gpd
 import numpy as np
 import pandas as pd
 
-from gridflow.errors import GridflowError, OutputError
+from gridflow.errors import GridflowError
 from gridflow.report import figures
 from gridflow.report.fields import Fields, fields_for, require
 from gridflow.report.profile import hgl_profile
@@ -668,21 +666,7 @@ def write_report(html_path: Path, layers: dict, run_info: list[tuple[str, str]],
 
 
 def _write_atomic(path: Path, text: str) -> None:
-    folder = path.parent if str(path.parent) else Path(".")
-    try:
-        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=folder)
-    except OSError as exc:
-        raise OutputError(f"cannot write the report in {folder}: {exc.strerror}",
-                          file=str(path)) from None
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
-            fh.write(text)
-        os.chmod(tmp, 0o644)  # readable like the GeoPackage beside it
-        os.replace(tmp, path)
-    except OSError as exc:
-        Path(tmp).unlink(missing_ok=True)
-        raise OutputError(f"cannot write the report {path}: {exc.strerror}",
-                          file=str(path)) from None
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    """The page, written through the one atomic-write helper (:mod:`gridflow.io.atomic`)."""
+    from gridflow.io.atomic import write_text
+
+    write_text(path, text)

@@ -41,14 +41,15 @@ from gridflow.config.layers import SEARCH_DISTANCE_DEFAULT, unit_factor
 from gridflow.findings import Findings
 from gridflow.network import Network
 from gridflow.topology.lines import end_points, set_end_points, snap_labels
+from gridflow.units import INCH
 
 if TYPE_CHECKING:
     import geopandas as gpd
 
 __all__ = ["CleanNetwork", "build_network", "MAX_DIAMETER_M", "MIN_DIAMETER_M", "C_RANGE"]
 
-MAX_DIAMETER_M = 120 * 0.0254  # above this a diameter is taken as a unit error
-MIN_DIAMETER_M = 2 * 0.0254  # below this a main's diameter is implausible (common practice)
+MAX_DIAMETER_M = 120 * INCH  # above this a diameter is taken as a unit error
+MIN_DIAMETER_M = 2 * INCH  # below this a main's diameter is implausible (common practice)
 C_RANGE = (40.0, 160.0)  # plausible Hazen-Williams C (common practice)
 _EPS = 1e-3  # [m] positions closer than this along a line are the same place
 
@@ -236,7 +237,7 @@ class _Builder:
         self._check_diameter_unit(d)
         small = np.isfinite(d) & (d > 0) & (d < MIN_DIAMETER_M)
         f.add_many("diameter_implausible", "warning", layer, df["pipe_id"].to_numpy()[small],
-                   [f"diameter {x / 0.0254:.3g} in is below {MIN_DIAMETER_M / 0.0254:g} in, "
+                   [f"diameter {x / INCH:.3g} in is below {MIN_DIAMETER_M / INCH:g} in, "
                     "implausible for a main; kept (check the value and "
                     "layers.pipes.units.diameter)" for x in d[small]],
                    df["geom"].to_numpy()[small])
@@ -248,7 +249,7 @@ class _Builder:
         default = self.cfg.layers.pipes.default_diameter
         ids = df["pipe_id"].to_numpy()
         geoms = df["geom"].to_numpy()
-        what = np.where(big, [f"diameter {x / 0.0254:.6g} in is above 120 in" for x in
+        what = np.where(big, [f"diameter {x / INCH:.6g} in is above 120 in" for x in
                               np.where(big, d, 0)], np.where(np.isfinite(d), "diameter is zero",
                                                              "diameter is missing"))
         if default is None:
@@ -257,7 +258,7 @@ class _Builder:
                         "default instead)" for w in what[bad]], geoms[bad])
             return df[~bad].reset_index(drop=True)
         f.add_many("diameter_missing", "warning", layer, ids[bad],
-                   [f"{w}: default {default / 0.0254:.4g} in used" for w in what[bad]],
+                   [f"{w}: default {default / INCH:.4g} in used" for w in what[bad]],
                    geoms[bad])
         df = df.copy()
         df.loc[bad, "diameter"] = default
@@ -283,8 +284,8 @@ class _Builder:
         unit = sec.units.get("diameter")
         raise InputError(
             f"{info.file}: layer {info.layer!r}, field {fname!r}: the median diameter is "
-            f"{med * 1000:.4g} mm ({med / 0.0254:.4g} in), outside the {MIN_DIAMETER_M / 0.0254:g}"
-            f"-{MAX_DIAMETER_M / 0.0254:g} in of water mains; check "
+            f"{med * 1000:.4g} mm ({med / INCH:.4g} in), outside the {MIN_DIAMETER_M / INCH:g}"
+            f"-{MAX_DIAMETER_M / INCH:g} in of water mains; check "
             f"layers.pipes.units.diameter (now {unit!r})", file=str(info.file),
             layer=info.layer, field=fname, key="layers.pipes.units.diameter")
 

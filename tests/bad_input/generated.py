@@ -22,7 +22,7 @@ from pathlib import Path
 
 from gridflow.config.layers import unit_factor
 from gridflow.config.ranges import CONFIG_RANGES
-from gridflow.io.validate import FIELD_RANGES, _PRV, _ROUGHNESS
+from gridflow.io.validate import _ROUGHNESS, FIELD_RANGES
 from gridflow.units import FLOW
 from tests.bad_input.town import P, Town
 
