@@ -54,15 +54,20 @@ class FieldRange:
     source: str = ""
     unit: str = ""
     scale: float = 1.0
+    p_text: str = ""  # the plausible range in words, where it moves (e.g. with the year)
 
     def valid_text(self) -> str:
         lo = "" if self.lo == -_INF else f"{'above' if self.lo_open else 'from'} " \
             f"{self.lo * self.scale:g}"
-        hi = "" if self.hi == _INF else f"{'to' if lo else 'at most'} {self.hi * self.scale:g}"
+        hi = "" if self.hi == _INF else \
+            f"{('to' if not self.lo_open else ', at most') if lo else 'at most'} " \
+            f"{self.hi * self.scale:g}"
         u = f" {self.unit}" if self.unit else ""
-        return f"{lo} {hi}".strip() + u
+        return f"{lo} {hi}".replace(" ,", ",").strip() + u
 
     def plausible_text(self) -> str:
+        if self.p_text:
+            return self.p_text
         if self.p_lo == -_INF and self.p_hi == _INF:
             return ""
         u = f" {self.unit}" if self.unit else ""
@@ -84,6 +89,7 @@ FIELD_RANGES: dict[str, dict[str, FieldRange]] = {
     "pipes": {
         "diameter": FieldRange(hi=10.0, p_hi=_INF, unit="m"),  # <= 0 and > 120 in: topology
         "install_year": FieldRange(-10000, 10000, p_lo=1800, p_hi=_YEAR + 1,
+                                   p_text="1800 to next year",
                                    source="common practice: the oldest mains in service date "
                                           "from the 1800s; a year ahead of today is a typo"),
         "roughness": FieldRange(0.0, 1000.0, lo_open=True),  # per head-loss law: _roughness
