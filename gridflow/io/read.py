@@ -110,11 +110,27 @@ def inspect_inputs(cfg) -> dict[str, LayerInfo]:
             raise InputError(f"{path}: layer {sec.layer!r} has no coordinate reference system; "
                              "assign one in the GIS (e.g. EPSG:26916) and export again",
                              file=str(path), layer=sec.layer)
+        _usable_crs(crs, path, sec.layer)
         bounds = info.get("total_bounds")
         infos[role] = LayerInfo(role, path, sec.layer, crs, fields, str(geom),
                                 int(info.get("features", -1)),
                                 None if bounds is None else _bounds4(bounds))
     return infos
+
+
+def _usable_crs(crs: str, path: Path, layer: str) -> None:
+    """Stop on a CRS PROJ cannot build (a GeoPackage's srs_id 0 or -1, "undefined")."""
+    from pyproj import CRS
+
+    try:
+        ok = "undefined" not in CRS.from_user_input(crs).name.lower()
+    except Exception:
+        ok = False
+    if not ok:
+        raise InputError(f"{path}: layer {layer!r} has an undefined or unknown coordinate "
+                         f"reference system ({crs}; a GeoPackage srs_id of 0 or -1 means "
+                         "undefined); assign one in the GIS (e.g. EPSG:26916) and export again",
+                         file=str(path), layer=layer)
 
 
 def working_crs(cfg, infos: dict[str, LayerInfo], findings: Findings):
@@ -153,6 +169,11 @@ def working_crs(cfg, infos: dict[str, LayerInfo], findings: Findings):
         x0, y0 = t.transform(b[0], b[1])
         x1, y1 = t.transform(b[2], b[3])
         b = (min(x0, x1), min(y0, y1), max(x0, x1), max(y0, y1))
+    if not (-180.0 <= b[0] <= b[2] <= 180.0 and -90.0 <= b[1] <= b[3] <= 90.0):
+        raise InputError(f"{pipes.file}: layer {pipes.layer!r} is in the geographic CRS "
+                         f"{crs.name} but its extent {tuple(round(v, 3) for v in b)} is not "
+                         "longitude and latitude; assign the layer's real CRS in the GIS",
+                         file=str(pipes.file), layer=pipes.layer)
     centre = ((b[0] + b[2]) / 2, (b[1] + b[3]) / 2)
     zone = int((centre[0] + 180) // 6) + 1
     code = (32600 if centre[1] >= 0 else 32700) + zone

@@ -17,6 +17,7 @@ import os
 import random
 import shutil
 import sqlite3
+import struct
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -354,7 +355,18 @@ def fs_cases() -> list[GenCase]:
     def previous_is_fifo(folder, gpkg, cfg, t):
         return "previous-fifo", None
 
+    def report_is_folder(folder, gpkg, cfg, t):
+        t.config["report"] = {"enabled": True}
+        (folder / "out" / "result.html").mkdir()
+        return None, None
+
+    def run_output_is_folder(folder, gpkg, cfg, t):
+        (folder / "out" / "result.gpkg").mkdir()
+        return "no-out", None
+
     rows = [
+        ("report_path_is_folder", report_is_folder, ("result.html", "folder")),
+        ("run_output_is_folder", run_output_is_folder, ("result.gpkg", "folder")),
         ("input_missing", missing, ("nowhere.gpkg", "inputs.gis", "does not exist")),
         ("input_is_folder", as_folder, ("dir.gpkg", "inputs.gis", "folder")),
         ("input_is_fifo", fifo, ("pipe.gpkg", "inputs.gis", "FIFO")),
@@ -378,8 +390,54 @@ def fs_cases() -> list[GenCase]:
         ("output_named_like_its_log", out_named_like_log, ("night.log", "log file")),
         ("previous_output_is_fifo", previous_is_fifo, ("prev.gpkg", "FIFO")),
     ]
-    return [GenCase(id=i, category="files", expect="stop", names=n, spoil=s)
-            for i, s, n in rows]
+    cases = [GenCase(id=i, category="files", expect="stop", names=n, spoil=s)
+             for i, s, n in rows]
+
+    def nan_vertex(folder, gpkg, cfg, t):
+        set_wkb(gpkg, "mains", "MAIN_ID", "M5", _line_wkb([(200, 200), (math.nan, 200),
+                                                             (400, 200)]))
+
+    def inf_vertex_hydrant(folder, gpkg, cfg, t):
+        set_wkb(gpkg, "hydrants", "HYD_ID", "H1", struct.pack("<BIdd", 1, 1, math.inf, 5.0))
+
+    def srs_id_zero(folder, gpkg, cfg, t):
+        con = sqlite3.connect(gpkg)
+        con.execute("UPDATE gpkg_geometry_columns SET srs_id=0 WHERE table_name='mains'")
+        con.commit()
+        con.close()
+
+    cases += [
+        GenCase(id="pipe_with_nan_vertex", category="geometry", expect="run", feature="M5",
+                finding=("bad_coordinates", "M5"), spoil=nan_vertex),
+        GenCase(id="hydrant_at_infinity", category="geometry", expect="run", feature="H1",
+                finding=("bad_coordinates", "H1"), spoil=inf_vertex_hydrant),
+        GenCase(id="pipes_srs_id_0", category="geometry", expect="stop",
+                names=("town.gpkg", "'mains'", "coordinate reference system"),
+                spoil=srs_id_zero),
+    ]
+    return cases
+
+
+def _line_wkb(pts) -> bytes:
+    from tests.bad_input.town import X0, Y0
+
+    b = struct.pack("<BII", 1, 2, len(pts))
+    for x, y in pts:
+        b += struct.pack("<dd", X0 + x, Y0 + y)
+    return b
+
+
+def set_wkb(gpkg: Path, layer: str, id_field: str, fid: str, wkb: bytes) -> None:
+    """Put raw WKB into one feature (GeoPackage binary header, no envelope)."""
+    con = sqlite3.connect(gpkg)
+    for fn in ("ST_IsEmpty", "ST_MinX", "ST_MaxX", "ST_MinY", "ST_MaxY"):
+        con.create_function(fn, 1, lambda b: 0)
+    srs = con.execute("SELECT srs_id FROM gpkg_geometry_columns WHERE table_name=?",
+                      (layer,)).fetchone()[0]
+    blob = b"GP" + bytes([0, 0b00000001]) + struct.pack("<i", srs) + wkb
+    con.execute(f'UPDATE "{layer}" SET geom=? WHERE "{id_field}"=?', (blob, fid))
+    con.commit()
+    con.close()
 
 
 def all_cases() -> list[GenCase]:
@@ -393,6 +451,6 @@ def ci_sample(cases: list[GenCase], k_fields: int = 45, k_config: int = 45,
     rnd = random.Random(seed)
     fields_ = [c for c in cases if c.category.startswith("field:")]
     conf = [c for c in cases if c.category.startswith("config:")]
-    fs = [c for c in cases if c.category == "files"]
+    fs = [c for c in cases if c.category in ("files", "geometry")]
     return rnd.sample(fields_, min(k_fields, len(fields_))) + \
         rnd.sample(conf, min(k_config, len(conf))) + fs

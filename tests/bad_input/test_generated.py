@@ -72,12 +72,14 @@ def run_generated(c: g.GenCase, folder: Path) -> tuple[int, str, Path]:
     if c.category.startswith("field:"):
         e = c.extra
         g.spoil_field(gpkg, e["layer"], e["id_field"], c.feature, e["col"], e["value"])
-    elif c.category == "files":
+    elif c.category in ("files", "geometry"):
         res = c.spoil(folder, gpkg, cfg, t)
         special, out = res if isinstance(res, tuple) else (None, None)
         cfg.write_bytes(tomli_w.dumps(t.config).encode("utf-8"))  # the spoil's config
         if out is not None:
             target = out
+        if special == "no-out":
+            target = folder / "out" / "result.gpkg"
         if special == "fifo-config":
             config = g._fifo(folder, "cfg.toml")
         elif special == "folder-config":
@@ -97,7 +99,8 @@ def run_generated(c: g.GenCase, folder: Path) -> tuple[int, str, Path]:
     old = signal.signal(signal.SIGALRM, _alarm)
     signal.alarm(60)
     try:
-        res = CliRunner().invoke(cli, ["-q", "run", str(config), "--out", str(target), *args])
+        out_args = [] if special_no_out(c) else ["--out", str(target)]
+        res = CliRunner().invoke(cli, ["-q", "run", str(config), *out_args, *args])
     finally:
         signal.alarm(0)
         signal.signal(signal.SIGALRM, old)
@@ -119,6 +122,10 @@ def run_generated(c: g.GenCase, folder: Path) -> tuple[int, str, Path]:
     return res.exit_code, " ".join((res.stderr or "").split()), target
 
 
+def special_no_out(c: g.GenCase) -> bool:
+    return c.id == "run_output_is_folder"  # the config's [run] output names the folder
+
+
 def check_case(c: g.GenCase, folder: Path) -> None:
     code, msg, target = run_generated(c, folder)
     assert code in (0, 2), f"exit {code}: {msg}"
@@ -132,6 +139,8 @@ def check_case(c: g.GenCase, folder: Path) -> None:
     f = pyogrio.read_dataframe(target, layer="findings", read_geometry=False)
     on_feature = set(f.loc[f["feature_id"].astype(str).str.startswith(c.feature), "kind"]) \
         if c.feature else set()
+    if c.finding is not None:
+        assert c.finding[0] in on_feature, (c.id, sorted(on_feature))
     if c.expect == "implausible":
         assert "implausible_value" in on_feature, (c.id, sorted(on_feature))
     if c.expect == "missing" and c.category.startswith("field:"):
