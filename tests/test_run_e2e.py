@@ -253,7 +253,10 @@ def test_nonconvergence_exits_3_with_diagnostics(tmp_path):
     res = _run("run", str(cfg), "--out", str(out))
     assert res.exit_code == 3, res.output
     assert "did not converge" in res.output
-    f = pyogrio.read_dataframe(out, layer="findings", read_geometry=False)
+    assert not out.exists()  # no output set: the diagnostics go beside it
+    diag = out.with_name("diag.diagnostics.gpkg")
+    assert "diag.diagnostics.gpkg" in res.output
+    f = pyogrio.read_dataframe(diag, layer="findings", read_geometry=False)
     worst = f[f["kind"] == "not_converged"]
     assert len(worst) == 10 and (worst["severity"] == "error").all()
     assert worst["feature_id"].iloc[0] in res.output

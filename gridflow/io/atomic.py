@@ -104,12 +104,13 @@ def remove_stale_temporaries(target: str | Path) -> list[Path]:
     return removed
 
 
-def _oserror(path: Path, exc: OSError, what: str = "write") -> OutputError:
-    return OutputError(f"cannot {what} {path}: {exc.strerror or exc}", file=str(path))
+def _oserror(path: Path, exc: OSError, verb: str = "write", what: str = "") -> OutputError:
+    return OutputError(f"cannot {verb} {what + ' ' if what else ''}{path}: "
+                       f"{exc.strerror or exc}", file=str(path))
 
 
 def atomic_write(path: str | Path, write: Callable[[Path], object], *,
-                 mode: int = 0o644) -> Path:
+                 mode: int = 0o644, what: str = "") -> Path:
     """Write one file atomically: ``write(tmp)`` fills a temporary, renamed onto ``path``.
 
     Parameters
@@ -120,6 +121,8 @@ def atomic_write(path: str | Path, write: Callable[[Path], object], *,
         Called with the temporary's path (which does not exist yet); must create it.
     mode : int
         Permission bits of the written file.
+    what : str
+        What the file is, for messages (e.g. "the report").
 
     Raises
     ------
@@ -128,17 +131,18 @@ def atomic_write(path: str | Path, write: Callable[[Path], object], *,
         after the temporary is removed.
     """
     with OutputSet([path]) as outs:
-        outs.write(path, write, mode=mode)
+        outs.write(path, write, mode=mode, what=what)
         outs.commit()
     return Path(path)
 
 
-def write_text(path: str | Path, text: str, *, encoding: str = "utf-8") -> Path:
+def write_text(path: str | Path, text: str, *, encoding: str = "utf-8",
+               what: str = "") -> Path:
     """Write a text file atomically (see :func:`atomic_write`)."""
     def _w(tmp: Path) -> None:
         with open(tmp, "x", encoding=encoding) as fh:
             fh.write(text)
-    return atomic_write(path, _w)
+    return atomic_write(path, _w, what=what)
 
 
 class OutputSet:
@@ -169,7 +173,7 @@ class OutputSet:
         return list(self._temps.values())
 
     def write(self, target: str | Path, write: Callable[[Path], object], *,
-              mode: int = 0o644) -> Path:
+              mode: int = 0o644, what: str = "") -> Path:
         """Fill the target's temporary with ``write(tmp)``; the target is not touched yet."""
         target = Path(target)
         tmp = self._temps[target]
@@ -183,7 +187,7 @@ class OutputSet:
             _remove(tmp)
             if isinstance(exc, OutputError) or exc.errno not in _PLACE_ERRNOS:
                 raise  # e.g. a full disk: not the output's place, passed on as it is
-            raise _oserror(target, exc) from None
+            raise _oserror(target, exc, what=what) from None
         except BaseException:
             _remove(tmp)
             raise

@@ -95,9 +95,9 @@ def check_outputs(outputs: Mapping[str, Path], inputs: Mapping[str, Path]) -> No
     for what, out in outs:
         for iwhat, inp in inputs.items():
             if same_file(out, Path(inp)):
-                raise OutputError(f"the {what} {out} would overwrite the {iwhat} {inp}: gridflow "
-                                  "never writes to an input; choose another --out (or rename "
-                                  "the input)", file=str(out))
+                raise OutputError(f"the {what} {out} is one of the inputs (the {iwhat} {inp}): "
+                                  "gridflow never writes to an input; choose another --out (or "
+                                  "rename the input)", file=str(out))
     for i, (what, out) in enumerate(outs):
         for what2, out2 in outs[i + 1:]:
             if same_file(out, out2):

@@ -669,4 +669,4 @@ def _write_atomic(path: Path, text: str) -> None:
     """The page, written through the one atomic-write helper (:mod:`gridflow.io.atomic`)."""
     from gridflow.io.atomic import write_text
 
-    write_text(path, text)
+    write_text(path, text, what="the report")

@@ -131,7 +131,15 @@ def field_cases() -> list[GenCase]:
             if col is None:
                 continue
             r = _range(role, f)
-            for vname, v in FIELD_VALUES:
+            extra_values = []
+            f_si = _si(role, f, 1.0, sec)  # field unit -> SI
+            if r.p_hi < r.hi:  # possible but implausible, above
+                hi = min(r.hi, r.p_hi * 4 if r.p_hi > 0 else r.hi)
+                extra_values.append(("implausible_high", round((r.p_hi + hi) / 2 / f_si, 6)))
+            if r.p_lo > max(r.lo, -1e9):  # possible but implausible, below
+                extra_values.append(("implausible_low", round((r.p_lo + max(r.lo, 0.0))
+                                                               / 2 / f_si, 6)))
+            for vname, v in FIELD_VALUES + extra_values:
                 if isinstance(v, str):
                     expect = "stop" if v.strip() else "missing"
                 elif math.isnan(v):

@@ -175,6 +175,6 @@ def test_corpus_covers_every_field_and_key():
     want = {f"{r}.{f}" for r, fs in FIELD_RANGES.items() for f in fs}
     assert want <= fields, sorted(want - fields)
     for f in want:
-        assert sum(c.id.startswith(f + "=") for c in ALL) == len(g.FIELD_VALUES)
+        assert sum(c.id.startswith(f + "=") for c in ALL) >= len(g.FIELD_VALUES)
     keys = {c.extra["key"] for c in ALL if c.category.startswith("config:")}
     assert len(keys) == len(CONFIG_RANGES)
