@@ -126,8 +126,17 @@ def special_no_out(c: g.GenCase) -> bool:
     return c.id == "run_output_is_folder"  # the config's [run] output names the folder
 
 
+def _record(c: g.GenCase, outcome: str) -> None:
+    """With GRIDFLOW_CORPUS_LOG set, one line per case: id, category, expectation, outcome."""
+    log = os.environ.get("GRIDFLOW_CORPUS_LOG")
+    if log:
+        with open(log, "a", encoding="utf-8") as fh:
+            fh.write(f"{c.id}\t{c.category}\t{c.expect}\t{outcome}\n")
+
+
 def check_case(c: g.GenCase, folder: Path) -> None:
     code, msg, target = run_generated(c, folder)
+    _record(c, f"exit {code}")
     assert code in (0, 2), f"exit {code}: {msg}"
     if c.expect == "stop":
         assert code == 2, f"expected exit 2, got {code}: {msg}"
@@ -139,6 +148,7 @@ def check_case(c: g.GenCase, folder: Path) -> None:
     f = pyogrio.read_dataframe(target, layer="findings", read_geometry=False)
     on_feature = set(f.loc[f["feature_id"].astype(str).str.startswith(c.feature), "kind"]) \
         if c.feature else set()
+    _record(c, "finding" if on_feature else "no finding")
     if c.finding is not None:
         assert c.finding[0] in on_feature, (c.id, sorted(on_feature))
     if c.expect == "implausible":
