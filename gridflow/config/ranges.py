@@ -114,6 +114,9 @@ CONFIG_RANGES: dict[str, Range] = {
     "fireflow.batch_size": Range(1, 1_000_000),
     "fireflow.progress_every": Range(1, 1_000_000),
     "report.worst_rows": Range(1, 100_000),
+    "segments.max_length": _len(0, 1_000_000),
+    "segments.max_meters": Range(0, 10_000_000),
+    "segments.batch_size": Range(1, 1_000_000),
 }
 
 

@@ -236,7 +236,7 @@ def bad_coordinates(geoms: np.ndarray) -> np.ndarray:
     return bad
 
 
-def check_layer(cfg, role: str, info, data: dict, ids: np.ndarray, geoms: np.ndarray,
+def check_layer(cfg, role: str, sec, info, data: dict, ids: np.ndarray, geoms: np.ndarray,
                 findings: Findings) -> np.ndarray:
     """Check a role's converted numeric fields in ``data`` (changed in place: blank text ->
     NaN); returns the rows to leave out (non-finite coordinates, each with an error finding).
@@ -247,7 +247,6 @@ def check_layer(cfg, role: str, info, data: dict, ids: np.ndarray, geoms: np.nda
         Naming file, layer, feature id and field: text where a number belongs, a value that
         is not finite or is outside its valid range.
     """
-    sec = getattr(cfg.layers, role)
     numeric = {r: f for r, f in sec.fields.items() if r in FIELD_RANGES.get(role, {})}
     where = f"{info.file}: layer {info.layer!r}"
 
@@ -258,7 +257,8 @@ def check_layer(cfg, role: str, info, data: dict, ids: np.ndarray, geoms: np.nda
             if txt.strip():
                 raise InputError(f"{where}, feature {fid}: field {fname!r} holds {txt!r} where "
                                  "a number belongs (write the number alone; its unit is "
-                                 f"layers.{role}.units.{role_name})", file=str(info.file),
+                                 f"{getattr(info, 'key', 'layers.' + role)}.units.{role_name})",
+                                 file=str(info.file),
                                  layer=info.layer, feature_id=fid, field=fname)
         blank = [fid for fid, txt in texts.get(fname, []) if not txt.strip()]
         if blank and role_name in data:
@@ -275,7 +275,7 @@ def check_layer(cfg, role: str, info, data: dict, ids: np.ndarray, geoms: np.nda
             vals = vals * _flow_factor(cfg.demand.consumption_unit)
         groups = [(np.ones(len(vals), bool), vals, r)]
         if (role, role_name) == ("valves", "setting"):
-            groups = _setting_groups(sec, data, vals, r)
+            groups = _setting_groups(data, vals, r)
         for mask, v, rr in groups:
             _check_values(v, mask, rr, fname, ids, geoms, info, where, findings)
 
@@ -310,17 +310,14 @@ _PRV = FieldRange(0.0, 1000 * M_HEAD_PER_PSI, p_hi=200 * M_HEAD_PER_PSI, unit="p
                   source="common practice: PRVs on distribution mains hold 30-150 psi")
 
 
-def _setting_groups(sec, data, vals, r):
-    """PRV settings checked as pressures (:data:`_PRV`), other settings (throttle K) raw."""
-    from gridflow.config.layers import unit_factor
-
+def _setting_groups(data, vals, r):
+    """PRV settings (already metres of head) checked as pressures (:data:`_PRV`), other
+    settings (throttle K) as plain numbers."""
     types = data.get("type")
-    unit = sec.units.get("setting")
-    if types is None or unit is None:
+    if types is None:
         return [(np.ones(len(vals), bool), vals, r)]
     prv = np.asarray([str(t).lower() == "prv" for t in types], dtype=bool)
-    factor = unit_factor("valves", "setting", unit)
-    return [(prv, vals * factor, _PRV), (~prv, vals, r)]
+    return [(prv, vals, _PRV), (~prv, vals, r)]
 
 
 def _check_values(vals, mask, r: FieldRange, fname, ids, geoms, info, where,
