@@ -22,6 +22,7 @@ import shapely
 from gridflow.config.layers import unit_factor
 from gridflow.errors import InputError, TopologyError
 from gridflow.topology.records import Context, Pipes
+from gridflow.units import INCH
 
 __all__ = ["prepare_pipes", "z_factor", "MAX_DIAMETER_M", "MIN_DIAMETER_M", "C_RANGE", "INCH_M"]
 
