@@ -18,7 +18,7 @@ from pathlib import Path
 
 from gridflow.errors import GridflowError, InputError, OutputError
 
-__all__ = ["require_regular_file", "check_outputs", "same_file"]
+__all__ = ["require_regular_file", "check_outputs", "same_file", "input_paths"]
 
 
 def _kind(mode: int) -> str:
@@ -116,3 +116,21 @@ def check_outputs(outputs: Mapping[str, Path], inputs: Mapping[str, Path]) -> No
         if not os.access(folder, os.W_OK | os.X_OK):
             raise OutputError(f"output folder {folder} is not writable (for the {what} {out})",
                               file=str(out))
+
+
+def input_paths(cfg, previous: str | Path | None = None) -> dict[str, Path]:
+    """Every file a run reads (config, inputs, DEM, ``previous``), by what it is; each
+    checked to be a regular file (:func:`require_regular_file`)."""
+    out: dict[str, Path] = {}
+    if cfg.path is not None:
+        out["config"] = require_regular_file(cfg.path, "config", key=None)
+    for name, p in cfg.inputs.items():
+        out[f"input {name!r}"] = require_regular_file(cfg.resolve(p), "input file",
+                                                      key=f"inputs.{name}")
+    if cfg.elevation.source == "dem" and cfg.elevation.dem:
+        out["DEM"] = require_regular_file(cfg.resolve(cfg.elevation.dem), "DEM raster",
+                                          key="elevation.dem")
+    if previous:
+        out["previous output (--previous)"] = require_regular_file(
+            Path(previous), "previous output (--previous)")
+    return out

@@ -80,8 +80,7 @@ def check_job(config_path, out=None) -> int:
     start = _dt.datetime.now(_dt.UTC)
     cfg = load_config(config_path)
     out_path = Path(out) if out else cfg.resolve(cfg.run.output)
-    from gridflow.io.paths import check_outputs
-    from gridflow.jobs.run import input_paths
+    from gridflow.io.paths import check_outputs, input_paths
 
     # before anything is read: inputs are regular files, the output is none of them
     check_outputs({"output GeoPackage": out_path}, input_paths(cfg))

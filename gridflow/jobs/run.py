@@ -96,25 +96,6 @@ def output_paths(out_path: Path) -> dict[str, Path]:
             "diagnostics file": out_path.with_name(f"{stem}.diagnostics.gpkg")}
 
 
-def input_paths(cfg: Config, previous: str | Path | None = None) -> dict[str, Path]:
-    """Every file a run reads, by what it is; each checked to be a regular file."""
-    from gridflow.io.paths import require_regular_file
-
-    out: dict[str, Path] = {}
-    if cfg.path is not None:
-        out["config"] = require_regular_file(cfg.path, "config", key=None)
-    for name, p in cfg.inputs.items():
-        out[f"input {name!r}"] = require_regular_file(cfg.resolve(p), "input file",
-                                                      key=f"inputs.{name}")
-    if cfg.elevation.source == "dem" and cfg.elevation.dem:
-        out["DEM"] = require_regular_file(cfg.resolve(cfg.elevation.dem), "DEM raster",
-                                          key="elevation.dem")
-    if previous:
-        out["previous output (--previous)"] = require_regular_file(
-            Path(previous), "previous output (--previous)")
-    return out
-
-
 def _input_sha256(cfg: Config, name: str, p: str) -> str:
     path = cfg.resolve(p)
     try:
@@ -170,7 +151,7 @@ def check_output_path(out_path: Path, cfg: Config, previous: str | Path | None =
     folder, nor sit in a folder that cannot be written. ``--previous`` may be the output
     GeoPackage itself (it is read before anything is written). Returns the outputs.
     """
-    from gridflow.io.paths import check_outputs
+    from gridflow.io.paths import check_outputs, input_paths
 
     outputs = output_paths(out_path)
     inputs = input_paths(cfg, previous)
