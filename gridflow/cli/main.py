@@ -43,7 +43,8 @@ def setup_logging(verbose: int, quiet: int) -> None:
 # one registry of shared options
 config_arg = click.argument("config", type=click.Path(dir_okay=False))
 out_opt = click.option("--out", "out", type=click.Path(dir_okay=False), default=None,
-                       help="output GeoPackage (default: [run] output in the config)")
+                       help="output GeoPackage, or a PostgreSQL database and schema "
+                            "('service=NAME schema=NAME'; default: [run] output)")
 
 
 @click.group()

@@ -11,7 +11,8 @@ from gridflow.cli.main import cli, config_arg, out_opt, run_guarded
 @config_arg
 @out_opt
 @click.option("--previous", type=click.Path(dir_okay=False), default=None,
-              help="last night's output GeoPackage, for the changes layer")
+              help="last night's output GeoPackage (or database schema, as for --out), for "
+                   "the changes layer")
 @click.option("--workers", type=int, default=None,
               help="local worker processes for the fire-flow sweep (default: the machine's cores)")
 @click.option("--scheduler", default=None,

@@ -120,17 +120,22 @@ def check_outputs(outputs: Mapping[str, Path], inputs: Mapping[str, Path]) -> No
 
 def input_paths(cfg, previous: str | Path | None = None) -> dict[str, Path]:
     """Every file a run reads (config, inputs, DEM, ``previous``), by what it is; each
-    checked to be a regular file (:func:`require_regular_file`)."""
+    checked to be a regular file (:func:`require_regular_file`). Database inputs (PostGIS)
+    are not files and are left out."""
+    from gridflow.config.database import is_database
+
     out: dict[str, Path] = {}
     if cfg.path is not None:
         out["config"] = require_regular_file(cfg.path, "config", key=None)
     for name, p in cfg.inputs.items():
+        if is_database(p):
+            continue
         out[f"input {name!r}"] = require_regular_file(cfg.resolve(p), "input file",
                                                       key=f"inputs.{name}")
     if cfg.elevation.source == "dem" and cfg.elevation.dem:
         out["DEM"] = require_regular_file(cfg.resolve(cfg.elevation.dem), "DEM raster",
                                           key="elevation.dem")
-    if previous:
+    if previous and not is_database(previous):
         out["previous output (--previous)"] = require_regular_file(
             Path(previous), "previous output (--previous)")
     return out
