@@ -191,8 +191,8 @@ def stored_text(file: Path, layer: str, id_field: str, fields: list[str],
     ``''`` -> 0) although it is not one. Other formats (and unreadable files) give ``{}``.
     """
     out: dict[str, list[tuple[str, str]]] = {}
-    if not fields or Path(file).suffix.lower() != ".gpkg":
-        return out
+    if not fields or not isinstance(file, (str, Path)) or Path(file).suffix.lower() != ".gpkg":
+        return out  # a database column has one type: the reader's conversion says so
     try:
         con = sqlite3.connect(f"{Path(file).resolve().as_uri()}?mode=ro", uri=True)
     except sqlite3.Error:
