@@ -18,7 +18,7 @@ from collections.abc import Callable, Iterable
 from typing import Any
 
 from gridflow.errors import ConfigError
-from gridflow.units import FT, GPM, KPA_PER_M_HEAD, M_HEAD_PER_PSI, RHO_WATER, G
+from gridflow.units import FT, GPM, INCH, KPA_PER_M_HEAD, M_HEAD_PER_PSI, RHO_WATER, G
 
 __all__ = [
     "opt",
@@ -250,7 +250,7 @@ def _show_default(value: Any, parser: Parser) -> str:
     if isinstance(value, float) and doc in _SHOW_UNITS:
         us, f_us, si, f_si = _SHOW_UNITS[doc]
         if doc == "length" and 0 < value < 0.3:  # diameters, roughness: inches and mm
-            us, f_us, si, f_si = "in", 1 / 0.0254, "mm", 1000.0
+            us, f_us, si, f_si = "in", 1 / INCH, "mm", 1000.0
         return f"'{_nice(value * f_us, 3)} {us}' / '{_nice(value * f_si, 3)} {si}'"
     return repr(value)
 
