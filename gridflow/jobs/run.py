@@ -154,7 +154,7 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
     from gridflow.analysis.changes import compare_flags, flag_set, read_previous_flags
     from gridflow.demand import allocate, run_info_rows, scenario_network
     from gridflow.io.write import write_geopackage
-    from gridflow.jobs.layers import nodes_layer, pipes_layer
+    from gridflow.jobs.stages import scenario_layers
     from gridflow.topology import build_network
 
     t_start = time.perf_counter()
@@ -200,8 +200,6 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
         opts = solve_options(cfg)
         layers: dict[str, object] = {}
         results: dict[str, tuple[Network, HydraulicResult, HydraulicSystem]] = {}
-        rating = getattr(clean.links, "pressure_rating_m", None)
-        rating = None if rating is None else np.asarray(rating, dtype=float)
         failure: ConvergenceError | None = None
         shared: HydraulicSystem | None = None  # one symbolic analysis for every scenario
         for name in cfg.scenarios:
@@ -239,10 +237,7 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
                              msg, clean.links.geometry.values[wl])
                 failure = ConvergenceError(msg, node_id=net.node_id[wn], link_id=net.link_id[wl])
                 break
-            nodes = nodes_layer(net, r, clean.nodes.geometry.values, clean.crs, cfg.criteria,
-                                system_units)
-            pipes = pipes_layer(net, r, clean.links.geometry.values, clean.crs, cfg.criteria,
-                                system_units, rating)
+            nodes, pipes = scenario_layers(cfg, clean, net, r)
             for flag in ("low_pressure", "high_pressure", "negative_pressure"):
                 info.append((f"{name}:{flag}", str(int(nodes[flag].sum()))))
             info.append((f"{name}:unsupplied", str(int((nodes["supplied"] == 0).sum()))))
@@ -340,16 +335,13 @@ def _worst_nodes(net: Network, system: HydraulicSystem, r: HydraulicResult, k: i
 
 
 def _fireflow(cfg, clean, results, opts, workers, scheduler, findings, info):
-    from gridflow.analysis.fireflow import sweep
-    from gridflow.jobs.layers import hydrants_layer
+    from gridflow.jobs.stages import fireflow_layer
 
     name = cfg.fireflow.scenario
     net, base, _ = results[name]
     t0 = time.perf_counter()
-    hyd = clean.hydrants
-    ff = sweep(net, base, pd.DataFrame(hyd.drop(columns="geometry")), cfg.fireflow,
-               cfg.criteria, options=opts, workers=workers, scheduler=scheduler,
-               progress=terminal_progress("fire flow"))
+    ff, layer = fireflow_layer(cfg, clean, net, base, opts, workers=workers,
+                               scheduler=scheduler, progress=terminal_progress("fire flow"))
     below = ff.attrs.get("base_below_minimum", [])
     if len(below):
         idx = net.node_index(below)
@@ -357,9 +349,6 @@ def _fireflow(cfg, clean, results, opts, workers, scheduler, findings, info):
                           f"pressure is below the fire-flow system minimum in scenario {name} "
                           "before any fire draw; not counted as limiting each hydrant",
                           list(clean.nodes.geometry.values[idx]))
-    order = pd.Index(ff["hydrant_id"].astype(str))
-    geo = hyd.set_index(hyd["hydrant_id"].astype(str)).geometry.reindex(order).values
-    layer = hydrants_layer(ff, geo, clean.crs, cfg.run.units)
     info += [("fireflow:scenario", name), ("fireflow:hydrants", str(len(ff))),
              ("fireflow:failing", str(int((ff["meets_required"] == 0).sum()))),
              ("fireflow:seconds", f"{time.perf_counter() - t0:.2f}")]
