@@ -133,7 +133,7 @@ class Model:
     >>> model
     <gridflow.Model 'Millbrook nightly run (sample data)': 2885 nodes, 4019 links, ...>
     >>> main = model.pipes.set_index("pipe_id").loc["WM-10001"]
-    >>> main.kind, round(main.diameter_in, 1), main.material
+    >>> main.kind, float(round(main.diameter_in, 1)), main.material
     ('pipe', 24.0, 'steel')
     """
 
