@@ -617,8 +617,9 @@ def draft_config(gis: str | Path, *, config_dir: str | Path | None = None) -> st
     --------
     >>> import gridflow
     >>> text = gridflow.draft_config("sample_gis/millbrook.gpkg")
-    >>> print(next(line for line in text.splitlines() if line.startswith("fields.diameter")))
-    fields.diameter = "DIAM_IN"                # DIAM_IN: float, 4-24, 1 of 2817 empty, unit in from the name
+    >>> line = next(ln for ln in text.splitlines() if ln.startswith("fields.diameter"))
+    >>> print(line.replace("  ", ""))
+    fields.diameter = "DIAM_IN"# DIAM_IN: float, 4-24, 1 of 2817 empty, unit in from the name
     >>> "[layers.hydrants]" in text and 'layer = "Hydrants"' in text
     True
     """
@@ -627,7 +628,7 @@ def draft_config(gis: str | Path, *, config_dir: str | Path | None = None) -> st
     roles = _assign_roles(layers)
     if "pipes" not in roles:
         raise InputError(f"{gis}: no line layer to take as the water mains (layers: "
-                         f"{', '.join(f'{l.name} ({l.geometry})' for l in layers) or 'none'})",
+                         f"{', '.join(f'{x.name} ({x.geometry})' for x in layers) or 'none'})",
                          file=str(gis))
     base = Path(config_dir) if config_dir is not None else gis.parent
     rel = os.path.relpath(gis.resolve(), base.resolve())
@@ -659,7 +660,7 @@ def count_checks(text: str) -> int:
 
 
 def _unit_system(roles: dict[str, LayerInfo], matched: dict) -> str:
-    votes = Counter()
+    votes: Counter[str] = Counter()
     for role, fields in matched.items():
         for fr, (f, _) in fields.items():
             table = NUMERIC_FIELDS[role].get(fr)
@@ -910,7 +911,7 @@ def _demand_section(w: _Writer, roles: dict[str, LayerInfo], matched: dict) -> N
     if "category" in meters:
         cf = meters["category"][0]
         cats: dict[str, list[str]] = {}
-        unknown = []
+        unknown: list[str] = []
         for code in sorted(cf.counts):
             t = _lookup(_CATEGORIES, code)
             (cats.setdefault(t, []) if t else unknown).append(code)
