@@ -77,10 +77,23 @@ class Findings:
         return int(m.sum())
 
     def to_geodataframe(self, crs=None):
-        """The ``findings`` layer as a GeoDataFrame (geometry may be empty per row)."""
-        import geopandas as gpd
+        """The ``findings`` layer as a GeoDataFrame (geometry may be empty per row).
 
+        A line of zero length (a pipe whose ends meet) is written as its point: a map draws
+        nothing for a degenerate line, and the finding must be visible where it is.
+        """
+        import geopandas as gpd
+        import shapely
+
+        geoms = np.empty(len(self.geometry), dtype=object)
+        geoms[:] = self.geometry
+        lines = np.isin(shapely.get_type_id(geoms), (1, 5))
+        degenerate = np.flatnonzero(lines & (shapely.length(geoms) == 0.0))
+        if degenerate.size:
+            xy, owner = shapely.get_coordinates(geoms[degenerate], return_index=True)
+            first = np.unique(owner, return_index=True)[1]
+            geoms[degenerate[owner[first]]] = shapely.points(xy[first])
         return gpd.GeoDataFrame(
             {"kind": self.kind, "severity": self.severity, "layer": self.layer,
              "feature_id": self.feature_id, "message": self.message},
-            geometry=gpd.GeoSeries(list(self.geometry), crs=crs), crs=crs)
+            geometry=gpd.GeoSeries(geoms, crs=crs), crs=crs)

@@ -6,6 +6,13 @@ cd "$(dirname "$0")/.."
 if ! command -v chromium >/dev/null 2>&1 && [ "$(id -u)" = 0 ] && command -v apt-get >/dev/null; then
   (apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq chromium) >/dev/null
 fi
+# the style test opens the results in a real desktop GIS (Debian's QGIS Python bindings,
+# run by the system Python)
+if ! /usr/bin/python3 -c "import qgis.core" >/dev/null 2>&1 && [ "$(id -u)" = 0 ] \
+    && command -v apt-get >/dev/null; then
+  (apt-get update -qq && DEBIAN_FRONTEND=noninteractive \
+    apt-get install -y -qq --no-install-recommends python3-qgis) >/dev/null
+fi
 python3 -m venv .venv
 .venv/bin/python -m pip install --quiet --upgrade pip
 .venv/bin/python -m pip install --quiet -e '.[test]'

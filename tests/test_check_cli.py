@@ -57,7 +57,7 @@ def test_check_writes_layers(project):
     assert "findings:" in r.output and "model estimates" in r.output
     out = tmp / "out.gpkg"
     names = set(pyogrio.list_layers(out)[:, 0])
-    assert names == {"findings", "nodes_network", "pipes_network", "run_info"}
+    assert names == {"findings", "nodes_network", "pipes_network", "run_info", "layer_styles"}
     pipes = gpd.read_file(out, layer="pipes_network")
     assert list(pipes.pipe_id) == ["P1", "P2", "P3"]
     assert {"length_ft", "diameter_in", "from_node", "to_node"} <= set(pipes.columns)

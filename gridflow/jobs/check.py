@@ -99,7 +99,7 @@ def check_job(config_path, out=None) -> int:
     run_info = pd.DataFrame(info, columns=["key", "value"])
     write_geopackage(out_path, {"findings": fgdf, "nodes_network": nodes,
                                 "pipes_network": links, "run_info": run_info},
-                     inputs=[*clean.inputs, *([cfg.path] if cfg.path else [])])
+                     inputs=[*clean.inputs, *([cfg.path] if cfg.path else [])], styles=True)
     kinds = pd.Series(findings.kind, dtype=object)
     print(f"gridflow check: {clean.network.n_nodes} nodes, {clean.network.n_links} links, "
           f"{len(clean.hydrants)} hydrants, {len(set(clean.network.zone))} zones")
