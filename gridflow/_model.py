@@ -476,10 +476,12 @@ class Model:
         sec = self.config.layers.hydrants
         layer = sec.layer if sec is not None else None
         f = self.findings
-        why = f.loc[f.feature_id.astype(str) == missing[0], "message"]
-        reason = f" ({why.iloc[0]})" if len(why) else ""
-        raise InputError(f"hydrant {missing[0]} is not attached to the network{reason}",
-                         layer=layer, feature_id=missing[0])
+        why = f.loc[(f.feature_id.astype(str) == missing[0]) & (f.layer == layer), "message"]
+        if not len(why):
+            raise InputError(f"no hydrant with id {missing[0]!r} in layer {layer!r}",
+                             layer=layer, feature_id=missing[0])
+        raise InputError(f"hydrant {missing[0]} is not attached to the network "
+                         f"({why.iloc[0]})", layer=layer, feature_id=missing[0])
 
 
 def _check_solution(system: HydraulicSystem, r: HydraulicResult,

@@ -161,6 +161,8 @@ def test_errors_are_the_typed_errors_the_cli_maps(model, tmp_path):
     with pytest.raises(gridflow.InputError, match="HYD-1413 is not attached") as e:
         model.fire_flow(["HYD-1413"])  # the hydrant in the golf course
     assert e.value.exit_code == 2
+    with pytest.raises(gridflow.InputError, match="no hydrant with id 'HYD-0' in layer"):
+        model.fire_flow("HYD-0")
     # the same unknown valve through the config is exit 2 on the command line
     text = _config(tmp_path, fireflow=False).read_text().replace(
         "[scenarios.max_day]\nfactor = 1.8\n",

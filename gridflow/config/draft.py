@@ -390,6 +390,9 @@ def _layer_score(role: str, layer: LayerInfo) -> float:
     if layer.kind != want:
         return 0.0
     score = 0.0
+    if role == "pipes" and _tokens(layer.name) & _w("SERVICE", "SERVICES", "SVC", "LATERAL",
+                                                     "LATERALS", "ABANDONED", "PROPOSED"):
+        score -= 2.0  # service lines and laterals are not mains
     if _tokens(layer.name) & _LAYER_WORDS[role] or any(
             w in layer.name.upper() for w in _LAYER_WORDS[role] if len(w) >= 5):
         score += 3.0

@@ -140,6 +140,10 @@ def _odd_gis(path: Path) -> None:
                               "In Service", "InstallYear": 1950 + k,
                               "PressureZone": "Low", "geometry": L((x0, y0), (x1, y1))})
     layer(path, "WL_2024", mains)
+    # service lines to the meters: lines too, but not mains
+    layer(path, "ServiceLines", [{"SvcID": f"S{n}", "Size": 1.0,
+                                  "geometry": L((50 + 20 * n, 0), (50 + 20 * n, 12))}
+                                 for n in range(5)])
     layer(path, "FireHydrants_pt", [
         {"HydrantNo": f"FH{n}", "GroundElev_m": 120.0 + n, "geometry": P(100 + 200 * n, 3)}
         for n in range(3)])
@@ -189,6 +193,7 @@ def test_odd_names_and_si_units(tmp_path):
     assert d["demand"]["categories"]["residential"]["codes"] == ["RES"]
     assert d["elevation"]["source"] == "attribute"
     assert "tanks" not in d["layers"] and "pumps" not in d["layers"]
+    assert "#   ServiceLines: LineString, 5 feature(s), EPSG:32616 (not used)" in text
     load_config(out)  # the draft is a valid config as written
     res = _cli("-q", "check", out, "--out", tmp_path / "check.gpkg")
     assert res.exit_code == 0, res.output
