@@ -6,6 +6,7 @@ expects. The commented example is ``sample_gis/millbrook.toml``.
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 import tomllib
 from dataclasses import dataclass, field, fields
@@ -22,6 +23,7 @@ from gridflow.config.layers import (
 )
 from gridflow.config.schema import opt, parse_section, section, table_of
 from gridflow.config.sections import CriteriaSection, RunSection, SolverSection
+from gridflow.config.segments import SegmentsSection
 from gridflow.errors import ConfigError
 
 __all__ = ["Config", "load_config", "parse_config"]
@@ -52,6 +54,9 @@ class Config:
                           doc="named demand scenarios (default average_day, max_day, peak_hour)")
     fireflow: FireflowSection = opt(parse=section(FireflowSection),
                                     default_factory=FireflowSection, doc="fire-flow sweep")
+    segments: SegmentsSection = opt(parse=section(SegmentsSection),
+                                    default_factory=SegmentsSection,
+                                    doc="valve segments and shutdown criticality")
     report: ReportSection = opt(parse=section(ReportSection), default_factory=ReportSection,
                                 doc="HTML report")
     raw: dict = field(default_factory=dict, repr=False)
@@ -83,6 +88,20 @@ def parse_config(table: dict, *, base_dir: Path = Path("."), path: Path | None =
         raise ConfigError(f"config key fireflow.scenario names {cfg.fireflow.scenario!r}, which "
                           f"is not a scenario ({', '.join(cfg.scenarios)})",
                           key="fireflow.scenario")
+    seg = cfg.segments
+    if seg.scenario not in cfg.scenarios:
+        explicit = isinstance(table.get("segments"), dict) and "scenario" in table["segments"]
+        if explicit and seg.enabled and seg.criticality:
+            raise ConfigError(f"config key segments.scenario names {seg.scenario!r}, which is "
+                              f"not a scenario ({', '.join(cfg.scenarios)})",
+                              key="segments.scenario")
+        if cfg.scenarios:  # the default names a scenario this config does not have
+            seg = dataclasses.replace(seg, scenario=next(iter(cfg.scenarios)))
+            cfg = dataclasses.replace(cfg, segments=seg)
+    if seg.batch_size < 1 or seg.max_meters < 0:
+        key = "segments.batch_size" if seg.batch_size < 1 else "segments.max_meters"
+        raise ConfigError(f"config key {key} must be a whole number of at least "
+                          f"{1 if key.endswith('batch_size') else 0}", key=key)
     return Config(**{k: getattr(cfg, k) for k in _SECTIONS}, raw=table, base_dir=base_dir,
                   path=path, sha256=sha256)
 

@@ -125,6 +125,16 @@ LAYER_STYLES: dict[str, tuple[str, list[Rule]]] = {
         ("open", "ELSE", Line(PALETTE["quiet"], 0.35)),
     ]),
     "hydrants_fireflow": ("point", _hydrant_rules()),
+    "segments": ("line", [
+        ("closing it cuts off other customers", '"cut_off_meters" > 0 OR "cut_off_hydrants" > 0',
+         Line(PALETTE["critical"], 1.6, level=3)),
+        ("no valve can isolate it", '"cannot_isolate" = 1',
+         Line(PALETTE["unsupplied"], 1.4, level=3)),
+        ("larger than the size bounds", '"oversized" = 1', Line(PALETTE["warning"], 1.2, level=2)),
+        ("among the ten most critical", '"criticality_rank" <= 10',
+         Line(PALETTE["high"], 1.2, level=2)),
+        ("other segments", "ELSE", Line(PALETTE["quiet"], 0.5)),
+    ]),
     "findings": ("mixed", [
         ("error: must be fixed", "\"severity\" = 'error'",
          Marker(PALETTE["critical"], 3.4, level=3)),

@@ -252,6 +252,18 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
             layers["hydrants_fireflow"] = _fireflow(cfg, clean, results, opts, workers,
                                                     scheduler, findings, info)
 
+        if failure is None and cfg.segments.enabled:
+            from gridflow.jobs.segments import segments_step
+
+            t0 = time.perf_counter()
+            seg_name = cfg.segments.scenario if cfg.segments.scenario in results else \
+                next(iter(results))
+            s_net, s_base, _ = results[seg_name]
+            layers["segments"] = segments_step(
+                cfg, clean, alloc, s_net, s_base, opts, workers=workers, scheduler=scheduler,
+                findings=findings, info=info, progress=terminal_progress("segment closures"))
+            info.append(("seconds_segments", f"{time.perf_counter() - t0:.2f}"))
+
         findings_gdf = findings.to_geodataframe(crs=clean.crs)
         layers["findings"] = findings_gdf
         if prev_flags is not None:
@@ -298,6 +310,10 @@ def _print_summary(out_path: Path, layers: dict, findings: Findings, report: boo
         h = layers["hydrants_fireflow"]
         print(f"  fire flow: {int((h['meets_required'] == 0).sum())} of {len(h)} hydrant(s) "
               "below their required flow")
+    if "segments" in layers:
+        g = layers["segments"]
+        print(f"  valve segments: {len(g)}, {int(g['oversized'].sum())} oversized, "
+              f"{int((g['cut_off_segments'] > 0).sum())} whose closure cuts off others")
     if "changes" in layers:
         c = layers["changes"]
         print(f"  since the previous run: {int((c['change'] == 'new').sum())} new, "
