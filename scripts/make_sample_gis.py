@@ -45,8 +45,8 @@ X0, Y0 = 612_000.0, 4_590_000.0  # local origin of the invented town [m]
 S = 80.0  # street grid spacing [m]
 FT = 0.3048
 
-LAYERS = ("WaterMains", "Hydrants", "SystemValves", "Tanks", "PumpStations", "SupplySources",
-          "CustomerMeters")
+LAYERS = ("WaterMains", "Hydrants", "SystemValves", "PRVStations", "Tanks", "PumpStations",
+          "SupplySources", "CustomerMeters")
 
 # --------------------------------------------------------------------------------------------
 # Terrain: ground elevation [ft] as a smooth function of local coordinates [m]
@@ -816,6 +816,11 @@ def frames(t: Town) -> dict[str, gpd.GeoDataFrame]:
                           BOUNDARY=1 if v.get("boundary") else 0))
     valves = gpd.GeoDataFrame(pd.DataFrame(vrows), geometry=_pt(vx, vy), crs=CRS)
     valves["SETTING_PSI"] = valves["SETTING_PSI"].astype("Float64")
+    # the PRV stations live in a layer of their own, with the direction they let water down
+    # (W: with the digitised direction of their main)
+    is_prv = (valves["VALVE_TYPE"] == "PRV").to_numpy()
+    prvs = valves[is_prv].reset_index(drop=True).assign(FLOW_DIR="W")
+    valves = valves[~is_prv].reset_index(drop=True).drop(columns=["SETTING_PSI"])
 
     tx, ty = zip(*(t.xy(r["key"]) for r in t.tanks))
     tanks = gpd.GeoDataFrame(
@@ -836,7 +841,7 @@ def frames(t: Town) -> dict[str, gpd.GeoDataFrame]:
         (q1, h1), (q2, h2), (q3, h3) = PUMP_CURVE
         prow.append(dict(PUMP_ID=p["PUMP_ID"], NAME=p["NAME"], STATUS=p["STATUS"],
                          Q1_GPM=q1, H1_FT=h1, Q2_GPM=q2, H2_FT=h2, Q3_GPM=q3, H3_FT=h3,
-                         DSGN_GPM=q2, DSGN_HD_FT=h2, MAIN_ID=p["main"].id,
+                         DSGN_GPM=q2, DSGN_HD_FT=h2, MAIN_ID=p["main"].id, FLOW_DIR="W",
                          ELEV_FT=float(np.round(ground_ft(x, y), 1))))
     pumps = gpd.GeoDataFrame(pd.DataFrame(prow), geometry=_pt(px, py), crs=CRS)
 
@@ -850,8 +855,8 @@ def frames(t: Town) -> dict[str, gpd.GeoDataFrame]:
         SVC_SIZE_IN=[SVC_IN[m["ACCT_CLASS"]] for m in mt],
         PRESS_ZONE=[m["zone"] for m in mt],
     ), geometry=_pt(mx, my), crs=CRS)
-    return dict(WaterMains=mains, Hydrants=hydrants, SystemValves=valves, Tanks=tanks,
-                PumpStations=pumps, SupplySources=sources, CustomerMeters=meters)
+    return dict(WaterMains=mains, Hydrants=hydrants, SystemValves=valves, PRVStations=prvs,
+                Tanks=tanks, PumpStations=pumps, SupplySources=sources, CustomerMeters=meters)
 
 
 def planted(t: Town) -> dict[str, object]:

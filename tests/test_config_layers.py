@@ -83,3 +83,50 @@ def test_hydrant_search_distance_parses_with_units():
 ])
 def test_unit_factors(role, field, unit, factor):
     assert unit_factor(role, field, unit) == pytest.approx(factor, rel=1e-4)
+
+
+def test_a_role_may_list_several_layers():
+    from gridflow.config.layers import layer_sections
+
+    t = _table()
+    t["layers"]["valves"] = [
+        {"input": "gis", "layer": "SystemValves", "id": "VID", "fields": {"status": "POS"}},
+        {"input": "gis", "layer": "PRVStations", "id": "SID",
+         "fields": {"type": "KIND", "setting": "SET", "direction": "BRG"},
+         "units": {"setting": "psi", "direction": "deg"}},
+    ]
+    cfg = parse_config(t)
+    secs = layer_sections(cfg.layers, "valves")
+    assert [s.layer for s in secs] == ["SystemValves", "PRVStations"]
+    assert cfg.layers.valves.layer == "SystemValves"  # the first, for one-layer readers
+    assert layer_sections(cfg.layers, "pipes")[0] is cfg.layers.pipes
+    assert layer_sections(cfg.layers, "hydrants") == ()
+
+
+def test_list_entries_are_named_by_position():
+    t = _table()
+    t["layers"]["valves"] = [
+        {"input": "gis", "layer": "A", "id": "V"},
+        {"input": "gis", "layer": "B", "id": "V", "fields": {"colour": "C"}},
+    ]
+    with pytest.raises(ConfigError, match=r"layers\.valves\[1\]\.fields\.colour"):
+        parse_config(t)
+    t["layers"]["valves"] = []
+    with pytest.raises(ConfigError, match=r"layers\.valves is an empty list"):
+        parse_config(t)
+
+
+def test_direction_bearing_unit_and_tank_levels():
+    t = _table()
+    t["layers"]["pumps"] = {"input": "gis", "layer": "P", "id": "ID",
+                            "fields": {"direction": "DIR"}, "units": {"direction": "rad"}}
+    with pytest.raises(ConfigError, match=r"layers\.pumps\.units\.direction.*'deg'"):
+        parse_config(t)
+    t["layers"]["pumps"]["units"] = {"direction": "degrees"}
+    t["layers"]["tanks"] = {"input": "gis", "layer": "T", "id": "ID", "levels": "elevation",
+                            "fields": {"bottom_elevation": "B", "level": "L"},
+                            "units": {"bottom_elevation": "ft", "level": "ft"}}
+    assert parse_config(t).layers.tanks.levels == "elevation"
+    t["layers"]["pumps"]["levels"] = "elevation"
+    with pytest.raises(ConfigError, match=r"layers\.pumps\.levels applies only to tanks"):
+        parse_config(t)

@@ -7,7 +7,7 @@ import rasterio
 from rasterio.transform import from_origin
 
 from gridflow.findings import Findings
-from gridflow.io.read import sample_dem
+from gridflow.io.dem import sample_dem
 from gridflow.topology import build_network
 
 from .gis_helpers import CRS, X0, Y0, L, P, config, layer, pipe, source_layer, source_rows

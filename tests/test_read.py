@@ -106,3 +106,43 @@ def test_configured_target_crs(tmp_path):
     assert rr.crs.to_epsg() == 3857
     assert rr.layers["pipes"].crs.to_epsg() == 3857
     _ = (X0, Y0)
+
+
+def _two_valve_layers(tmp_path, second_id="V2"):
+    g = _gis(tmp_path)
+    layer(g, "valves", [{"VID": "V1", "POS": "C", "geometry": P(50, 0)},
+                        {"VID": "V3", "POS": "Q", "geometry": P(60, 0)},
+                        {"VID": "V4", "POS": "Q", "geometry": P(70, 0)}])
+    layer(g, "prvs", [{"SID": second_id, "KIND": "PRV", "SET": 50.0, "DIR": "A",
+                       "geometry": P(150, 0)}])
+    return config(tmp_path, g, layers={"valves": [
+        {"input": "gis", "layer": "valves", "id": "VID", "fields": {"status": "POS"},
+         "codes": {"status": {"C": "closed", "O": "open"}}},
+        {"input": "gis", "layer": "prvs", "id": "SID",
+         "fields": {"type": "KIND", "setting": "SET", "direction": "DIR"},
+         "units": {"setting": "psi"},
+         "codes": {"type": {"PRV": "prv"}, "direction": {"A": "against", "W": "with"}}}]})
+
+
+def test_several_layers_per_role_each_with_its_own_fields(tmp_path):
+    f = Findings()
+    rr = read_inputs(_two_valve_layers(tmp_path), f)
+    v = rr.layers["valves"]
+    assert list(v["valve_id"]) == ["V1", "V3", "V4", "V2"]
+    assert list(v["source_layer"]) == ["valves"] * 3 + ["prvs"]
+    assert list(v["status"])[:3] == ["closed", "open", "open"]  # Q unlisted: the default
+    # 50 psi = 35.15 m of water head (1 psi = 0.70307 m of water; standard definitions)
+    assert v["setting"].iloc[3] == pytest.approx(35.153, abs=1e-3)
+    assert v["direction"].iloc[3] == "against"
+    # one finding per distinct unlisted value, with its count, layer and field
+    unknown = [m for k, m in zip(f.kind, f.message) if k == "unknown_code"]
+    assert len(unknown) == 1
+    assert unknown[0].startswith("2 feature(s) of layer 'valves' hold 'Q' in field 'POS'")
+    assert "layers.valves[0].codes.status" in unknown[0] and "treated as 'open'" in unknown[0]
+
+
+def test_id_clash_across_layers_names_both(tmp_path):
+    cfg = _two_valve_layers(tmp_path, second_id="V1")
+    with pytest.raises(InputError, match=r"'V1' is in layer 'valves' \(layers\.valves\[0\]\) "
+                                         r"and in layer 'prvs' \(layers\.valves\[1\]\)"):
+        read_inputs(cfg, Findings())

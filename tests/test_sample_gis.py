@@ -22,8 +22,8 @@ from gridflow.config import load_config
 ROOT = Path(__file__).resolve().parents[1]
 GPKG = ROOT / "sample_gis" / "millbrook.gpkg"
 CONFIG = ROOT / "sample_gis" / "millbrook.toml"
-LAYERS = ["WaterMains", "Hydrants", "SystemValves", "Tanks", "PumpStations", "SupplySources",
-          "CustomerMeters"]
+LAYERS = ["WaterMains", "Hydrants", "SystemValves", "PRVStations", "Tanks", "PumpStations",
+          "SupplySources", "CustomerMeters"]
 
 FT = 0.3048
 FT_PER_PSI = 2.3067  # 1 psi = 2.3067 ft of water (standard definitions; checked with pint)
@@ -200,7 +200,7 @@ def test_far_hydrant_and_meter(gis, mains):
 def test_points_on_mains(gis, mains):
     """Valves and the pump sit exactly on a vertex of their main; tank and plant at a main end."""
     by_id = mains.drop_duplicates("MAIN_ID").set_index("MAIN_ID").geometry
-    for layer in ("SystemValves", "PumpStations"):
+    for layer in ("SystemValves", "PRVStations", "PumpStations"):
         df = gis[layer]
         for pt, mid in zip(df.geometry.values, df["MAIN_ID"]):
             verts = shapely.get_coordinates(by_id[mid])[1:-1]
@@ -223,11 +223,13 @@ def _zones_at(mains, xy, skip):
 
 def test_zone_boundaries(gis, mains):
     v = gis["SystemValves"]
+    assert (v["VALVE_TYPE"] != "PRV").all()  # the PRV stations have a layer of their own
     bnd = v[v["BOUNDARY"] == 1]
-    assert sorted(bnd.loc[bnd["VALVE_TYPE"] != "PRV", "VALVE_ID"]) == BOUNDARY_VALVES
-    assert (bnd.loc[bnd["VALVE_TYPE"] != "PRV", "NORM_POS"] == "NC").all()
-    prv = v[v["VALVE_TYPE"] == "PRV"]
+    assert sorted(bnd["VALVE_ID"]) == BOUNDARY_VALVES
+    assert (bnd["NORM_POS"] == "NC").all()
+    prv = gis["PRVStations"]
     assert sorted(prv["VALVE_ID"]) == ["PRV-1", "PRV-2"]
+    assert (prv["VALVE_TYPE"] == "PRV").all() and (prv["FLOW_DIR"] == "W").all()
     assert prv["SETTING_PSI"].between(30, 60).all()
     # digitised from the high-pressure side (CENTRAL) into the valley (RIVERSIDE)
     for mid in list(prv["MAIN_ID"]):

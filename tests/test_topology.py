@@ -73,7 +73,7 @@ def test_messy_repairs_and_findings(tmp_path, messy):
     assert _by_kind(f, "end_snapped") == [("P1", "3 pipe ends joined; an end moved 0.07 m")]
     assert _by_kind(f, "duplicate_dropped") == [("P6", "duplicate of pipe P1 dropped")]
     assert _by_kind(f, "main_split") == [
-        ("P1", "split where the end of pipe P4 lands on it (0.30 m off)")]
+        ("P1", "T-junction: split where the dangling end of pipe P4 lies 0.30 m from it")]
     assert _by_kind(f, "hydrant_attached") == [("H1", "attached to main P1 15.00 m away")]
     # P3 (2 m gap) and P5 (crossing) are two parts with no source
     dis = _by_kind(f, "disconnected_part")

@@ -11,9 +11,35 @@ A layer section maps one of gridflow's roles onto a layer of an input file::
     units = { diameter = "in" }
     codes.status = { ACT = "open", ABD = "abandoned" }
 
+A role held in several layers (PRV stations beside system valves, distribution and
+transmission mains, meters from two files) is a list of such tables, each with its own
+fields, units and codes (TOML's array of tables)::
+
+    [[layers.valves]]
+    input = "gis"
+    layer = "SystemValves"
+    id = "VALVE_ID"
+    fields = { status = "NORM_POS" }
+
+    [[layers.valves]]
+    input = "gis"
+    layer = "PRVStations"
+    id = "STATION_ID"
+    fields = { type = "KIND", setting = "SET_PSI", direction = "FLOW_DIR" }
+    codes.direction = { W = "with", A = "against" }
+
+Ids must be unique within a role across its layers.
+
 Roles and the fields each understands (``*`` required) are in :data:`ROLE_FIELDS`.
-Point features of pumps, valves (PRV, check, throttle, isolation) act in the digitised
-direction of the main they sit on (from its first vertex to its last).
+Pumps, PRVs and check valves act in a direction: ``fields.direction`` maps it, either a coded
+value meaning with or against the digitised direction of the main they sit on (``codes.direction
+= { ... = "with" | "against" }``) or, with ``units.direction = "deg"``, a bearing in degrees
+clockwise from grid north towards which the device sends water. Unmapped or missing: the main's
+digitised direction holds (from its first vertex to its last).
+
+Coded fields (status, type, direction, and material, category, land_use, level where a
+``codes`` table is given) never pass an unlisted value silently: each distinct value is a warning
+finding with its count; the default treatment is in :data:`CODE_DEFAULTS`.
 """
 
 from __future__ import annotations
@@ -38,19 +64,21 @@ from gridflow.units import DIAMETER, FLOW, HEAD, LENGTH, PRESSURE
 
 __all__ = ["LayerSection", "LayersSection", "ElevationSection", "RoughnessSection",
            "RoughnessRule", "ROLE_FIELDS", "ROLES", "NUMERIC_FIELDS", "TEXT_FIELDS",
-           "SEARCH_DISTANCE_DEFAULT", "unit_factor"]
+           "SEARCH_DISTANCE_DEFAULT", "unit_factor", "CODE_TARGETS", "CODE_DEFAULTS",
+           "BEARING_UNITS", "layer_sections"]
 
 #: gridflow's field roles per layer role; required roles first, marked with a trailing '*'
 ROLE_FIELDS: dict[str, tuple[str, ...]] = {
     "pipes": ("diameter*", "material", "install_year", "roughness", "length", "status", "zone",
-              "pressure_rating", "minor_loss_k", "name"),
+              "pressure_rating", "minor_loss_k", "name", "level"),
     "nodes": ("elevation", "zone"),
     "hydrants": ("required_fire_flow", "land_use", "elevation", "lateral_length",
                  "lateral_diameter", "status", "zone"),
-    "valves": ("type", "status", "setting", "diameter", "elevation", "minor_loss_k"),
+    "valves": ("type", "status", "setting", "diameter", "elevation", "minor_loss_k",
+               "direction"),
     "tanks": ("bottom_elevation*", "level*", "max_level", "diameter", "name"),
     "pumps": ("design_flow", "design_head", "flow_1", "head_1", "flow_2", "head_2", "flow_3",
-              "head_3", "speed", "status", "name"),
+              "head_3", "speed", "status", "name", "direction"),
     "sources": ("head*", "elevation", "name"),
     "meters": ("consumption*", "category", "zone"),
 }
@@ -117,9 +145,17 @@ def unit_factor(role: str, field_role: str, unit: str | None, key: str = "") -> 
 
 #: coded values each role understands, and what they map to
 CODE_TARGETS = {
-    "status": ("open", "closed", "abandoned", "active", "inactive", "off"),
+    "status": ("open", "closed", "abandoned", "active", "inactive", "off", "out_of_service"),
     "type": ("isolation", "prv", "check", "throttle"),
+    "direction": ("with", "against"),
 }
+
+#: what an unlisted coded value is taken as (each distinct value is a warning finding);
+#: fields not named here keep the value as written
+CODE_DEFAULTS = {"status": "open", "type": "isolation", "direction": "with"}
+
+#: units a bearing may be given in (``units.direction``)
+BEARING_UNITS = ("deg", "degree", "degrees")
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -142,22 +178,68 @@ class LayerSection:
         None, parse=quantity("length", minimum=0.0),
         doc="pipes: diameter used where it is missing, zero or above 120 in (each one a "
             "warning finding); unset: such pipes are left out (error finding)")
+    levels: str = opt("depth", parse=one_of("depth", "elevation"),
+                      doc="tanks: level and max_level are depths above the bottom, or absolute "
+                          "elevations (as bottom_elevation)")
+
+
+def _one_or_many(value, key: str):
+    """One layer table, or a list of them (TOML's ``[[layers.<role>]]``)."""
+    if isinstance(value, list):
+        if not value:
+            raise ConfigError(f"config key {key} is an empty list; give one layer table or "
+                              "several", key=key)
+        return tuple(section(LayerSection)(v, f"{key}[{i}]") for i, v in enumerate(value))
+    return section(LayerSection)(value, key)
+
+
+_one_or_many.__doc__ = "table (LayerSection), or a list of them"
+_one_or_many.section_cls = LayerSection  # type: ignore[attr-defined]
+
+_LAYER_DOC = "; one table, or a list of tables for several layers"
 
 
 @dataclass(frozen=True, kw_only=True)
 class LayersSection:
-    pipes: LayerSection = opt(parse=section(LayerSection), doc="water mains (lines)")
-    nodes: LayerSection | None = opt(None, parse=section(LayerSection),
-                                     doc="junction points with elevation (optional)")
-    hydrants: LayerSection | None = opt(None, parse=section(LayerSection), doc="hydrants (points)")
-    valves: LayerSection | None = opt(None, parse=section(LayerSection),
-                                      doc="system valves, PRVs, check and throttle valves (points)")
-    tanks: LayerSection | None = opt(None, parse=section(LayerSection), doc="tanks (points)")
-    pumps: LayerSection | None = opt(None, parse=section(LayerSection), doc="pumps (points)")
-    sources: LayerSection | None = opt(None, parse=section(LayerSection),
-                                       doc="fixed-grade sources: plants, wells, connections")
-    meters: LayerSection | None = opt(None, parse=section(LayerSection),
-                                      doc="customer meters with consumption (points)")
+    """The roles' layers. Each role holds its first (or only) layer section; a role given as a
+    list keeps all of them, in order, for :func:`layer_sections`."""
+
+    pipes: LayerSection = opt(parse=_one_or_many, doc="water mains (lines)" + _LAYER_DOC)
+    nodes: LayerSection | None = opt(None, parse=_one_or_many,
+                                     doc="junction points with elevation (optional)" + _LAYER_DOC)
+    hydrants: LayerSection | None = opt(None, parse=_one_or_many,
+                                        doc="hydrants (points)" + _LAYER_DOC)
+    valves: LayerSection | None = opt(None, parse=_one_or_many,
+                                      doc="system valves, PRVs, check and throttle valves "
+                                          "(points)" + _LAYER_DOC)
+    tanks: LayerSection | None = opt(None, parse=_one_or_many, doc="tanks (points)" + _LAYER_DOC)
+    pumps: LayerSection | None = opt(None, parse=_one_or_many, doc="pumps (points)" + _LAYER_DOC)
+    sources: LayerSection | None = opt(None, parse=_one_or_many,
+                                       doc="fixed-grade sources: plants, wells, connections"
+                                           + _LAYER_DOC)
+    meters: LayerSection | None = opt(None, parse=_one_or_many,
+                                      doc="customer meters with consumption (points)" + _LAYER_DOC)
+    lists: dict = field(default_factory=dict, repr=False, compare=False)
+
+    def __post_init__(self) -> None:
+        for role in ROLES:
+            v = getattr(self, role)
+            if isinstance(v, tuple):
+                object.__setattr__(self, role, v[0])
+                self.lists[role] = v
+
+
+def layer_sections(layers: LayersSection, role: str) -> tuple[LayerSection, ...]:
+    """Every layer section of a role, in config order (empty when the role is not mapped)."""
+    if role in layers.lists:
+        return tuple(layers.lists[role])
+    sec = getattr(layers, role)
+    return () if sec is None else (sec,)
+
+
+def section_key(layers: LayersSection, role: str, i: int) -> str:
+    """The config key of a role's i-th layer section (``layers.valves`` or ``layers.valves[1]``)."""
+    return f"layers.{role}[{i}]" if role in layers.lists else f"layers.{role}"
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -196,48 +278,57 @@ def parse_inputs(value, key: str) -> dict[str, str]:
 def check_layer_roles(layers: LayersSection, inputs: dict[str, str]) -> None:
     """Cross-checks: inputs exist by name, mapped roles are known, required roles mapped."""
     for role in ROLES:
-        sec = getattr(layers, role)
-        if sec is None:
-            continue
-        where = f"layers.{role}"
-        if sec.input not in inputs:
-            raise ConfigError(f"config key {where}.input names {sec.input!r}, which is not in "
-                              f"[inputs] ({', '.join(inputs)})", key=f"{where}.input")
-        known = {r.rstrip("*") for r in ROLE_FIELDS[role]}
-        for r in sec.fields:
-            if r not in known:
-                raise ConfigError(f"unknown config key {where}.fields.{r}; {role} understand: "
-                                  f"{', '.join(sorted(known))}", key=f"{where}.fields.{r}")
-        for r in ROLE_FIELDS[role]:
-            if r.endswith("*") and r[:-1] not in sec.fields:
-                raise ConfigError(f"config key {where}.fields.{r[:-1]} is required",
-                                  key=f"{where}.fields.{r[:-1]}")
-        for r in sec.units:
-            if r not in sec.fields:
-                raise ConfigError(f"config key {where}.units.{r} gives a unit for a field that is "
-                                  "not mapped", key=f"{where}.units.{r}")
-        for r in sec.fields:
-            if r in NUMERIC_FIELDS[role]:
-                unit_factor(role, r, sec.units.get(r), f"{where}.units.{r}")
-        if sec.search_distance is not None and role not in SEARCH_DISTANCE_DEFAULT:
-            raise ConfigError(f"config key {where}.search_distance applies only to "
-                              f"{', '.join(SEARCH_DISTANCE_DEFAULT)}",
-                              key=f"{where}.search_distance")
-        if sec.default_diameter is not None and role != "pipes":
-            raise ConfigError(f"config key {where}.default_diameter applies only to pipes",
-                              key=f"{where}.default_diameter")
-        if sec.default_diameter is not None and not 0 < sec.default_diameter <= 120 * 0.0254:
-            raise ConfigError(f"config key {where}.default_diameter must be above 0 and at most "
-                              "120 in", key=f"{where}.default_diameter")
-        for r, table in sec.codes.items():
-            targets = CODE_TARGETS.get(r)
-            if targets is None:
-                continue  # free codes (material, category, land_use)
-            for code, target in table.items():
-                if target not in targets:
-                    raise ConfigError(f"config key {where}.codes.{r}.{code} maps to {target!r}; "
-                                      f"expected one of {', '.join(targets)}",
-                                      key=f"{where}.codes.{r}.{code}")
+        for i, sec in enumerate(layer_sections(layers, role)):
+            _check_section(role, sec, section_key(layers, role, i), inputs)
+
+
+def _check_section(role: str, sec: LayerSection, where: str, inputs: dict[str, str]) -> None:
+    if sec.input not in inputs:
+        raise ConfigError(f"config key {where}.input names {sec.input!r}, which is not in "
+                          f"[inputs] ({', '.join(inputs)})", key=f"{where}.input")
+    known = {r.rstrip("*") for r in ROLE_FIELDS[role]}
+    for r in sec.fields:
+        if r not in known:
+            raise ConfigError(f"unknown config key {where}.fields.{r}; {role} understand: "
+                              f"{', '.join(sorted(known))}", key=f"{where}.fields.{r}")
+    for r in ROLE_FIELDS[role]:
+        if r.endswith("*") and r[:-1] not in sec.fields:
+            raise ConfigError(f"config key {where}.fields.{r[:-1]} is required",
+                              key=f"{where}.fields.{r[:-1]}")
+    for r in sec.units:
+        if r not in sec.fields:
+            raise ConfigError(f"config key {where}.units.{r} gives a unit for a field that is "
+                              "not mapped", key=f"{where}.units.{r}")
+    for r in sec.fields:
+        if r in NUMERIC_FIELDS[role]:
+            unit_factor(role, r, sec.units.get(r), f"{where}.units.{r}")
+    if "direction" in sec.units and sec.units["direction"].strip().lower() not in \
+            BEARING_UNITS:
+        raise ConfigError(f"config key {where}.units.direction: a bearing is given in "
+                          f"degrees ('deg'), not {sec.units['direction']!r}; leave it out "
+                          "for a coded direction", key=f"{where}.units.direction")
+    if sec.levels != "depth" and role != "tanks":
+        raise ConfigError(f"config key {where}.levels applies only to tanks",
+                          key=f"{where}.levels")
+    if sec.search_distance is not None and role not in SEARCH_DISTANCE_DEFAULT:
+        raise ConfigError(f"config key {where}.search_distance applies only to "
+                          f"{', '.join(SEARCH_DISTANCE_DEFAULT)}",
+                          key=f"{where}.search_distance")
+    if sec.default_diameter is not None and role != "pipes":
+        raise ConfigError(f"config key {where}.default_diameter applies only to pipes",
+                          key=f"{where}.default_diameter")
+    if sec.default_diameter is not None and not 0 < sec.default_diameter <= 120 * 0.0254:
+        raise ConfigError(f"config key {where}.default_diameter must be above 0 and at most "
+                          "120 in", key=f"{where}.default_diameter")
+    for r, table in sec.codes.items():
+        targets = CODE_TARGETS.get(r)
+        if targets is None:
+            continue  # free codes (material, category, land_use)
+        for code, target in table.items():
+            if target not in targets:
+                raise ConfigError(f"config key {where}.codes.{r}.{code} maps to {target!r}; "
+                                  f"expected one of {', '.join(targets)}",
+                                  key=f"{where}.codes.{r}.{code}")
 
 
 _ = (field, parse_section)

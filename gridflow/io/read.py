@@ -20,12 +20,20 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from gridflow.config.layers import CODE_TARGETS, NUMERIC_FIELDS, ROLES, unit_factor
+from gridflow.config.layers import (
+    BEARING_UNITS,
+    NUMERIC_FIELDS,
+    ROLES,
+    layer_sections,
+    section_key,
+    unit_factor,
+)
 from gridflow.errors import ConfigError, InputError
 from gridflow.findings import Findings
+from gridflow.io.codes import coded_texts
 
-__all__ = ["LayerInfo", "ReadResult", "ID_COLUMN", "inspect_inputs", "working_crs",
-           "read_inputs", "sample_dem", "shared_locks"]
+__all__ = ["LayerInfo", "ReadResult", "ID_COLUMN", "LAYER_COLUMN", "inspect_inputs",
+           "working_crs", "read_inputs", "shared_locks"]
 
 #: how far [degrees] a feature may stray outside its CRS's area of use before it is taken as
 #: misplaced (a slipped decimal, a wrong CRS) and left out
@@ -35,6 +43,8 @@ CRS_AREA_MARGIN_DEG = 2.0
 ID_COLUMN = {"pipes": "pipe_id", "nodes": "node_id", "hydrants": "hydrant_id",
              "valves": "valve_id", "tanks": "tank_id", "pumps": "pump_id",
              "sources": "source_id", "meters": "meter_id"}
+#: the column naming each feature's own layer (a role may be read from several layers)
+LAYER_COLUMN = "source_layer"
 
 
 @dataclass(frozen=True)
@@ -49,14 +59,17 @@ class LayerInfo:
     geometry_type: str | None
     features: int
     total_bounds: tuple[float, float, float, float] | None = None
+    key: str = ""  # config key of the layer section (layers.valves or layers.valves[1])
+    index: int = 0  # position among the role's layer sections
 
 
 @dataclass
 class ReadResult:
     """The mapped layers in the working CRS, keyed by role (only roles in the config)."""
 
-    layers: dict = field(default_factory=dict)  # role -> GeoDataFrame
-    infos: dict = field(default_factory=dict)  # role -> LayerInfo
+    layers: dict = field(default_factory=dict)  # role -> GeoDataFrame (all its layers)
+    infos: dict = field(default_factory=dict)  # role -> LayerInfo of its first layer
+    all_infos: dict = field(default_factory=dict)  # role -> tuple of LayerInfo, one per layer
     crs: object = None  # pyproj.CRS
     files: list = field(default_factory=list)  # input paths, for hashing and output checks
 
@@ -70,52 +83,63 @@ def _pyogrio():
 def inspect_inputs(cfg) -> dict[str, LayerInfo]:
     """Check every mapped layer and field exists and has a CRS, without reading features.
 
+    Returns the first layer of each role; :func:`inspect_layers` returns all of them.
+
     Raises
     ------
     InputError
         Naming file, layer and field: a missing file, layer or field, or a layer with no CRS.
     """
-    pyogrio = _pyogrio()
-    infos: dict[str, LayerInfo] = {}
+    return {role: infos[0] for role, infos in inspect_layers(cfg).items()}
+
+
+def inspect_layers(cfg) -> dict[str, tuple[LayerInfo, ...]]:
+    """:func:`inspect_inputs` for every layer of every role (a role may list several)."""
+    out: dict[str, tuple[LayerInfo, ...]] = {}
     for role in ROLES:
-        sec = getattr(cfg.layers, role)
-        if sec is None:
-            continue
-        path = cfg.resolve(cfg.inputs[sec.input])
-        if not path.exists():
-            raise InputError(f"input file {path} (inputs.{sec.input}) does not exist",
-                             file=str(path))
-        try:
-            names = [str(n) for n in pyogrio.list_layers(path)[:, 0]]
-        except Exception as exc:
-            raise InputError(f"cannot open input file {path}: {exc}", file=str(path)) from None
-        if sec.layer not in names:
-            raise InputError(f"{path}: layer {sec.layer!r} (layers.{role}.layer) not found; the "
-                             f"file has: {', '.join(names)}", file=str(path), layer=sec.layer)
-        info = pyogrio.read_info(path, layer=sec.layer, force_total_bounds=(role == "pipes"))
-        fields = tuple(str(f) for f in info["fields"])
-        wanted = [("id", sec.id)] + list(sec.fields.items())
-        for role_name, fname in wanted:
-            if fname not in fields:
-                key = "id" if role_name == "id" else f"fields.{role_name}"
-                raise InputError(
-                    f"{path}: layer {sec.layer!r} has no field {fname!r} (layers.{role}.{key}); "
-                    f"its fields are: {', '.join(fields)}", file=str(path), layer=sec.layer,
-                    field=fname)
-        geom = info.get("geometry_type")
-        if geom is None or str(geom).lower() in ("none", ""):
-            raise InputError(f"{path}: layer {sec.layer!r} has no geometry; {role} need "
-                             "geometry", file=str(path), layer=sec.layer)
-        crs = info.get("crs")
-        if not crs:
-            raise InputError(f"{path}: layer {sec.layer!r} has no coordinate reference system; "
-                             "assign one in the GIS (e.g. EPSG:26916) and export again",
-                             file=str(path), layer=sec.layer)
-        bounds = info.get("total_bounds")
-        infos[role] = LayerInfo(role, path, sec.layer, crs, fields, str(geom),
-                                int(info.get("features", -1)),
-                                None if bounds is None else _bounds4(bounds))
-    return infos
+        secs = layer_sections(cfg.layers, role)
+        if secs:
+            out[role] = tuple(_inspect_one(cfg, role, sec, i) for i, sec in enumerate(secs))
+    return out
+
+
+def _inspect_one(cfg, role: str, sec, i: int) -> LayerInfo:
+    pyogrio = _pyogrio()
+    where = section_key(cfg.layers, role, i)
+    path = cfg.resolve(cfg.inputs[sec.input])
+    if not path.exists():
+        raise InputError(f"input file {path} (inputs.{sec.input}) does not exist",
+                         file=str(path))
+    try:
+        names = [str(n) for n in pyogrio.list_layers(path)[:, 0]]
+    except Exception as exc:
+        raise InputError(f"cannot open input file {path}: {exc}", file=str(path)) from None
+    if sec.layer not in names:
+        raise InputError(f"{path}: layer {sec.layer!r} ({where}.layer) not found; the "
+                         f"file has: {', '.join(names)}", file=str(path), layer=sec.layer)
+    info = pyogrio.read_info(path, layer=sec.layer, force_total_bounds=(role == "pipes"))
+    fields = tuple(str(f) for f in info["fields"])
+    wanted = [("id", sec.id)] + list(sec.fields.items())
+    for role_name, fname in wanted:
+        if fname not in fields:
+            key = "id" if role_name == "id" else f"fields.{role_name}"
+            raise InputError(
+                f"{path}: layer {sec.layer!r} has no field {fname!r} ({where}.{key}); "
+                f"its fields are: {', '.join(fields)}", file=str(path), layer=sec.layer,
+                field=fname)
+    geom = info.get("geometry_type")
+    if geom is None or str(geom).lower() in ("none", ""):
+        raise InputError(f"{path}: layer {sec.layer!r} has no geometry; {role} need "
+                         "geometry", file=str(path), layer=sec.layer)
+    crs = info.get("crs")
+    if not crs:
+        raise InputError(f"{path}: layer {sec.layer!r} has no coordinate reference system; "
+                         "assign one in the GIS (e.g. EPSG:26916) and export again",
+                         file=str(path), layer=sec.layer)
+    bounds = info.get("total_bounds")
+    return LayerInfo(role, path, sec.layer, crs, fields, str(geom),
+                     int(info.get("features", -1)),
+                     None if bounds is None else _bounds4(bounds), key=where, index=i)
 
 
 def working_crs(cfg, infos: dict[str, LayerInfo], findings: Findings):
@@ -177,16 +201,42 @@ def read_inputs(cfg, findings: Findings) -> ReadResult:
         Missing layer or field, no CRS, or text where a number belongs (naming file, layer,
         feature id and field).
     """
-    paths = sorted({cfg.resolve(cfg.inputs[getattr(cfg.layers, r).input]) for r in ROLES
-                    if getattr(cfg.layers, r) is not None})
+    paths = sorted({cfg.resolve(cfg.inputs[sec.input]) for r in ROLES
+                    for sec in layer_sections(cfg.layers, r)})
     with shared_locks(paths):
-        infos = inspect_inputs(cfg)
+        all_infos = inspect_layers(cfg)
+        infos = {role: v[0] for role, v in all_infos.items()}
         crs = working_crs(cfg, infos, findings)
-        out = ReadResult(infos=infos, crs=crs)
-        out.files = sorted({info.file.resolve() for info in infos.values()})
-        for role, info in infos.items():
-            out.layers[role] = _read_role(cfg, role, info, crs, findings)
+        out = ReadResult(infos=infos, all_infos=all_infos, crs=crs)
+        out.files = sorted({i.file.resolve() for v in all_infos.values() for i in v})
+        for role, role_infos in all_infos.items():
+            secs = layer_sections(cfg.layers, role)
+            frames = [_read_role(cfg, role, sec, info, crs, findings)
+                      for sec, info in zip(secs, role_infos)]
+            out.layers[role] = _join_layers(role, frames, role_infos)
     return out
+
+
+def _join_layers(role: str, frames: list, infos):
+    """One frame per role; an id held in two of its layers is an error naming both."""
+    if len(frames) == 1:
+        return frames[0]
+    import geopandas as gpd
+
+    idc = ID_COLUMN[role]
+    seen: dict[str, int] = {}
+    for k, fr in enumerate(frames):
+        for fid in fr[idc].tolist():
+            j = seen.setdefault(fid, k)
+            if j != k:
+                a, b = infos[j], infos[k]
+                raise InputError(
+                    f"{b.file}: {role[:-1]} id {fid!r} is in layer {a.layer!r} ({a.key}) and "
+                    f"in layer {b.layer!r} ({b.key}); ids must be unique within {role} across "
+                    "their layers", file=str(b.file), layer=b.layer, feature_id=str(fid),
+                    field=None)
+    return gpd.GeoDataFrame(pd.concat(frames, ignore_index=True), geometry="geometry",
+                            crs=frames[0].crs)
 
 
 #: how long [s] to wait for another program's write to a GeoPackage input to finish
@@ -323,41 +373,48 @@ def _outside_crs_area(geoms: np.ndarray, crs) -> np.ndarray:
     return bad
 
 
-def _read_role(cfg, role: str, info: LayerInfo, crs, findings: Findings):
+def _read_role(cfg, role: str, sec, info: LayerInfo, crs, findings: Findings):
     import geopandas as gpd
 
-    sec = getattr(cfg.layers, role)
     columns = list(dict.fromkeys([sec.id, *sec.fields.values()]))
     try:
         gdf = _read_frame(info, columns, sec.where or None, findings, sec.id)
     except Exception as exc:
-        key = f"layers.{role}.where" if sec.where else f"layers.{role}"
+        key = f"{info.key}.where" if sec.where else info.key
         raise InputError(f"{info.file}: cannot read layer {info.layer!r} ({key}): {exc}",
                          file=str(info.file), layer=info.layer) from None
     if len(gdf) == 0:
-        what = (f"no features match layers.{role}.where = {sec.where!r}" if sec.where
+        what = (f"no features match {info.key}.where = {sec.where!r}" if sec.where
                 else "no features")
         if role == "pipes":
-            raise InputError(f"{info.file}: layer {info.layer!r} (layers.pipes.layer) has "
+            raise InputError(f"{info.file}: layer {info.layer!r} ({info.key}.layer) has "
                              f"{what}; there is no network to build", file=str(info.file),
                              layer=info.layer)
         findings.add("empty_layer", "warning", info.layer, "",
-                     f"layer {info.layer!r} (layers.{role}.layer) has {what}")
+                     f"layer {info.layer!r} ({info.key}.layer) has {what}")
     ids = _ids(gdf[sec.id], role, info, findings)
     data = {ID_COLUMN[role]: ids}
     for role_name, fname in sec.fields.items():
         col = gdf[fname]
-        if role_name in NUMERIC_FIELDS[role]:
+        if role_name == "direction" and sec.units.get("direction", "").lower() in BEARING_UNITS:
+            data["direction_deg"] = _numbers(col, ids, info, fname) % 360.0
+        elif role_name in NUMERIC_FIELDS[role]:
             factor = unit_factor(role, role_name, sec.units.get(role_name))
             vals = _numbers(col, ids, info, fname)
             if role_name == "roughness" and role_name in sec.units:
                 factor = unit_factor("pipes", "length", sec.units["roughness"])
             if (role, role_name) == ("valves", "setting"):
-                factor = 1.0  # PRV settings are pressures, throttle settings K: topology converts
+                factor = 1.0  # PRV settings are pressures, throttle settings K: below
             data[role_name] = vals * factor
         else:
-            data[role_name] = _texts(col, role, role_name, sec.codes.get(role_name), ids, info,
-                                     findings)
+            data[role_name] = coded_texts(col, role, role_name, sec.codes.get(role_name), ids,
+                                          info, findings, fname)
+    if role == "valves" and "setting" in data and "type" in data:
+        prv = np.asarray(data["type"], dtype=object) == "prv"
+        fac = unit_factor("valves", "setting", sec.units.get("setting"),
+                          f"{info.key}.units.setting") if prv.any() else 1.0
+        data["setting"] = np.where(prv, data["setting"] * fac, data["setting"])
+    data[LAYER_COLUMN] = np.full(len(ids), info.layer, dtype=object)
     frame = gpd.GeoDataFrame(data, geometry=gdf.geometry.values, crs=gdf.crs)
     if frame.crs is None:  # inspected already; a layer can still lose it through a view
         raise InputError(f"{info.file}: layer {info.layer!r} has no coordinate reference system",
@@ -417,84 +474,5 @@ def _numbers(col: pd.Series, ids: np.ndarray, info: LayerInfo, fname: str) -> np
     return nums
 
 
-def _texts(col: pd.Series, role: str, role_name: str, codes: dict | None, ids, info,
-           findings: Findings) -> np.ndarray:
-    """Text values; codes mapped; CODE_TARGETS roles checked (unknown -> None, a finding)."""
-    missing = pd.isna(col).to_numpy()
-    if col.dtype.kind == "f":  # integral numbers as codes: 3.0 -> "3"
-        whole = col.where(col.isna() | (col % 1 != 0), col.round().astype("Int64").astype(str))
-        txt = whole.astype(str)
-    else:
-        txt = col.astype(str)
-    txt = txt.str.strip()
-    if codes:
-        mapped = txt.map(codes)
-        txt = mapped.where(mapped.notna(), txt)
-    out = txt.to_numpy(dtype=object).copy()
-    out[missing] = None
-    targets = CODE_TARGETS.get(role_name)
-    if targets is not None:
-        low = pd.Series(out, dtype=object).str.lower().to_numpy(dtype=object).copy()
-        low[missing] = None
-        ok = pd.Series(low).isin(targets).to_numpy() | missing
-        if not ok.all():
-            rows = np.flatnonzero(~ok)
-            findings.add_many("unknown_code", "warning", info.layer, ids[rows],
-                              [f"{role_name} {out[r]!r} is not mapped to one of "
-                               f"{', '.join(targets)} (layers.{role}.codes.{role_name}); "
-                               "treated as missing" for r in rows])
-            low[rows] = None
-        out = low
-    return out
-
-
 def _bounds4(b) -> tuple[float, float, float, float]:
     return float(b[0]), float(b[1]), float(b[2]), float(b[3])
-
-
-def sample_dem(path: Path, x: np.ndarray, y: np.ndarray, crs, unit_factor_m: float) -> np.ndarray:
-    """Ground elevation [m] at points (x, y in ``crs``) from a DEM raster; NaN off the raster.
-
-    Raises
-    ------
-    ConfigError
-        If rasterio (the optional ``dem`` extra) is not installed.
-    InputError
-        If the raster cannot be opened.
-    """
-    try:
-        import rasterio
-    except ImportError:
-        raise ConfigError("config key elevation.source = 'dem' needs rasterio; install it with "
-                          "pip install 'gridflow[dem]'", key="elevation.source") from None
-    try:
-        src = rasterio.open(path)
-    except Exception as exc:
-        raise InputError(f"cannot open DEM {path}: {exc}", file=str(path)) from None
-    from rasterio.windows import Window
-
-    x = np.asarray(x, dtype=float)
-    y = np.asarray(y, dtype=float)
-    out = np.full(len(x), np.nan)
-    with src:
-        from pyproj import CRS, Transformer
-
-        dem_crs = CRS.from_user_input(src.crs.to_wkt()) if src.crs is not None else None
-        if dem_crs is not None and not dem_crs.equals(CRS.from_user_input(crs)):
-            t = Transformer.from_crs(crs, dem_crs, always_xy=True)
-            x, y = t.transform(x, y)
-        if len(x) == 0:
-            return out
-        # the cell under each point, all points at once; one read of the window they span
-        inv = ~src.transform
-        col_f, row_f = inv * (x, y)
-        rows = np.floor(row_f).astype(np.int64)
-        cols = np.floor(col_f).astype(np.int64)
-        inside = (rows >= 0) & (rows < src.height) & (cols >= 0) & (cols < src.width)
-        if inside.any():
-            r0, r1 = rows[inside].min(), rows[inside].max()
-            c0, c1 = cols[inside].min(), cols[inside].max()
-            band = src.read(1, window=Window(c0, r0, c1 - c0 + 1, r1 - r0 + 1), masked=True)
-            vals = band[rows[inside] - r0, cols[inside] - c0]
-            out[inside] = np.ma.filled(vals.astype(float), np.nan)
-    return out * unit_factor_m

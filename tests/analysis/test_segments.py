@@ -280,3 +280,31 @@ def test_the_shared_system_keeps_one_symbolic_analysis():
     assert isinstance(sys0, HydraulicSystem)
     p.run(np.arange(p.segments.n))
     assert p.system is sys0  # reused across closures, not rebuilt
+
+
+@pytest.mark.parametrize("seed", range(12))
+def test_dominators_agree_with_networkx_on_random_segment_graphs(seed):
+    """The cut-vertex dominators against networkx's general dominance algorithm (Cooper,
+    Harvey and Kennedy) on random sparse multigraphs: chains, loops, parallel edges, parts
+    out of reach."""
+    import networkx as nx
+
+    from gridflow.analysis.segments import immediate_dominators
+
+    rng = np.random.default_rng(seed)
+    n = int(rng.integers(5, 60))
+    m = int(rng.integers(n // 2, 2 * n))
+    a, b = rng.integers(0, n, m), rng.integers(0, n, m)
+    keep = a != b
+    a, b = a[keep], b[keep]
+    if m > 3:  # a parallel edge
+        a, b = np.append(a, a[0]), np.append(b, b[0])
+    root = 0
+    got = immediate_dominators(n, a, b, root)
+    g = nx.MultiGraph()
+    g.add_nodes_from(range(n))
+    g.add_edges_from(zip(a.tolist(), b.tolist()))
+    want = nx.immediate_dominators(nx.DiGraph(g.to_directed()), root)
+    assert got[root] == root
+    for v in range(1, n):
+        assert got[v] == want.get(v, -1), (v, got[v], want.get(v))

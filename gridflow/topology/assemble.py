@@ -1,0 +1,114 @@
+"""Stage 8 of the topology: the network arrays, zones and the GIS frames of the result."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import shapely
+
+from gridflow.network import (
+    LINK_KINDS,
+    LINK_PIPE,
+    LINK_PUMP,
+    LINK_VALVE,
+    NODE_KINDS,
+    VALVE_PRV,
+    Network,
+)
+from gridflow.topology.clean import CleanNetwork
+from gridflow.topology.links import CLOSED_WORDS
+from gridflow.topology.points import column
+from gridflow.topology.records import Attached, Context, LinkTable, NodeTable
+from gridflow.topology.zones import zones_and_parts
+
+__all__ = ["assemble"]
+
+
+def assemble(ctx: Context, at: Attached, nt: NodeTable, lt: LinkTable, elev: np.ndarray,
+             guessed: np.ndarray) -> CleanNetwork:
+    """Stage 8: zones named, the frozen :class:`Network` built, nodes/links/hydrants frames."""
+    import geopandas as gpd
+
+    cfg, c = ctx.cfg, lt.cols
+    nn = len(nt.keys)
+    zone_mapped = "zone" in cfg.layers.pipes.fields or (
+        cfg.layers.nodes is not None and "zone" in cfg.layers.nodes.fields)
+    zone = zones_and_parts(nn, c["from"], c["to"], c["kind"], c["status"], c["vt"],
+                           c["speed"], c["zone"], nt.zone, zone_mapped)
+    net = Network.from_arrays(
+        node_id=nt.node_id, link_id=c["link_id"], from_idx=c["from"], to_idx=c["to"],
+        elevation_m=elev, fixed_head_m=nt.fixed_head_m, node_kind=nt.kind, zone=zone,
+        link_kind=c["kind"], length_m=np.where(c["kind"] == LINK_PIPE, c["length"], 0.0),
+        diameter_m=c["diameter"], roughness=c["rough"], minor_k=c["mk"],
+        status=c["status"], valve_type=c["vt"], valve_setting=c["vs"], pump_a=c["pa"],
+        pump_b=c["pb"], pump_c=c["pc"], pump_speed=c["speed"],
+        headloss_model=cfg.run.headloss_model)
+    crs = ctx.crs
+    node_pts = shapely.points(nt.xy)
+    nodes_gdf = gpd.GeoDataFrame(
+        {"node_id": net.node_id, "kind": np.asarray(NODE_KINDS, dtype=object)[net.node_kind],
+         "zone": net.zone}, geometry=node_pts, crs=crs)
+    year = c["year"]
+    links_gdf = gpd.GeoDataFrame(
+        {"pipe_id": net.link_id,
+         "kind": np.asarray(LINK_KINDS, dtype=object)[net.link_kind],
+         "material": pd.array(c["material"], dtype="string"),
+         "install_year": pd.array(np.where(np.isfinite(year), np.round(year), np.nan),
+                                  dtype="Int64"),
+         "pressure_rating_m": c["rating"]}, geometry=c["geom"], crs=crs)
+    meters = ctx.read.layers.get("meters")
+    if meters is None:
+        meters = gpd.GeoDataFrame({"meter_id": pd.Series([], dtype=object)},
+                                  geometry=gpd.GeoSeries([], crs=crs), crs=crs)
+    _prv_reach(ctx, net, c["geom"])
+    return CleanNetwork(network=net, nodes=nodes_gdf, links=links_gdf,
+                        hydrants=_hydrants_frame(at, nt, net, crs), meters=meters, crs=crs,
+                        inputs=list(ctx.read.files), elevation_guessed=guessed)
+
+
+def _prv_reach(ctx: Context, net: Network, geoms) -> None:
+    """A PRV whose setting puts its downstream grade above every grade the network can
+    give (the highest source or tank plus every pump's shut-off head) never regulates."""
+    prv = (net.link_kind == LINK_VALVE) & (net.valve_type == VALVE_PRV)
+    if not prv.any() or not net.is_fixed.any():
+        return
+    pump = (net.link_kind == LINK_PUMP) & np.isfinite(net.pump_a)
+    ceiling = float(np.max(net.fixed_head_m[net.is_fixed])) + float(
+        np.sum(net.pump_a[pump] * net.pump_speed[pump] ** 2))
+    grade = net.elevation_m[net.to_idx] + net.valve_setting
+    hi = prv & (grade > ceiling)
+    ctx.findings.add_many(
+        "prv_setting_unreachable", "warning", ctx.layer_name("valves"), net.link_id[hi],
+        [f"setting {x:.1f} m of head puts the downstream grade at {g:.1f} m, above the highest "
+         f"grade the sources, tanks and pumps give ({ceiling:.1f} m): the valve stands open "
+         "and regulates nothing" for x, g in zip(net.valve_setting[hi], grade[hi])],
+        np.asarray(geoms, dtype=object)[hi])
+
+
+def _hydrants_frame(at: Attached, nt: NodeTable, net: Network, crs):
+    import geopandas as gpd
+
+    if at.hydrants is None or len(at.hydrants.frame) == 0:
+        return gpd.GeoDataFrame(
+            {"hydrant_id": pd.Series([], dtype=object),
+             "node_idx": pd.Series([], dtype="int64"),
+             "node_id": pd.Series([], dtype=object), "zone": pd.Series([], dtype=object),
+             "required_fire_flow_m3s": pd.Series([], dtype=float),
+             "land_use": pd.Series([], dtype=object),
+             "lateral_length_m": pd.Series([], dtype=float),
+             "lateral_diameter_m": pd.Series([], dtype=float),
+             "in_service": pd.Series([], dtype=bool)},
+            geometry=gpd.GeoSeries([], crs=crs), crs=crs)
+    fr = at.hydrants.frame
+    ok = at.hyd_key >= 0
+    ni = nt.idx_of_key[at.hyd_key[ok]]
+    status = column(fr, "status", object).astype(str)
+    return gpd.GeoDataFrame(
+        {"hydrant_id": fr["hydrant_id"].to_numpy(dtype=object)[ok], "node_idx": ni,
+         "node_id": net.node_id[ni], "zone": net.zone[ni],
+         "required_fire_flow_m3s": column(fr, "required_fire_flow")[ok],
+         "land_use": column(fr, "land_use", object)[ok],
+         "lateral_length_m": column(fr, "lateral_length")[ok],
+         "lateral_diameter_m": column(fr, "lateral_diameter")[ok],
+         "in_service": ~np.isin(status[ok], CLOSED_WORDS)},
+        geometry=at.hydrants.pts[ok], crs=crs)

@@ -1,0 +1,164 @@
+"""Stage 6 of the topology: every link's columns, pipes first, then each device layer.
+
+Valves and pumps are zero-length links between their two coincident nodes, from the side
+upstream of their action to the side downstream (against the main's digitised direction where
+``fields.direction`` says so). A PRV needs a setting (a pressure) and a throttle valve a loss
+coefficient; a pump needs a design point or three curve points: where missing, an error
+finding says how it is modelled instead.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import shapely
+
+from gridflow.network import (
+    LINK_PIPE,
+    LINK_PUMP,
+    LINK_VALVE,
+    STATUS_CLOSED,
+    STATUS_CV,
+    STATUS_OPEN,
+    VALVE_ISOLATION,
+    VALVE_PRV,
+    VALVE_TCV,
+    fit_pump_curve,
+)
+from gridflow.topology.nodes import unique_ids
+from gridflow.topology.points import column
+from gridflow.topology.records import (
+    Attached,
+    Context,
+    Device,
+    LinkTable,
+    NodeTable,
+    Snapped,
+    Split,
+)
+
+__all__ = ["link_table", "CLOSED_WORDS"]
+
+#: status words that mean closed (or, for a pump, off)
+CLOSED_WORDS = ("closed", "inactive", "off", "out_of_service")
+_EPS = 1e-3  # [m] shortest pipe length kept
+
+
+def link_table(ctx: Context, sn: Snapped, at: Attached, sp: Split, nt: NodeTable) -> LinkTable:
+    """Stage 6: the columns of every link (see :data:`COLUMNS`), ids unique."""
+    df, pl = sn.frame, sp.line
+    glen = shapely.length(sn.geoms)
+    plen = shapely.length(sp.pieces)
+    attr_len = df["length"].to_numpy(dtype=float)[pl]
+    frac = plen / np.maximum(glen[pl], 1e-12)
+    length = np.where(np.isfinite(attr_len) & (attr_len > 0), attr_len * frac, plen)
+    length = np.maximum(length, _EPS)
+    pstat = df["status"].to_numpy(dtype=object)[pl]
+    m = len(pl)
+    cols: dict[str, list] = {
+        "link_id": [sp.pipe_id], "from": [nt.idx_of_key[sp.from_key]],
+        "to": [nt.idx_of_key[sp.to_key]], "kind": [np.full(m, LINK_PIPE)],
+        "length": [length], "diameter": [df["diameter"].to_numpy(dtype=float)[pl]],
+        "rough": [df["roughness"].to_numpy(dtype=float)[pl]],
+        "mk": [np.nan_to_num(df["minor_loss_k"].to_numpy(dtype=float)[pl], nan=0.0)],
+        "status": [np.where(np.isin(pstat.astype(str), CLOSED_WORDS), STATUS_CLOSED,
+                            STATUS_OPEN)],
+        "vt": [np.zeros(m, int)], "vs": [np.full(m, np.nan)], "pa": [np.full(m, np.nan)],
+        "pb": [np.full(m, np.nan)], "pc": [np.full(m, np.nan)], "speed": [np.ones(m)],
+        "geom": [sp.pieces], "material": [df["material"].to_numpy(dtype=object)[pl]],
+        "year": [df["install_year"].to_numpy(dtype=float)[pl]],
+        "rating": [df["pressure_rating"].to_numpy(dtype=float)[pl]],
+        "zone": [df["zone"].to_numpy(dtype=object)[pl]],
+        "layer": [np.full(m, sn.layer, dtype=object)],
+    }
+    for d in at.devices:
+        for k, v in _device_columns(ctx, sn, d, nt).items():
+            cols[k].append(v)
+    c = {k: np.concatenate(v) for k, v in cols.items()}
+    c["link_id"] = unique_ids(_prefix_collisions(c["link_id"], c["kind"]))
+    return LinkTable(cols=c)
+
+
+def _device_columns(ctx: Context, sn: Snapped, dev: Device, nt: NodeTable) -> dict:
+    f, pl, li = ctx.findings, dev.points, dev.line
+    fr, pts, layer, role = pl.frame, pl.pts, pl.layer, pl.role
+    df = sn.frame
+    m = len(li)
+    ids = pl.ids
+    closed = np.isin(column(fr, "status", object).astype(str), CLOSED_WORDS)
+    main_d = df["diameter"].to_numpy(dtype=float)[li]
+    kind = np.full(m, LINK_VALVE if role == "valves" else LINK_PUMP)
+    vt = np.zeros(m, int)
+    vs = np.full(m, np.nan)
+    status = np.where(closed, STATUS_CLOSED, STATUS_OPEN)
+    pa, pb, pc = (np.full(m, np.nan) for _ in range(3))
+    speed = np.ones(m)
+    d = main_d.copy()
+    mk = np.zeros(m)
+    if role == "valves":
+        dv = column(fr, "diameter")
+        d = np.where(np.isfinite(dv) & (dv > 0), dv, main_d)
+        mk = np.nan_to_num(column(fr, "minor_loss_k"), nan=0.0)
+        typ = column(fr, "type", object).astype(str)
+        raw = column(fr, "setting")  # PRVs: metres of head (read converts); throttles: K
+        vt[:] = VALVE_ISOLATION
+        prv = typ == "prv"
+        vs[prv] = raw[prv]
+        bad = prv & ~np.isfinite(vs)
+        f.add_many("valve_setting_missing", "error", layer, ids[bad],
+                   "pressure-reducing valve without a setting: modelled as an open valve",
+                   pts[bad])
+        vt[prv & ~bad] = VALVE_PRV
+        tcv = typ == "throttle"
+        vs[tcv] = raw[tcv]
+        badt = tcv & ~(np.isfinite(vs) & (vs >= 0))
+        f.add_many("valve_setting_missing", "error", layer, ids[badt],
+                   "throttle valve without a loss coefficient setting: K = 0 used", pts[badt])
+        vs[badt] = 0.0
+        vt[tcv] = VALVE_TCV
+        status[(typ == "check") & ~closed] = STATUS_CV
+    else:
+        sp = column(fr, "speed")
+        speed = np.where(np.isfinite(sp), sp, 1.0)
+        speed[closed] = 0.0
+        for r in range(m):  # a few pumps per utility: not a hot path
+            pts3 = [(column(fr, f"flow_{i}")[r], column(fr, f"head_{i}")[r]) for i in (1, 2, 3)]
+            design = (column(fr, "design_flow")[r], column(fr, "design_head")[r])
+            try:
+                if all(np.isfinite(v) for p in pts3 for v in p):
+                    a, b_, c_ = fit_pump_curve(pts3, link_id=str(ids[r]))
+                elif all(np.isfinite(design)):
+                    a, b_, c_ = fit_pump_curve([design], link_id=str(ids[r]))
+                else:
+                    raise ValueError("no design point or three curve points")
+                pa[r], pb[r], pc[r] = a, b_, c_
+            except ValueError as exc:
+                f.add("pump_curve_missing", "error", layer, ids[r],
+                      f"pump without a usable head curve ({exc}); modelled as a closed valve",
+                      pts[r])
+                kind[r], vt[r], status[r], d[r] = LINK_VALVE, VALVE_ISOLATION, STATUS_CLOSED, \
+                    main_d[r]
+    xy = shapely.get_coordinates(shapely.line_interpolate_point(
+        sn.geoms[li], shapely.line_locate_point(sn.geoms[li], pts)))
+    up, down = nt.idx_of_key[dev.up], nt.idx_of_key[dev.down]
+    fi = np.where(dev.reversed, down, up)
+    ti = np.where(dev.reversed, up, down)
+    geom = shapely.linestrings(np.repeat(xy, 2, axis=0), indices=np.repeat(np.arange(m), 2))
+    return {"link_id": ids, "from": fi, "to": ti, "kind": kind, "length": np.zeros(m),
+            "diameter": d, "rough": df["roughness"].to_numpy(dtype=float)[li], "mk": mk,
+            "status": status, "vt": vt, "vs": vs, "pa": pa, "pb": pb, "pc": pc,
+            "speed": speed, "geom": geom, "material": np.full(m, None, dtype=object),
+            "year": np.full(m, np.nan), "rating": np.full(m, np.nan),
+            "zone": df["zone"].to_numpy(dtype=object)[li],
+            "layer": column(fr, "source_layer", object)}
+
+
+def _prefix_collisions(ids: np.ndarray, kind: np.ndarray) -> np.ndarray:
+    """Valve and pump ids that repeat a pipe id are prefixed with their kind ('valve:12')."""
+    if (kind == LINK_PIPE).all():
+        return ids.astype(object)
+    ids = ids.astype(object).copy()
+    pipe_ids = set(ids[kind == LINK_PIPE].tolist())
+    for k, name in ((LINK_VALVE, "valve"), (LINK_PUMP, "pump")):
+        m = (kind == k) & np.isin(ids.astype(str), list(pipe_ids))
+        ids[m] = [f"{name}:{x}" for x in ids[m]]
+    return ids

@@ -1,0 +1,193 @@
+"""Stage 5 of the topology: the network's nodes, their order, ids, kinds and known elevations.
+
+Tanks and sources become fixed-head nodes at the nearest pipe end within their search
+distance. A tank's head is its bottom elevation plus its level; where the tank layer's
+``levels = "elevation"``, level and maximum level are absolute elevations instead of depths.
+Nodes are ordered by their coordinates (to the mm), so ids and results are deterministic.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import shapely
+
+from gridflow.config.layers import layer_sections
+from gridflow.network import NODE_JUNCTION, NODE_SOURCE, NODE_TANK
+from gridflow.topology.pipes import z_factor
+from gridflow.topology.points import column, point_layer
+from gridflow.topology.records import Attached, Context, NodeTable, Snapped, Split
+
+__all__ = ["number_nodes"]
+
+
+def number_nodes(ctx: Context, sn: Snapped, at: Attached, sp: Split) -> NodeTable:
+    """Stage 5: used keys become nodes; junction points, tanks and sources lend ids."""
+    cfg = ctx.cfg
+    key_xy = at.key_xy
+    used = np.zeros(len(key_xy), bool)
+    used[sp.from_key] = used[sp.to_key] = True
+    for d in at.devices:
+        used[d.up] = used[d.down] = True
+    used[at.hyd_key[at.hyd_key >= 0]] = True
+    end_keys = np.zeros(len(key_xy), bool)
+    end_keys[: at.n_clusters] = used[: at.n_clusters]
+    fixed, standin_keys = _fixed_heads(ctx, key_xy, end_keys)
+    keys = np.flatnonzero(used)
+    kx = np.round(key_xy[keys], 3)
+    keys = keys[np.lexsort((keys, kx[:, 1], kx[:, 0]))]
+    nn = len(keys)
+    idx_of_key = np.full(len(key_xy), -1)
+    idx_of_key[keys] = np.arange(nn)
+    node_xy = key_xy[keys]
+    node_id = np.full(nn, None, dtype=object)
+    kind = np.full(nn, NODE_JUNCTION, dtype=np.int8)
+    fixed_head = np.full(nn, np.nan)
+    elev = np.full(nn, np.nan)
+    zone = np.full(nn, None, dtype=object)
+    nodes = sn.nodes
+    is_cl = keys < at.n_clusters
+    if nodes is not None and len(nodes):
+        cn = np.full(nn, -1)
+        cn[is_cl] = sn.cluster_node[keys[is_cl]]
+        has = cn >= 0
+        node_id[has] = nodes["node_id"].to_numpy(dtype=object)[cn[has]]
+        if "zone" in nodes:
+            zone[has] = nodes["zone"].to_numpy(dtype=object)[cn[has]]
+        if cfg.elevation.source == "attribute" and "elevation" in nodes:
+            elev[has] = nodes["elevation"].to_numpy(dtype=float)[cn[has]]
+        if cfg.elevation.source == "z":
+            ng = np.asarray(nodes.geometry.values)
+            if shapely.has_z(ng).any():
+                z = shapely.get_coordinates(ng, include_z=True)[:, 2]
+                elev[has] = z[cn[has]] * z_factor(cfg)
+    if cfg.elevation.source == "z":
+        cz = np.full(nn, np.nan)
+        cz[is_cl] = sn.cluster_z[keys[is_cl]]
+        elev = np.where(np.isfinite(elev), elev, cz)
+    _point_elevations(ctx, at, elev, idx_of_key)
+    for k, (fk, fid, head, el) in sorted(fixed.items()):
+        i = idx_of_key[k]
+        kind[i], fixed_head[i], node_id[i] = fk, head, fid
+        if np.isfinite(el):
+            elev[i] = el
+    taken = set(node_id[node_id != None].tolist())  # noqa: E711
+    gen = node_id == None  # noqa: E711
+    prefix = "N"
+    while any(f"{prefix}{i + 1}" in taken for i in range(int(gen.sum()))):
+        prefix += "N"
+    node_id[gen] = [f"{prefix}{i + 1}" for i in range(int(gen.sum()))]
+    standin = np.zeros(nn, bool)
+    standin[idx_of_key[sorted(standin_keys)]] = True
+    return NodeTable(keys=keys, idx_of_key=idx_of_key, xy=node_xy,
+                     node_id=unique_ids(node_id), kind=kind, fixed_head_m=fixed_head,
+                     elevation_m=elev, standin=standin, zone=zone)
+
+
+def _levels_are_elevations(ctx: Context, role: str, frame) -> np.ndarray:
+    """True per row whose layer gives tank levels as absolute elevations."""
+    out = np.zeros(len(frame), bool)
+    names = column(frame, "source_layer", object)
+    for sec in layer_sections(ctx.cfg.layers, role):
+        if sec.levels == "elevation":
+            out |= names == sec.layer
+    return out
+
+
+def _fixed_heads(ctx: Context, key_xy: np.ndarray, used_end_keys: np.ndarray):
+    """Tanks and sources onto the nearest pipe-end node: {key: (kind, id, head, elev)}."""
+    from scipy.spatial import cKDTree
+
+    f = ctx.findings
+    out: dict[int, tuple[int, str, float, float]] = {}
+    standin_keys: set[int] = set()
+    cand = np.flatnonzero(used_end_keys)
+    tree = cKDTree(key_xy[cand]) if len(cand) else None
+    for role, kind in (("tanks", NODE_TANK), ("sources", NODE_SOURCE)):
+        pl = point_layer(ctx, role)
+        if pl is None:
+            continue
+        fr, pts, layer, ids = pl.frame, pl.pts, pl.layer, pl.ids
+        standin = np.zeros(len(fr), bool)
+        if role == "tanks":
+            elev = column(fr, "bottom_elevation")
+            level, top = column(fr, "level"), column(fr, "max_level")
+            absolute = _levels_are_elevations(ctx, role, fr)
+            head = np.where(absolute, level, elev + level)
+            top_head = np.where(absolute, top, elev + top)
+            low = np.isfinite(head) & (head < elev)
+            f.add_many("tank_level_implausible", "warning", layer, ids[low],
+                       [f"level gives a water surface at {h:.2f} m, below the bottom at "
+                        f"{e:.2f} m (check layers.tanks.levels: depth or elevation)"
+                        for h, e in zip(head[low], elev[low])], pts[low])
+            high = np.isfinite(head) & np.isfinite(top_head) & (head > top_head)
+            f.add_many("tank_level_implausible", "warning", layer, ids[high],
+                       [f"level gives a water surface at {h:.2f} m, above the maximum level "
+                        f"at {t:.2f} m" for h, t in zip(head[high], top_head[high])], pts[high])
+        else:
+            head = column(fr, "head")
+            elev = column(fr, "elevation")
+            standin = ~np.isfinite(elev)
+            elev = np.where(standin, head, elev)  # pressure 0 at the source
+        bad = ~np.isfinite(head)
+        f.add_many(f"{role[:-1]}_head_missing", "error", layer, ids[bad],
+                   f"{role[:-1]} without a usable head or level; left out", pts[bad])
+        sd = ctx.search_distance(role)
+        if tree is None:
+            d, j = np.full(len(fr), np.inf), np.zeros(len(fr), int)
+        else:
+            d, j = tree.query(shapely.get_coordinates(pts))
+        far = (d > sd) & ~bad
+        f.add_many(f"{role[:-1]}_unattached", "warning", layer, ids[far],
+                   [f"no pipe end within {sd:g} m (nearest {x:.2f} m); left out"
+                    for x in d[far]], pts[far])
+        ok = ~bad & ~far
+        info = ok & (d > ctx.tol)
+        f.add_many(f"{role[:-1]}_attached", "info", layer, ids[info],
+                   [f"attached to the pipe end {x:.2f} m away" for x in d[info]], pts[info])
+        for r in np.flatnonzero(ok):  # a few tanks and sources: not a hot path
+            k = int(cand[j[r]])
+            if k in out:
+                f.add(f"{role[:-1]}_conflict", "error", layer, ids[r],
+                      f"the nearest pipe end already holds {out[k][1]}; left out", pts[r])
+                continue
+            out[k] = (kind, str(ids[r]), float(head[r]), float(elev[r]))
+            if standin[r]:
+                standin_keys.add(k)
+    return out, standin_keys
+
+
+def _point_elevations(ctx: Context, at: Attached, elev: np.ndarray, idx_of_key) -> None:
+    """Elevations of hydrants, valves and pumps at their nodes where none is known yet."""
+    src = ctx.cfg.elevation.source
+    sources = []
+    if at.hydrants is not None:
+        sources.append((at.hydrants.frame, at.hydrants.pts, at.hyd_key))
+    for d in at.devices:
+        sources.append((d.points.frame, d.points.pts, d.up))
+        sources.append((d.points.frame, d.points.pts, d.down))
+    for fr, pts, key in sources:
+        if len(fr) == 0:
+            continue
+        ok = key >= 0
+        if src == "z" and shapely.has_z(pts).any():
+            e = shapely.get_coordinates(pts, include_z=True)[:, 2] * z_factor(ctx.cfg)
+        elif src in ("attribute", "z"):
+            e = column(fr, "elevation")  # flat points on Z-mapped mains: their attribute
+        else:
+            continue
+        i = idx_of_key[key[ok]]
+        cur = elev[i]
+        elev[i] = np.where(np.isfinite(cur), cur, e[ok])
+
+
+def unique_ids(ids: np.ndarray) -> np.ndarray:
+    """Ids made unique with a '#k' suffix on repeats (repeats across layers)."""
+    import pandas as pd
+
+    s = pd.Series(ids.astype(str))
+    k = s.groupby(s, sort=False).cumcount().to_numpy()
+    if (k > 0).any():
+        out = s.to_numpy(dtype=object)
+        out[k > 0] = [f"{a}#{b + 1}" for a, b in zip(out[k > 0], k[k > 0])]
+        return out
+    return ids.astype(object)

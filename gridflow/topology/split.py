@@ -1,0 +1,31 @@
+"""Stage 4 of the topology: the mains split at their events into pipe pieces."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from gridflow.topology.lines import split_lines
+from gridflow.topology.records import Attached, Snapped, Split
+
+__all__ = ["split_mains"]
+
+
+def split_mains(sn: Snapped, at: Attached) -> Split:
+    """Stage 4: pieces of each main between its events; a split main's pieces carry its id
+    with a suffix (``<id>.1``, ``<id>.2`` ...)."""
+    n = len(sn.geoms)
+    pieces, p_line, p_k = split_lines(sn.geoms, at.ev_line, at.ev_s, at.ev_xy)
+    n_ev = np.bincount(at.ev_line, minlength=n)
+    ev_before = np.concatenate([[0], np.cumsum(n_ev)[:-1]])
+    last = p_k == n_ev[p_line]
+    first = p_k == 0
+    e_end = ev_before[p_line] + p_k  # event ending this piece (when not last)
+    ev_up = np.r_[at.ev_up, -1].astype(np.int64)  # a sentinel keeps the indexing in range
+    ev_down = np.r_[at.ev_down, -1].astype(np.int64)
+    p_from = np.where(first, at.start_key[p_line], ev_down[np.maximum(e_end - 1, 0)])
+    p_to = np.where(last, at.end_key[p_line], ev_up[np.minimum(e_end, len(ev_up) - 1)])
+    split_n = n_ev[p_line] > 0
+    pid = sn.ids[p_line].astype(object)
+    pid[split_n] = [f"{a}.{k + 1}" for a, k in zip(pid[split_n], p_k[split_n])]
+    return Split(pieces=pieces, line=p_line, from_key=p_from.astype(np.int64),
+                 to_key=p_to.astype(np.int64), pipe_id=pid)
