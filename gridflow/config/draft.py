@@ -228,11 +228,12 @@ LAT = _w("LAT", "LATERAL", "BRANCH", "LEAD")
 LEN = _w("LEN", "LENGTH", "LGTH")
 FLOWW = _w("FLOW", "Q", "GPM", "LPS", "CAPACITY", "RATE")
 HEADW = _w("HEAD", "H", "TDH", "HD", "LIFT")
-STATUS = _w("STATUS", "LIFECYCLE", "STATE", "ACTIVE", "INSERVICE", "ENABLED", "OPSTATUS",
+STATUS = _w("STATUS", "STAT", "LIFECYCLE", "STATE", "ACTIVE", "INSERVICE", "ENABLED", "OPSTATUS",
             "CONDITION")
 POSITION = _w("POS", "POSITION", "NORMPOS", "NORMALPOS", "NORMAL", "OPEN", "OPENCLOSED")
 ZONE = _w("ZONE", "PZ", "PZONE", "PRESSZONE", "PRESSUREZONE")
 NAME = _w("NAME", "STREET", "STNAME", "ROAD", "LABEL", "DESC", "DESCRIPTION", "LOCATION")
+DIRW = _w("DIR", "DIRECTION", "FLOWDIR", "BRG", "BEARING", "AZIMUTH", "AZ", "ROTATION", "ROT")
 IDW = _w("ID", "NO", "NUM", "NUMBER", "FACILITYID", "GID", "KEY", "ASSETID", "TAG", "CODE")
 
 #: per role and field role: alternatives (each a tuple of word sets that must all appear),
@@ -251,6 +252,7 @@ _SPECS: dict[str, dict[str, tuple[list[tuple[frozenset, ...]], frozenset, str]]]
                              (_w("PN", "PRESSCLASS", "PRESSURECLASS", "RATING"),)], _w(), "num"),
         "minor_loss_k": ([(_w("K", "MINORLOSS", "KMINOR"),)], _w(), "num"),
         "name": ([(NAME,)], _w(), "text"),
+        "level": ([(_w("LVL", "LEVEL", "LAYER", "GRADESEP", "VLEVEL"),)], _w(), "text"),
     },
     "hydrants": {
         "required_fire_flow": ([(_w("REQ", "REQUIRED", "NFF", "RFF", "NEEDED"), FLOWW | _w("FF")),
@@ -270,6 +272,7 @@ _SPECS: dict[str, dict[str, tuple[list[tuple[frozenset, ...]], frozenset, str]]]
         "diameter": ([(DIAM,)], _w(), "num"),
         "elevation": ([(ELEV,)], _w(), "num"),
         "minor_loss_k": ([(_w("K", "MINORLOSS", "KMINOR"),)], _w(), "num"),
+        "direction": ([(DIRW,)], _w(), "any"),
     },
     "tanks": {
         "bottom_elevation": ([(_w("BASE", "BOTTOM", "BOT", "FLOOR", "BTM"),)], _w(), "num"),
@@ -283,11 +286,15 @@ _SPECS: dict[str, dict[str, tuple[list[tuple[frozenset, ...]], frozenset, str]]]
                          _w("DSGN", "DESIGN", "RATED"), "num") for i in (1, 2, 3)},
         **{f"head_{i}": ([(_w(f"H{i}", f"HEAD{i}", f"TDH{i}"),), (HEADW, _w(str(i)))],
                          _w("DSGN", "DESIGN", "RATED"), "num") for i in (1, 2, 3)},
-        "design_flow": ([(_w("DSGN", "DESIGN", "RATED"), FLOWW)], _w(), "num"),
-        "design_head": ([(_w("DSGN", "DESIGN", "RATED"), HEADW)], _w(), "num"),
+        # a lone flow and head (no numbered curve points) are the design point
+        "design_flow": ([(_w("DSGN", "DESIGN", "RATED"), FLOWW), (FLOWW,)], _w("1", "2", "3"),
+                        "num"),
+        "design_head": ([(_w("DSGN", "DESIGN", "RATED"), HEADW), (HEADW,)], _w("1", "2", "3"),
+                        "num"),
         "speed": ([(_w("SPEED", "RELSPEED"),)], _w("RPM"), "num"),
         "status": ([(STATUS,)], _w(), "text"),
         "name": ([(NAME,)], _w(), "text"),
+        "direction": ([(DIRW,)], _w(), "any"),
     },
     "sources": {
         "head": ([(_w("HGL", "HEAD", "GRADE", "HYDGRADE", "TOTALHEAD"),)], _w(), "num"),
@@ -310,7 +317,7 @@ _SPECS: dict[str, dict[str, tuple[list[tuple[frozenset, ...]], frozenset, str]]]
 #: words in a layer's name per role
 _LAYER_WORDS = {
     "pipes": _w("MAIN", "MAINS", "PIPE", "PIPES", "WATERMAIN", "WATERMAINS", "LINE", "LINES",
-                "WMAIN", "DISTRIBUTION"),
+                "WMAIN", "DISTRIBUTION", "TRANSMISSION", "TRUNK"),
     "hydrants": _w("HYDRANT", "HYDRANTS", "HYD", "FH", "FIREHYDRANT", "FIREHYDRANTS"),
     "valves": _w("VALVE", "VALVES", "VLV", "SYSTEMVALVES", "PRV"),
     "tanks": _w("TANK", "TANKS", "STORAGE", "TOWER", "TOWERS"),
@@ -330,6 +337,8 @@ def _field_score(role: str, fr: str, f: FieldInfo) -> float:
         return 0.0
     if kind == "num" and not f.numeric:
         return 0.0
+    if kind == "any":
+        kind = "num" if f.numeric else "text"
     toks = f.tokens
     if toks & exclude:
         return 0.0
@@ -407,17 +416,29 @@ def _layer_score(role: str, layer: LayerInfo) -> float:
     return max(score, 0.0)
 
 
-def _assign_roles(layers: list[LayerInfo]) -> dict[str, LayerInfo]:
+def _assign_roles(layers: list[LayerInfo]) -> dict[str, list[LayerInfo]]:
+    """Role -> its layers: the likeliest first; more layers join a role when their name says
+    it and they carry its required fields (valves and PRV stations, mains in two layers)."""
     cand = [(_layer_score(role, lay), role, lay) for role in _SPECS for lay in layers]
     cand.sort(key=lambda c: -c[0])
-    out: dict[str, LayerInfo] = {}
+    out: dict[str, list[LayerInfo]] = {}
     taken: set[str] = set()
     for score, role, lay in cand:
         if score < 1.0 or role in out or lay.name in taken:
             continue
-        out[role] = lay
+        out[role] = [lay]
         taken.add(lay.name)
-    return out
+    for score, role, lay in cand:
+        if lay.name in taken or role not in out or score < 3.5 or not _named_as(role, lay):
+            continue
+        out[role].append(lay)
+        taken.add(lay.name)
+    order = {lay.name: i for i, lay in enumerate(layers)}
+    return {role: sorted(lays, key=lambda x: order[x.name]) for role, lays in out.items()}
+
+
+def _named_as(role: str, lay: LayerInfo) -> bool:
+    return bool(_tokens(lay.name) & _LAYER_WORDS[role])
 
 
 # ---- units ---------------------------------------------------------------------------------
@@ -500,6 +521,10 @@ _VALVE_TYPES = {
     "prv": {"PRV", "PRESSUREREDUCING", "PRESSUREREDUCINGVALVE", "PR", "REDUCING", "PRS"},
     "check": {"CHK", "CHECK", "CV", "NRV", "NONRETURN", "CHECKVALVE"},
     "throttle": {"TCV", "THROTTLE", "THROTTLING", "TV"},
+}
+_DIRECTIONS = {
+    "with": {"W", "WITH", "F", "FWD", "FORWARD", "DIG", "DIGITIZED", "DIGITISED", "SAME", "D"},
+    "against": {"A", "AGAINST", "R", "REV", "REVERSE", "OPP", "OPPOSITE", "REVERSED"},
 }
 _MATERIALS = {
     "cast_iron": {"CI", "CAST", "CASTIRON", "CIP", "GRAYIRON", "GREYIRON"},
@@ -628,26 +653,30 @@ def draft_config(gis: str | Path, *, config_dir: str | Path | None = None) -> st
     """
     gis = Path(gis)
     layers = inspect_gis(gis)
-    roles = _assign_roles(layers)
-    if "pipes" not in roles:
+    groups = _assign_roles(layers)
+    if "pipes" not in groups:
         raise InputError(f"{gis}: no line layer to take as the water mains (layers: "
                          f"{', '.join(f'{x.name} ({x.geometry})' for x in layers) or 'none'})",
                          file=str(gis))
     base = Path(config_dir) if config_dir is not None else gis.parent
     rel = os.path.relpath(gis.resolve(), base.resolve())
+    entries = [(role, lay, _match_fields(role, lay)) for role, lays in groups.items()
+               for lay in lays]
+    roles = {role: lays[0] for role, lays in groups.items()}  # a role's first layer
     matched = {role: _match_fields(role, lay) for role, lay in roles.items()}
-    system = _unit_system(roles, matched)
+    system = _unit_system(entries, roles["pipes"])
     w = _Writer()
-    _header(w, gis, layers, roles, system)
+    _header(w, gis, layers, entries, system)
     _run_section(w, gis, roles["pipes"], system)
     w.raw("[inputs]")
     w.kv("gis", _q(Path(rel).as_posix()))
     w.raw()
     w.raw("# ---- layers: each role matched to the likeliest layer; evidence beside each line --")
     for role in ("pipes", "nodes", "hydrants", "valves", "tanks", "pumps", "sources", "meters"):
-        if role in roles:
-            _layer_section(w, role, roles[role], matched[role], system)
-    _elevation_section(w, roles, matched, system)
+        for lay in groups.get(role, []):
+            _layer_section(w, role, lay, _match_fields(role, lay), system,
+                           many=len(groups[role]) > 1)
+    _elevation_section(w, roles, entries, matched, system)
     _roughness_section(w, roles["pipes"], matched["pipes"])
     _demand_section(w, roles, matched)
     _scenario_and_fire_sections(w, roles, matched, system)
@@ -662,10 +691,12 @@ def count_checks(text: str) -> int:
                                                       or line.startswith("# CHECK:")))
 
 
-def _unit_system(roles: dict[str, LayerInfo], matched: dict) -> str:
+def _unit_system(entries: list, pipes: LayerInfo) -> str:
     votes: Counter[str] = Counter()
-    for role, fields in matched.items():
+    for role, _lay, fields in entries:
         for fr, (f, _) in fields.items():
+            if fr not in NUMERIC_FIELDS[role]:
+                continue
             table = NUMERIC_FIELDS[role].get(fr)
             if table is None and fr != "consumption":
                 continue
@@ -676,7 +707,7 @@ def _unit_system(roles: dict[str, LayerInfo], matched: dict) -> str:
                 votes["SI"] += 1
     if votes:
         return votes.most_common(1)[0][0]
-    crs = roles["pipes"].crs
+    crs = pipes.crs
     try:
         import pyproj
 
@@ -686,7 +717,7 @@ def _unit_system(roles: dict[str, LayerInfo], matched: dict) -> str:
     return "US" if "foot" in unit or "feet" in unit else "SI"
 
 
-def _header(w: _Writer, gis: Path, layers: list[LayerInfo], roles: dict[str, LayerInfo],
+def _header(w: _Writer, gis: Path, layers: list[LayerInfo], entries: list,
             system: str) -> None:
     w.raw(f"# gridflow config drafted by `gridflow init` from {gis.name}.")
     w.raw("#")
@@ -698,7 +729,7 @@ def _header(w: _Writer, gis: Path, layers: list[LayerInfo], roles: dict[str, Lay
     w.raw("# licensed engineers decide.")
     w.raw("#")
     w.raw("# Layers found:")
-    by_layer = {lay.name: role for role, lay in roles.items()}
+    by_layer = {lay.name: role for role, lay, _ in entries}
     for lay in layers:
         role = by_layer.get(lay.name)
         what = f"-> {role}" if role else "(not used)"
@@ -726,9 +757,10 @@ def _run_section(w: _Writer, gis: Path, pipes: LayerInfo, system: str) -> None:
 
 
 def _layer_section(w: _Writer, role: str, lay: LayerInfo,
-                   fields: dict[str, tuple[FieldInfo, bool]], system: str) -> None:
+                   fields: dict[str, tuple[FieldInfo, bool]], system: str, *,
+                   many: bool = False) -> None:
     w.raw()
-    w.raw(f"[layers.{role}]")
+    w.raw(f"[[layers.{role}]]" if many else f"[layers.{role}]")
     w.kv("input", '"gis"')
     strong_layer = bool(_tokens(lay.name) & _LAYER_WORDS[role])
     w.kv("layer", _q(lay.name), f"{lay.geometry}, {lay.count} feature(s)"
@@ -762,11 +794,27 @@ def _layer_section(w: _Writer, role: str, lay: LayerInfo,
                 u, why = _unit_from_values(role, fr, f, system)
                 note += f", {why}"
                 unit_line = (u, "unit guessed from the values", True)
+        if fr == "direction" and f.numeric:
+            note += ", a bearing in degrees?"
+            unit_line = ("deg", "clockwise from grid north, towards which water goes", True)
         w.kv(f"fields.{fr}", _q(f.name), note, check=check)
         if unit_line is not None:
             w.kv(f"units.{fr}", _q(unit_line[0]), unit_line[1], check=unit_line[2])
-        if fr in ("status", "type", "material"):
+        if fr in ("status", "type", "material") or (fr == "direction" and not f.numeric):
             codes.append((fr, f))
+        if fr == "level" and role == "pipes":
+            odd = [c for c in f.counts if not re.fullmatch(r"-?\d+", c)]
+            w.raw(f"# {f.name} values: {_list_counts(f)} (grade-separation levels: whole "
+                  "numbers)")
+            if odd:
+                w.raw(f"# CHECK: not whole numbers, map them, e.g. codes.level.{_k(odd[0])} = "
+                      '"-1"')
+                w.checks += 1
+    if role == "tanks" and "level" in fields and "bottom_elevation" in fields:
+        lv, bt = fields["level"][0], fields["bottom_elevation"][0]
+        if lv.median > bt.median:
+            w.kv("levels", '"elevation"', f"{lv.name} (median {_g(lv.median)}) is above "
+                 f"{bt.name} (median {_g(bt.median)}): absolute levels", check=True)
     for fr, f in codes:
         _codes(w, role, fr, f)
     if "zone" in fields:
@@ -807,12 +855,14 @@ def _codes(w: _Writer, role: str, fr: str, f: FieldInfo) -> None:
             target = _status_target(role, code)
         elif fr == "type":
             target = _lookup(_VALVE_TYPES, code)
+        elif fr == "direction":
+            target = _lookup(_DIRECTIONS, code)
         else:
             target = _lookup(_MATERIALS, code)
         if target is None:
             unknown.append(code)
             continue
-        full_word = len(_key(code)) > 3 or target.startswith(_key(code).lower())
+        full_word = len(_key(code)) > 3 or target == _key(code).lower()
         if fr == "material":  # free names, used by the roughness table (itself to confirm)
             w.kv(f"codes.{fr}.{_k(code)}", _q(target))
             continue
@@ -824,8 +874,8 @@ def _codes(w: _Writer, role: str, fr: str, f: FieldInfo) -> None:
         w.checks += 1
 
 
-def _elevation_section(w: _Writer, roles: dict[str, LayerInfo], matched: dict,
-                       system: str) -> None:
+def _elevation_section(w: _Writer, roles: dict[str, LayerInfo], entries: list,
+                       matched: dict, system: str) -> None:
     w.raw()
     w.raw("# ---- elevations, roughness ------------------------------------------------------")
     w.raw("[elevation]")
@@ -834,7 +884,7 @@ def _elevation_section(w: _Writer, roles: dict[str, LayerInfo], matched: dict,
         z = np.asarray(pipes.z, dtype=float)
         zlo, zhi, zmed = float(np.min(z)), float(np.max(z)), float(np.median(z))
         w.kv("source", '"z"', f"{pipes.name} carries Z: {_g(zlo)}-{_g(zhi)}")
-        unit, why, check = _z_unit(zmed, roles, matched, system)
+        unit, why, check = _z_unit(zmed, entries, system)
         w.kv("unit", _q(unit), why, check=check)
     elif "nodes" in roles and "elevation" in matched.get("nodes", {}):
         w.kv("source", '"attribute"', f"{roles['nodes'].name} has elevations")
@@ -845,16 +895,15 @@ def _elevation_section(w: _Writer, roles: dict[str, LayerInfo], matched: dict,
         w.kv("unit", _q("ft" if system == "US" else "m"), "unit of Z and of a DEM", check=True)
 
 
-def _z_unit(zmed: float, roles: dict[str, LayerInfo], matched: dict,
-            system: str) -> tuple[str, str, bool]:
+def _z_unit(zmed: float, entries: list, system: str) -> tuple[str, str, bool]:
     """Z unit: that of a point layer's named-unit elevation field with a similar median."""
-    for role, fields in matched.items():
+    for _role, lay, fields in entries:
         if "elevation" not in fields:
             continue
         f = fields["elevation"][0]
         u = _unit_from_name(f, HEAD)
         if u is not None and abs(f.median - zmed) <= 0.25 * max(abs(zmed), 1.0):
-            return u, f"median Z {_g(zmed)} matches {roles[role].name}.{f.name} " \
+            return u, f"median Z {_g(zmed)} matches {lay.name}.{f.name} " \
                       f"(median {_g(f.median)}, {u})", False
     u = "ft" if system == "US" else "m"
     return u, f"median Z {_g(zmed)}; unit guessed from the rest of the file", True

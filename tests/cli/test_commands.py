@@ -3,10 +3,8 @@ cycle, and the same typed errors as the Python interface mapped to exit codes.""
 
 from __future__ import annotations
 
-import ast
 import subprocess
 import sys
-from pathlib import Path
 
 import click
 import networkx as nx
@@ -16,58 +14,12 @@ import gridflow
 from gridflow.cli import main as cli_main
 from gridflow.cli.guard import exit_code_for
 
-PKG = Path(gridflow.__file__).resolve().parent
-
-
-def _module_name(path: Path) -> str:
-    rel = path.relative_to(PKG.parent).with_suffix("")
-    parts = list(rel.parts)
-    if parts[-1] == "__init__":
-        parts.pop()
-    return ".".join(parts)
-
-
-def _import_graph() -> nx.DiGraph:
-    """gridflow's modules and every import between them (top level and inside functions)."""
-    modules = {_module_name(p): p for p in PKG.rglob("*.py")}
-    g = nx.DiGraph()
-    g.add_nodes_from(modules)
-    for name, path in modules.items():
-        pkg = name if path.name == "__init__.py" else name.rpartition(".")[0]
-        for node in _runtime_nodes(ast.parse(path.read_text())):
-            targets = []
-            if isinstance(node, ast.Import):
-                targets = [a.name for a in node.names]
-            elif isinstance(node, ast.ImportFrom):
-                base = node.module or ""
-                if node.level:
-                    up = pkg.split(".")[: len(pkg.split(".")) - node.level + 1]
-                    base = ".".join([*up, base] if base else up)
-                targets = [f"{base}.{a.name}" if f"{base}.{a.name}" in modules else base
-                           for a in node.names]
-            for t in targets:
-                # the root package runs before any of its modules anyway; its own imports
-                # (the error classes) are followed like any other module's
-                if t in modules and t != name and t != "gridflow":
-                    g.add_edge(name, t)
-    return g
-
-
-def _runtime_nodes(tree: ast.AST):
-    """Every node except those under ``if TYPE_CHECKING:`` (never run)."""
-    stack = [tree]
-    while stack:
-        node = stack.pop()
-        yield node
-        for child in ast.iter_child_nodes(node):
-            if isinstance(child, ast.If) and "TYPE_CHECKING" in ast.unparse(child.test):
-                stack.extend(child.orelse)
-                continue
-            stack.append(child)
+from ..test_import_cycles import import_graph
 
 
 def test_cli_has_no_import_cycle():
-    g = _import_graph()
+    # the whole package has none (tests/test_import_cycles.py); here: the command line's shape
+    g = import_graph()
     cli_mods = [m for m in g if m.startswith("gridflow.cli")]
     assert "gridflow.cli.main" in cli_mods and "gridflow.cli.options" in cli_mods
     for scc in nx.strongly_connected_components(g):
@@ -83,7 +35,7 @@ def test_cli_has_no_import_cycle():
 def test_the_import_graph_sees_function_level_imports():
     # the cycle check can fail: imports inside functions count (the commands import their
     # jobs lazily), so a command importing the group back would be an edge here
-    g = _import_graph()
+    g = import_graph()
     assert g.has_edge("gridflow.cli.run", "gridflow.jobs.run")
     assert g.has_edge("gridflow._model", "gridflow.jobs.stages")
 

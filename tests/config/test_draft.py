@@ -48,8 +48,14 @@ def test_sample_draft_maps_what_the_hand_written_config_maps(sample_draft):
     hand = tomllib.loads((SAMPLE / "millbrook.toml").read_text())
     assert draft["inputs"] == {"gis": "millbrook.gpkg"}
     assert set(draft["layers"]) == set(hand["layers"])
+    pairs = []
     for role, h in hand["layers"].items():
+        hs = h if isinstance(h, list) else [h]
         d = draft["layers"][role]
+        ds = d if isinstance(d, list) else [d]
+        assert [x["layer"] for x in ds] == [x["layer"] for x in hs], role  # lists too
+        pairs += [(role, a, b) for a, b in zip(hs, ds)]
+    for role, h, d in pairs:
         assert (d["layer"], d["id"]) == (h["layer"], h["id"]), role
         for fr, column in h["fields"].items():
             assert d["fields"].get(fr) == column, (role, fr)
@@ -67,6 +73,7 @@ def test_sample_draft_maps_what_the_hand_written_config_maps(sample_draft):
         assert sorted(draft["demand"]["categories"][cat]["codes"]) == sorted(sec["codes"])
     # the pump's design point is drafted too; the three-point curve takes precedence
     assert draft["layers"]["pumps"]["fields"]["design_flow"] == "DSGN_GPM"
+    assert [v["layer"] for v in draft["layers"]["valves"]] == ["SystemValves", "PRVStations"]
 
 
 def test_sample_draft_carries_evidence_and_checks(sample_draft):
