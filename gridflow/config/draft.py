@@ -277,7 +277,8 @@ _SPECS: dict[str, dict[str, tuple[list[tuple[frozenset, ...]], frozenset, str]]]
     "tanks": {
         "bottom_elevation": ([(_w("BASE", "BOTTOM", "BOT", "FLOOR", "BTM"),)], _w(), "num"),
         "level": ([(LEVEL,)], MAXW | _w("MIN", "LOW"), "num"),
-        "max_level": ([(MAXW, LEVEL)], _w(), "num"),
+        "max_level": ([(MAXW, LEVEL), (_w("TOP", "OVERFLOW", "HWL", "MAXLEVEL", "MAXLVL"),)],
+                      _w("ELEV"), "num"),
         "diameter": ([(DIAM,)], _w(), "num"),
         "name": ([(NAME,)], _w(), "text"),
     },
@@ -678,7 +679,7 @@ def draft_config(gis: str | Path, *, config_dir: str | Path | None = None) -> st
                            many=len(groups[role]) > 1)
     _elevation_section(w, roles, entries, matched, system)
     _roughness_section(w, roles["pipes"], matched["pipes"])
-    _demand_section(w, roles, matched)
+    _demand_section(w, roles, matched, system)
     _scenario_and_fire_sections(w, roles, matched, system)
     text = w.text()
     return text.replace("@@CHECKS@@", str(count_checks(text)))
@@ -938,7 +939,8 @@ def _roughness_section(w: _Writer, pipes: LayerInfo, fields: dict) -> None:
     w.raw("]")
 
 
-def _demand_section(w: _Writer, roles: dict[str, LayerInfo], matched: dict) -> None:
+def _demand_section(w: _Writer, roles: dict[str, LayerInfo], matched: dict,
+                    system: str) -> None:
     w.raw()
     w.raw("# ---- demand: customer meters to mains ----------------------------------------------")
     w.raw("[demand]")
@@ -955,7 +957,8 @@ def _demand_section(w: _Writer, roles: dict[str, LayerInfo], matched: dict) -> N
     else:
         u, why = _unit_from_values("meters", "consumption", f, "US")
         w.kv("consumption_unit", _q(u), f"{f.describe()}, {why}", check=True)
-    w.kv("search_distance", '"150 ft"', "meters farther from every main are findings")
+    w.kv("search_distance", '"150 ft"' if system == "US" else '"45 m"',
+         "meters farther from every main are findings")
     pipe_d = matched["pipes"].get("diameter")
     if pipe_d is not None:
         w.kv("max_main_diameter", '"0 in"', f"no limit; transmission mains (largest "

@@ -230,3 +230,36 @@ def test_draft_config_text_is_valid_toml_anywhere(tmp_path):
     _odd_gis(gpkg)
     text = draft_config(gpkg, config_dir=tmp_path)
     assert tomllib.loads(text)["inputs"]["gis"] == "odd.gpkg"
+
+
+# ---- the street town: real OSM street geometry with invented utility attributes -------------
+
+def test_street_town_draft_maps_what_its_hand_written_config_maps(tmp_path):
+    from tests.topology.street_town import build, config_table
+
+    town = build(tmp_path)
+    out = tmp_path / "town.toml"
+    res = _cli("init", town.gpkg, "--out", out)
+    assert res.exit_code == 0, res.output
+    draft = tomllib.loads(out.read_text())
+    hand = config_table(town)
+    assert draft["run"]["units"] == "SI" and draft["run"]["crs"] == "EPSG:3067"
+    assert draft["elevation"] == {"source": "z", "unit": "m"}
+    for role, h in hand["layers"].items():
+        hs = h if isinstance(h, list) else [h]
+        d = draft["layers"][role]
+        ds = d if isinstance(d, list) else [d]
+        assert [x["layer"] for x in ds] == [x["layer"] for x in hs], role  # two-layer roles
+        for a, b in zip(hs, ds):
+            assert b["id"] == a["id"], (role, a["layer"])
+            for fr, column in a["fields"].items():
+                assert b["fields"].get(fr) == column, (role, a["layer"], fr)
+            for fr, unit in a.get("units", {}).items():
+                assert b["units"][fr] == unit, (role, a["layer"], fr)
+            for fr in ("type", "direction"):
+                for code, target in b.get("codes", {}).get(fr, {}).items():
+                    assert a["codes"][fr][code] == target, (role, fr, code)
+    assert draft["layers"]["tanks"]["levels"] == "elevation"  # absolute water levels
+    assert draft["demand"]["consumption_unit"] == hand["demand"]["consumption_unit"]
+    res = _cli("-q", "check", out, "--out", tmp_path / "check.gpkg")
+    assert res.exit_code == 0, res.output
