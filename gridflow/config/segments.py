@@ -30,8 +30,9 @@ class SegmentsSection:
                                 "limit)")
     max_meters: int = opt(100, parse=P_INT, doc="a segment serving more meters than this is a "
                                                 "finding (0: no limit)")
-    criticality: bool = opt(True, parse=P_BOOL,
-                            doc="close each segment's valves, solve, and count what is lost")
+    criticality: bool = opt(False, parse=P_BOOL,
+                            doc="close each segment's valves, solve, and count what is lost "
+                                "(one solve per segment: hours at 100k mains on two cores)")
     scenario: str = opt("average_day", parse=P_STR,
                         doc="scenario the closures are solved in (default: average_day, else the "
                             "first scenario)")

@@ -65,6 +65,8 @@ def number_nodes(ctx: Context, sn: Snapped, at: Attached, sp: Split) -> NodeTabl
         cz[is_cl] = sn.cluster_z[keys[is_cl]]
         elev = np.where(np.isfinite(elev), elev, cz)
     _point_elevations(ctx, at, elev, idx_of_key)
+    if cfg.elevation.source == "z":
+        _split_point_elevations(sn, at, elev, idx_of_key)
     for k, (fk, fid, head, el) in sorted(fixed.items()):
         i = idx_of_key[k]
         kind[i], fixed_head[i], node_id[i] = fk, head, fid
@@ -178,6 +180,25 @@ def _point_elevations(ctx: Context, at: Attached, elev: np.ndarray, idx_of_key) 
         i = idx_of_key[key[ok]]
         cur = elev[i]
         elev[i] = np.where(np.isfinite(cur), cur, e[ok])
+
+
+def _split_point_elevations(sn: Snapped, at: Attached, elev: np.ndarray, idx_of_key) -> None:
+    """Nodes made on a main's interior (devices, hydrants, T-junctions) where nothing else
+    gave an elevation: the main's Z interpolated linearly between its two ends, by distance
+    along it (an export carries Z on the mains, seldom on every valve and hydrant)."""
+    if "z0" not in sn.frame or not len(at.ev_line):
+        return
+    z0 = sn.frame["z0"].to_numpy(dtype=float)[at.ev_line]
+    z1 = sn.frame["z1"].to_numpy(dtype=float)[at.ev_line]
+    length = shapely.length(sn.geoms[at.ev_line])
+    t = np.clip(at.ev_s / np.maximum(length, 1e-12), 0.0, 1.0)
+    z = z0 + (z1 - z0) * t
+    for keys in (at.ev_up, at.ev_down):
+        ok = keys >= 0
+        i = idx_of_key[keys[ok]]
+        good = i >= 0
+        i, zi = i[good], z[ok][good]
+        elev[i] = np.where(np.isfinite(elev[i]), elev[i], zi)
 
 
 def unique_ids(ids: np.ndarray) -> np.ndarray:
