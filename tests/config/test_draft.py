@@ -17,8 +17,9 @@ from click.testing import CliRunner
 
 from gridflow.cli.main import cli
 from gridflow.config import load_config
-from gridflow.config.draft import FieldInfo, _unit_from_values, count_checks, draft_config
+from gridflow.config.draft import _unit_from_values, count_checks, draft_config
 from gridflow.config.layers import NUMERIC_FIELDS
+from gridflow.io.inspect import FieldInfo
 
 from ..gis_helpers import CRS, L, P, layer
 
