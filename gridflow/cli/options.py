@@ -14,9 +14,11 @@ __all__ = ["config_arg", "gis_arg", "out_opt", "previous_opt", "workers_opt", "s
 config_arg = click.argument("config", type=click.Path(dir_okay=False))
 gis_arg = click.argument("gis", type=click.Path(dir_okay=False))
 out_opt = click.option("--out", "out", type=click.Path(dir_okay=False), default=None,
-                       help="output GeoPackage (default: [run] output in the config)")
+                       help="output GeoPackage, or a PostgreSQL database and schema "
+                            "('service=NAME schema=NAME'; default: [run] output)")
 previous_opt = click.option("--previous", type=click.Path(dir_okay=False), default=None,
-                            help="last night's output GeoPackage, for the changes layer")
+                            help="last night's output GeoPackage (or database schema, as for "
+                                 "--out), for the changes layer")
 workers_opt = click.option("--workers", type=int, default=None,
                            help="local worker processes for the fire-flow sweep (default: the "
                                 "machine's cores)")

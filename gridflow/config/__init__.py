@@ -35,7 +35,9 @@ class Config:
 
     run: RunSection = opt(parse=section(RunSection), doc="the run as a whole",
                           default_factory=RunSection)
-    inputs: dict = opt(parse=parse_inputs, doc="input files by name: name = 'path'")
+    inputs: dict = opt(parse=parse_inputs,
+                       doc="input files by name: name = 'path' (or a PostgreSQL database, "
+                           "see the PostGIS section)")
     layers: LayersSection = opt(parse=section(LayersSection), doc="layer per role")
     elevation: ElevationSection = opt(parse=section(ElevationSection),
                                       default_factory=ElevationSection,

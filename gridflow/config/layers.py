@@ -272,6 +272,11 @@ def parse_inputs(value, key: str) -> dict[str, str]:
     files = str_map(value, key)
     if not files:
         raise ConfigError(f"config key {key} needs at least one file", key=key)
+    from gridflow.config.database import is_database, parse_database
+
+    for name, spec in files.items():
+        if is_database(spec):  # a PostgreSQL/PostGIS database: checked, never a password
+            parse_database(spec, f"{key}.{name}")
     return files
 
 

@@ -16,10 +16,12 @@ from __future__ import annotations
 import contextlib
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pandas as pd
 
+from gridflow.config.database import is_database
 from gridflow.config.layers import (
     BEARING_UNITS,
     NUMERIC_FIELDS,
@@ -52,7 +54,7 @@ class LayerInfo:
     """What inspecting a mapped layer found (no features read)."""
 
     role: str
-    file: Path
+    file: Any  # a Path; for a database input a gridflow.io.postgis.DatabaseSource
     layer: str
     crs: str | None
     fields: tuple[str, ...]
@@ -104,8 +106,14 @@ def inspect_layers(cfg) -> dict[str, tuple[LayerInfo, ...]]:
 
 
 def _inspect_one(cfg, role: str, sec, i: int) -> LayerInfo:
-    pyogrio = _pyogrio()
     where = section_key(cfg.layers, role, i)
+    if is_database(cfg.inputs[sec.input]):
+        import dataclasses
+
+        from gridflow.io import postgis
+
+        return dataclasses.replace(postgis.inspect_layer(cfg, role, sec), key=where, index=i)
+    pyogrio = _pyogrio()
     path = cfg.resolve(cfg.inputs[sec.input])
     if not path.exists():
         raise InputError(f"input file {path} (inputs.{sec.input}) does not exist",
@@ -201,14 +209,18 @@ def read_inputs(cfg, findings: Findings) -> ReadResult:
         Missing layer or field, no CRS, or text where a number belongs (naming file, layer,
         feature id and field).
     """
+    from gridflow.io.postgis import snapshots
+
     paths = sorted({cfg.resolve(cfg.inputs[sec.input]) for r in ROLES
-                    for sec in layer_sections(cfg.layers, r)})
-    with shared_locks(paths):
+                    for sec in layer_sections(cfg.layers, r)
+                    if not is_database(cfg.inputs[sec.input])})
+    with shared_locks(paths), snapshots(cfg):
         all_infos = inspect_layers(cfg)
         infos = {role: v[0] for role, v in all_infos.items()}
         crs = working_crs(cfg, infos, findings)
         out = ReadResult(infos=infos, all_infos=all_infos, crs=crs)
-        out.files = sorted({i.file.resolve() for v in all_infos.values() for i in v})
+        out.files = sorted({i.file.resolve() for v in all_infos.values() for i in v
+                            if isinstance(i.file, Path)})
         for role, role_infos in all_infos.items():
             secs = layer_sections(cfg.layers, role)
             frames = [_read_role(cfg, role, sec, info, crs, findings)
@@ -378,7 +390,14 @@ def _read_role(cfg, role: str, sec, info: LayerInfo, crs, findings: Findings):
 
     columns = list(dict.fromkeys([sec.id, *sec.fields.values()]))
     try:
-        gdf = _read_frame(info, columns, sec.where or None, findings, sec.id)
+        if is_database(cfg.inputs[sec.input]):
+            from gridflow.io import postgis
+
+            gdf = postgis.read_frame(cfg, role, info, columns, sec.where or None, sec=sec)
+        else:
+            gdf = _read_frame(info, columns, sec.where or None, findings, sec.id)
+    except InputError:
+        raise
     except Exception as exc:
         key = f"{info.key}.where" if sec.where else info.key
         raise InputError(f"{info.file}: cannot read layer {info.layer!r} ({key}): {exc}",

@@ -74,6 +74,7 @@ def check_job(config_path, out=None) -> int:
         Unusable config, input or output path (exit code 2); nothing is written.
     """
     from gridflow.config import load_config
+    from gridflow.io.publish import check_database_output, output_database, publish_postgis
     from gridflow.io.write import write_geopackage
     from gridflow.topology import build_network
 
@@ -97,9 +98,16 @@ def check_job(config_path, out=None) -> int:
     for p in clean.inputs:
         info.append((f"input_sha256:{p}", file_sha256(p)))
     run_info = pd.DataFrame(info, columns=["key", "value"])
-    write_geopackage(out_path, {"findings": fgdf, "nodes_network": nodes,
-                                "pipes_network": links, "run_info": run_info},
-                     inputs=[*clean.inputs, *([cfg.path] if cfg.path else [])], styles=True)
+    layers = {"findings": fgdf, "nodes_network": nodes, "pipes_network": links,
+              "run_info": run_info}
+    db_out = output_database(out or cfg.run.output, "--out" if out else "run.output")
+    written = str(out_path)
+    if db_out is not None:  # published to a database schema, in one transaction
+        check_database_output(db_out, cfg)
+        written = publish_postgis(db_out, layers, crs=clean.crs)
+    else:
+        write_geopackage(out_path, layers,
+                         inputs=[*clean.inputs, *([cfg.path] if cfg.path else [])], styles=True)
     kinds = pd.Series(findings.kind, dtype=object)
     print(f"gridflow check: {clean.network.n_nodes} nodes, {clean.network.n_links} links, "
           f"{len(clean.hydrants)} hydrants, {len(set(clean.network.zone))} zones")
@@ -107,7 +115,7 @@ def check_job(config_path, out=None) -> int:
           f"{findings.count(severity='warning')} warning, {findings.count(severity='info')} info")
     for k, c in kinds.value_counts().sort_index().items():
         print(f"  {k}: {c}")
-    print(f"written: {out_path}")
+    print(f"written: {written}")
     print("Results are model estimates of the GIS as mapped; field tests, local codes and "
           "licensed engineers decide.")
     return 0

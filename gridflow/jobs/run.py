@@ -152,7 +152,16 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
             scheduler: str | None = None) -> int:
     """Run the nightly job; returns 0 or raises a :class:`GridflowError` (see exit codes)."""
     from gridflow.analysis.changes import compare_flags, flag_set, read_previous_flags
+    from gridflow.config.database import is_database, parse_database
     from gridflow.demand import allocate, run_info_rows, scenario_network
+    from gridflow.io.postgis import last_snapshots
+    from gridflow.io.postgis import read_previous_flags as pg_previous_flags
+    from gridflow.io.publish import (
+        check_database_output,
+        local_output_path,
+        output_database,
+        publish_postgis,
+    )
     from gridflow.io.write import write_geopackage
     from gridflow.jobs.stages import scenario_layers
     from gridflow.topology import build_network
@@ -160,8 +169,12 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
     t_start = time.perf_counter()
     started = _dt.datetime.now(_dt.UTC)
     cfg = load_config(config_path)
+    db_out = output_database(out or cfg.run.output, "--out" if out else "run.output")
     out_path = Path(out) if out else cfg.resolve(cfg.run.output)
-    if not out:  # the config's own output folder (e.g. out/ beside it) is made on first use
+    if db_out is not None:  # published to a database schema; the log and report stay local
+        check_database_output(db_out, cfg)
+        out_path = local_output_path(db_out, cfg)
+    if not out or db_out is not None:  # the output folder (e.g. out/) is made on first use
         try:
             out_path.parent.mkdir(parents=True, exist_ok=True)
         except OSError as exc:
@@ -175,7 +188,8 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
         connect_scheduler(scheduler).close()
     handler = _attach_log_file(out_path)
     try:
-        prev_flags = read_previous_flags(previous) if previous else None
+        prev_flags = (None if not previous else pg_previous_flags(previous)
+                      if is_database(previous) else read_previous_flags(previous))
         system_units = cfg.run.units
         findings = Findings()
         info: list[tuple[str, str]] = [
@@ -184,12 +198,16 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
             ("headloss_model", cfg.run.headloss_model),
         ]
         for name, p in cfg.inputs.items():
+            if is_database(p):  # the database (never a password) and the snapshot read
+                info.append((f"input_database:{name}", str(parse_database(p, name))))
+                continue
             info.append((f"input_sha256:{name}", _input_sha256(cfg, name, p)))
 
         t0 = time.perf_counter()
         log.info("reading and cleaning the GIS")
         clean = build_network(cfg, findings)
         require_solvable(cfg, clean)
+        info += [(f"input_snapshot:{k}", v) for k, v in last_snapshots().items()]
         info.append(("seconds_read_clean", f"{time.perf_counter() - t0:.2f}"))
         log.info("network: %d nodes, %d links", clean.network.n_nodes, clean.network.n_links)
         t0 = time.perf_counter()
@@ -279,13 +297,17 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
                  ("seconds_total", f"{time.perf_counter() - t_start:.2f}")]
         layers["run_info"] = pd.DataFrame(info, columns=["key", "value"])
         inputs = [cfg.resolve(p) for p in cfg.inputs.values()]
-        write_geopackage(out_path, layers, inputs=inputs, styles=True)
-        log.info("wrote %s", out_path)
+        if db_out is not None:
+            published = publish_postgis(db_out, layers, crs=clean.crs)
+        else:
+            write_geopackage(out_path, layers, inputs=inputs, styles=True)
+            log.info("wrote %s", out_path)
         if cfg.report.enabled and failure is None:
             _report(cfg, out_path, layers, info)
         if failure is not None:
             raise failure
-        _print_summary(out_path, layers, findings, cfg.report.enabled)
+        _print_summary(out_path, layers, findings, cfg.report.enabled,
+                       published if db_out is not None else None)
         return 0
     finally:
         if handler is not None:
@@ -293,7 +315,8 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
             handler.close()
 
 
-def _print_summary(out_path: Path, layers: dict, findings: Findings, report: bool) -> None:
+def _print_summary(out_path: Path, layers: dict, findings: Findings, report: bool,
+                   published: str | None = None) -> None:
     """A few lines on stdout for whoever ran the command: what was flagged, where it went."""
     print(f"gridflow run: {len(findings)} finding(s) "
           f"({findings.count(severity='error')} error, {findings.count(severity='warning')} "
@@ -318,7 +341,8 @@ def _print_summary(out_path: Path, layers: dict, findings: Findings, report: boo
         c = layers["changes"]
         print(f"  since the previous run: {int((c['change'] == 'new').sum())} new, "
               f"{int((c['change'] == 'resolved').sum())} resolved flag(s)")
-    print(f"written: {out_path}" + (f" and {out_path.with_suffix('.html')}" if report else ""))
+    print(f"written: {published or out_path}"
+          + (f" and {out_path.with_suffix('.html')}" if report else ""))
     print("Results are model estimates of the GIS as mapped; field flow tests, local codes and "
           "licensed engineers decide.")
 
