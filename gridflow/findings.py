@@ -3,6 +3,13 @@
 Stages append to one :class:`Findings` log; the writer turns it into a GeoDataFrame with the
 contract's fields ``kind``, ``severity``, ``layer``, ``feature_id``, ``message`` (plus
 ``geometry``). Appending takes arrays, so a stage reports thousands of snapped ends in one call.
+
+Severity ``info`` marks a routine fact (a hydrant attached to its main, an end snapped within
+tolerance, a dead end, an abandoned main left out): nothing for anyone to do. The log keeps
+them (``gridflow check`` writes them all, as the detail an editor may want), but the run's
+``findings`` layer holds only what someone should look at (``warning`` and ``error``); the
+routine facts become counts, ``routine:<kind>`` in ``run_info`` and a table in the report
+(:meth:`Findings.routine_counts`).
 """
 
 from __future__ import annotations
@@ -14,10 +21,12 @@ from typing import Literal
 
 import numpy as np
 
-__all__ = ["Findings", "Severity"]
+__all__ = ["ROUTINE_SEVERITY", "Findings", "Severity"]
 
 Severity = Literal["info", "warning", "error"]
 log = logging.getLogger("gridflow")
+
+ROUTINE_SEVERITY: Severity = "info"  # a routine fact: counted, not a row of the run's layer
 
 
 @dataclass
@@ -76,17 +85,32 @@ class Findings:
             m &= s == severity
         return int(m.sum())
 
-    def to_geodataframe(self, crs=None):
+    def routine_counts(self) -> dict[str, int]:
+        """Routine facts (severity ``info``) counted by kind, kinds in alphabetical order."""
+        counts: dict[str, int] = {}
+        for k, s in zip(self.kind, self.severity):
+            if s == ROUTINE_SEVERITY:
+                counts[k] = counts.get(k, 0) + 1
+        return dict(sorted(counts.items()))
+
+    def to_geodataframe(self, crs=None, *, routine: bool = True):
         """The ``findings`` layer as a GeoDataFrame (geometry may be empty per row).
 
+        ``routine=False`` leaves out the routine facts (severity ``info``): the run's layer
+        holds only what someone should look at; :meth:`routine_counts` has the rest.
         A line of zero length (a pipe whose ends meet) is written as its point: a map draws
         nothing for a degenerate line, and the finding must be visible where it is.
         """
         import geopandas as gpd
         import shapely
 
-        geoms = np.empty(len(self.geometry), dtype=object)
-        geoms[:] = self.geometry
+        keep = [i for i, s in enumerate(self.severity) if routine or s != ROUTINE_SEVERITY]
+
+        def col(values: list) -> list:
+            return values if len(keep) == len(values) else [values[i] for i in keep]
+
+        geoms = np.empty(len(keep), dtype=object)
+        geoms[:] = col(self.geometry)
         lines = np.isin(shapely.get_type_id(geoms), (1, 5))
         degenerate = np.flatnonzero(lines & (shapely.length(geoms) == 0.0))
         if degenerate.size:
@@ -94,6 +118,6 @@ class Findings:
             first = np.unique(owner, return_index=True)[1]
             geoms[degenerate[owner[first]]] = shapely.points(xy[first])
         return gpd.GeoDataFrame(
-            {"kind": self.kind, "severity": self.severity, "layer": self.layer,
-             "feature_id": self.feature_id, "message": self.message},
+            {"kind": col(self.kind), "severity": col(self.severity), "layer": col(self.layer),
+             "feature_id": col(self.feature_id), "message": col(self.message)},
             geometry=gpd.GeoSeries(geoms, crs=crs), crs=crs)

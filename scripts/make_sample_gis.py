@@ -47,6 +47,8 @@ FT = 0.3048
 
 LAYERS = ("WaterMains", "Hydrants", "SystemValves", "PRVStations", "Tanks", "PumpStations",
           "SupplySources", "CustomerMeters")
+#: made by solving the sample's own model (scripts/sample_flow_tests.py)
+FLOW_TEST_LAYERS = ("HydrantFlowTests", "FlowTestOutlets")
 
 # --------------------------------------------------------------------------------------------
 # Terrain: ground elevation [ft] as a smooth function of local coordinates [m]
@@ -889,6 +891,7 @@ def planted(t: Town) -> dict[str, object]:
                                   and v["VALVE_TYPE"] != "PRV"),
         "prvs": sorted(v["id"] for v in t.valves if v["VALVE_TYPE"] == "PRV"),
         "pump_main": t.pumps[0]["main"].id,
+        **getattr(t, "_flow_tests", {}),
     }
 
 
@@ -902,6 +905,11 @@ def write(path: str | Path, seed: int = SEED) -> Town:
         tmp.unlink()
     for name in LAYERS:
         layers[name].to_file(tmp, layer=name, driver="GPKG", engine="pyogrio")
+    sys.path.insert(0, str(Path(__file__).resolve().parent))
+    from sample_flow_tests import add_flow_tests
+
+    t._flow_tests = add_flow_tests(tmp, Path(__file__).resolve().parents[1] / "sample_gis"
+                                   / "millbrook.toml", seed)
     tmp.replace(path)
     return t
 
@@ -918,6 +926,10 @@ def main(argv=None) -> int:
         lay = frames(t)
         for name in LAYERS:
             print(f"{name:15s} {len(lay[name]):6d} features")
+        import pyogrio
+
+        for name in FLOW_TEST_LAYERS:
+            print(f"{name:15s} {len(pyogrio.read_dataframe(args.out, layer=name)):6d} features")
         gpd_ = lay["CustomerMeters"].groupby("PRESS_ZONE")["AVG_GPD"].sum()
         for z, v in gpd_.items():
             print(f"metered {z:10s} {v / 1e6:.3f} MGD")

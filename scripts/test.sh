@@ -27,6 +27,6 @@ if ! /usr/bin/python3 -c "import qgis.core" >/dev/null 2>&1 && [ "$(id -u)" = 0 
     apt-get install -y -qq --no-install-recommends python3-qgis) >/dev/null
 fi
 python3 -m venv .venv
-.venv/bin/python -m pip install --quiet --upgrade pip
-.venv/bin/python -m pip install --quiet -e '.[test]'
+.venv/bin/python -m pip install -qq --upgrade pip
+.venv/bin/python -m pip install -qq -e '.[test]'  # -qq: errors only
 exec .venv/bin/python -m pytest "$@"

@@ -129,7 +129,8 @@ def load_gpkg(srv: Server, gpkg: Path, schema: str = "gis") -> list[str]:
             gdf = pyogrio.read_dataframe(gpkg, layer=name, fid_as_index=True, use_arrow=True)
             gdf.index.name = "fid"
             gdf = gdf.reset_index()
-            srid = CRS.from_user_input(gdf.crs).to_epsg() if gdf.crs is not None else 0
+            crs = getattr(gdf, "crs", None)  # attribute tables have none
+            srid = CRS.from_user_input(crs).to_epsg() if crs is not None else 0
             copy_frame(conn, schema, name, gdf, srid=int(srid or 0), pk="fid")
         conn.commit()
     return names

@@ -47,6 +47,11 @@ def _config(tmp: Path, inputs: str | None, *, fireflow: bool = True, report: boo
         text = text.replace('gis = "millbrook.gpkg"', f'gis = "{inputs}"')
         text = re.sub(r'^layer = "(\w+)"', lambda m: f'layer = "{schema_prefix}{m.group(1)}"',
                       text, flags=re.M)
+        # flow tests are read from files only: they stay in the sample GeoPackage
+        text = text.replace(f'gis = "{inputs}"',
+                            f'gis = "{inputs}"\nft = "{(SAMPLE / "millbrook.gpkg").as_posix()}"')
+        text = re.sub(r'(\[layers\.flow_test(?:s|_outlets)\]\n)input = "gis"\nlayer = "'
+                      + re.escape(schema_prefix), r'\1input = "ft"\nlayer = "', text)
     for old, new in subs.items():
         assert old in text
         text = text.replace(old, new)

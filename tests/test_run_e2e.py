@@ -91,6 +91,22 @@ def test_contract_layers_and_fields(run_output):
     assert out.with_suffix(".html").exists() and out.with_suffix(".log").exists()
 
 
+def test_findings_need_action_and_routine_facts_are_counts(run_output):
+    """The findings layer holds what someone should look at; routine facts are run_info counts."""
+    out, _ = run_output
+    findings = pyogrio.read_dataframe(out, layer="findings", read_geometry=False)
+    assert len(findings) and set(findings["severity"]) <= {"warning", "error"}
+    assert not {"hydrant_attached", "end_snapped"} & set(findings["kind"])
+    info = pyogrio.read_dataframe(out, layer="run_info").set_index("key")["value"]
+    assert int(info["findings"]) == len(findings)
+    hydrants = pyogrio.read_info(SAMPLE / "millbrook.gpkg", layer="Hydrants")["features"]
+    unattached = int((findings["kind"] == "hydrant_unattached").sum())
+    # every mapped hydrant is either attached (counted) or a finding (common practice: one
+    # hydrant, one lateral to one main)
+    assert int(info["routine:hydrant_attached"]) + unattached == hydrants
+    assert int(info["routine:end_snapped"]) >= 1
+
+
 @pytest.mark.parametrize("scenario", SCENARIOS)
 def test_written_results_obey_mass_and_energy(run_output, scenario):
     out, _ = run_output

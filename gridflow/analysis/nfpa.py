@@ -13,12 +13,16 @@ import numpy as np
 
 from gridflow.units import US_GALLON
 
-__all__ = ["GPM", "NFPA_EXPONENT", "extrapolate_nfpa291", "nfpa_class"]
+__all__ = ["GPM", "NFPA_EXPONENT", "NOZZLE_CONSTANT", "extrapolate_nfpa291", "nfpa_class",
+           "nozzle_flow_gpm"]
 
 #: exponent of the NFPA 291 extrapolation (1/1.85, the Hazen-Williams flow exponent)
 NFPA_EXPONENT = 0.54
 #: one US gallon per minute in m3/s
 GPM = US_GALLON / 60.0
+
+#: constant of the NFPA 291 outlet formula, gpm from inches and psi
+NOZZLE_CONSTANT = 29.83
 
 # (lower bound in gpm, class), highest first; NFPA 291 hydrant classes at 20 psi residual
 _CLASSES = ((1500.0, "AA"), (1000.0, "A"), (500.0, "B"), (0.0, "C"))
@@ -93,3 +97,38 @@ def nfpa_class(flow_gpm):
         done |= hit
     out[~done] = "C"  # negative flows (none available) are class C
     return out if out.shape else str(out[()])
+
+
+def nozzle_flow_gpm(pitot_psi, diameter_in, coefficient=0.9):
+    """Flow from a hydrant outlet by its pitot reading: ``Q = 29.83 c d^2 sqrt(p)``.
+
+    Parameters
+    ----------
+    pitot_psi : float or ndarray
+        Pitot (velocity) pressure in the stream [psi].
+    diameter_in : float or ndarray
+        Outlet inside diameter [in].
+    coefficient : float or ndarray
+        Outlet discharge coefficient c (0.90 smooth and well rounded; 0.80 square and sharp;
+        0.70 square and projecting into the barrel, per NFPA 291).
+
+    Returns
+    -------
+    float or ndarray
+        Flow [gpm]; NaN for a negative reading.
+
+    Notes
+    -----
+    NFPA 291, the outlet discharge formula with c, d in inches and p in psi.
+
+    Examples
+    --------
+    >>> round(float(nozzle_flow_gpm(16.0, 2.5, 0.9)), 1)   # 29.83 x 0.9 x 6.25 x 4
+    671.2
+    """
+    p = np.asarray(pitot_psi, dtype=float)
+    d = np.asarray(diameter_in, dtype=float)
+    c = np.asarray(coefficient, dtype=float)
+    with np.errstate(invalid="ignore"):
+        out = NOZZLE_CONSTANT * c * d * d * np.sqrt(np.where(p >= 0, p, np.nan))
+    return out if out.shape else float(out)

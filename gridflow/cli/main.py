@@ -12,6 +12,7 @@ from __future__ import annotations
 import click
 
 from gridflow import __version__
+from gridflow.cli.calibrate import calibrate
 from gridflow.cli.check import check
 from gridflow.cli.guard import exit_code_for, run_guarded, setup_logging
 from gridflow.cli.init import init
@@ -33,7 +34,7 @@ def cli(ctx: click.Context, verbose: int, quiet: int) -> None:
 
 
 #: the commands of ``gridflow``, in help order
-COMMANDS: tuple[click.Command, ...] = (run, check, init)
+COMMANDS: tuple[click.Command, ...] = (run, check, init, calibrate)
 for _command in COMMANDS:
     cli.add_command(_command)
 

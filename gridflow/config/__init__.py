@@ -14,6 +14,7 @@ from pathlib import Path
 
 from gridflow.config.demand import DEFAULT_SCENARIOS, DemandSection, ScenarioSection
 from gridflow.config.fireflow import FireflowSection, ReportSection
+from gridflow.config.flowtests import FlowTestsSection, check_flow_test_layers
 from gridflow.config.layers import (
     ElevationSection,
     LayersSection,
@@ -56,6 +57,9 @@ class Config:
                           doc="named demand scenarios (default average_day, max_day, peak_hour)")
     fireflow: FireflowSection = opt(parse=section(FireflowSection),
                                     default_factory=FireflowSection, doc="fire-flow sweep")
+    flow_tests: FlowTestsSection = opt(parse=section(FlowTestsSection),
+                                       default_factory=FlowTestsSection,
+                                       doc="field hydrant flow tests and roughness calibration")
     segments: SegmentsSection = opt(parse=section(SegmentsSection),
                                     default_factory=SegmentsSection,
                                     doc="valve segments and shutdown criticality")
@@ -80,6 +84,7 @@ def parse_config(table: dict, *, base_dir: Path = Path("."), path: Path | None =
     """Validate an already-parsed TOML table (cross-checks included)."""
     cfg = parse_section(Config, table, "")
     check_layer_roles(cfg.layers, cfg.inputs)
+    check_flow_test_layers(cfg.layers, cfg.inputs, cfg.flow_tests)
     import re
 
     for name in cfg.scenarios:

@@ -219,6 +219,10 @@ class LayersSection:
                                            + _LAYER_DOC)
     meters: LayerSection | None = opt(None, parse=_one_or_many,
                                       doc="customer meters with consumption (points)" + _LAYER_DOC)
+    flow_tests: LayerSection | None = opt(None, parse=section(LayerSection),
+                                          doc="field hydrant flow tests (points or a table)")
+    flow_test_outlets: LayerSection | None = opt(None, parse=section(LayerSection),
+                                                 doc="pitot readings per flowing outlet (table)")
     lists: dict = field(default_factory=dict, repr=False, compare=False)
 
     def __post_init__(self) -> None:

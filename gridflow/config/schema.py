@@ -245,20 +245,30 @@ def reference_rows(cls: type, where: str = "") -> Iterable[tuple[str, str, str]]
             yield from reference_rows(sub, key)
 
 
-_SHOW_UNITS = {"length": ("m", 1.0, "ft", 1 / 0.3048),
-               "pressure": ("m of head", 1.0, "psi", 1 / 0.70307),
-               "flow": ("m3/s", 1.0, "gpm", 15850.32),
-               "velocity": ("m/s", 1.0, "ft/s", 1 / 0.3048)}
+# how each unit system's users write a quantity: (US unit, factor from SI, SI unit, factor)
+_SHOW_UNITS = {"length": ("ft", 1 / 0.3048, "m", 1.0),
+               "pressure": ("psi", 1 / 0.70307, "kPa", 9.80665),  # from m of water head
+               "flow": ("gpm", 15850.32, "L/s", 1000.0),
+               "velocity": ("ft/s", 1 / 0.3048, "m/s", 1.0),
+               "ratio": ("ft/kft", 1000.0, "m/km", 1000.0)}
 
 
 def _show_default(value: Any, parser: Parser) -> str:
-    """A default for the reference: quantities in SI with the US equivalent."""
+    """A default for the reference, as a US user and as an SI user would write it."""
     doc = (parser.__doc__ or "").split(",")[0]
     if isinstance(value, float) and doc in _SHOW_UNITS:
-        si, f_si, us, f_us = _SHOW_UNITS[doc]
-        if value == 0:
-            return f"'0 {si}'"
-        return f"'{value * f_si:.4g} {si}' ({value * f_us:.4g} {us})"
-    if isinstance(value, float) and doc == "ratio":
-        return f"{value:g} ({value * 1000:g} ft/kft)"
+        us, f_us, si, f_si = _SHOW_UNITS[doc]
+        if doc == "length" and 0 < value < 0.3:  # diameters, roughness: inches and mm
+            us, f_us, si, f_si = "in", 1 / 0.0254, "mm", 1000.0
+        return f"'{_nice(value * f_us, 3)} {us}' / '{_nice(value * f_si, 3)} {si}'"
     return repr(value)
+
+
+def _nice(x: float, digits: int) -> str:
+    """``x`` to ``digits`` significant figures, without an exponent or trailing zeros."""
+    if x == 0:
+        return "0"
+    from math import floor, log10
+
+    r = round(x, digits - 1 - floor(log10(abs(x))))
+    return f"{r:f}".rstrip("0").rstrip(".")

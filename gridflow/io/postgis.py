@@ -260,7 +260,7 @@ def _column(t: _Table, fname: str) -> str | None:
 
 
 def inspect_layer(cfg, role: str, sec):
-    """The :class:`~gridflow.io.read.LayerInfo` of a database layer (no features read).
+    """The :class:`~gridflow.io.layerinfo.LayerInfo` of a database layer (no features read).
 
     Raises
     ------
@@ -268,7 +268,7 @@ def inspect_layer(cfg, role: str, sec):
         Naming database, table and column: a missing table or column, no geometry column,
         no SRID.
     """
-    from gridflow.io.read import LayerInfo
+    from gridflow.io.layerinfo import LayerInfo
 
     s = _session(cfg, sec.input)
     t = _find_table(s, sec.layer, role)

@@ -16,7 +16,6 @@ from __future__ import annotations
 import contextlib
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -33,6 +32,7 @@ from gridflow.config.layers import (
 from gridflow.errors import ConfigError, InputError
 from gridflow.findings import Findings
 from gridflow.io.codes import coded_texts
+from gridflow.io.layerinfo import LayerInfo
 
 __all__ = ["LayerInfo", "ReadResult", "ID_COLUMN", "LAYER_COLUMN", "inspect_inputs",
            "working_crs", "read_inputs", "shared_locks"]
@@ -47,22 +47,6 @@ ID_COLUMN = {"pipes": "pipe_id", "nodes": "node_id", "hydrants": "hydrant_id",
              "sources": "source_id", "meters": "meter_id"}
 #: the column naming each feature's own layer (a role may be read from several layers)
 LAYER_COLUMN = "source_layer"
-
-
-@dataclass(frozen=True)
-class LayerInfo:
-    """What inspecting a mapped layer found (no features read)."""
-
-    role: str
-    file: Any  # a Path; for a database input a gridflow.io.postgis.DatabaseSource
-    layer: str
-    crs: str | None
-    fields: tuple[str, ...]
-    geometry_type: str | None
-    features: int
-    total_bounds: tuple[float, float, float, float] | None = None
-    key: str = ""  # config key of the layer section (layers.valves or layers.valves[1])
-    index: int = 0  # position among the role's layer sections
 
 
 @dataclass

@@ -125,6 +125,13 @@ LAYER_STYLES: dict[str, tuple[str, list[Rule]]] = {
         ("open", "ELSE", Line(PALETTE["quiet"], 0.35)),
     ]),
     "hydrants_fireflow": ("point", _hydrant_rules()),
+    "flow_tests": ("point", [
+        ("model differs from the field by more than the tolerance", '"out_of_tolerance" = 1',
+         Marker(PALETTE["critical"], 3.2, level=2)),
+        ("left out (see problem)", '"used" = 0',
+         Marker(PALETTE["warning"], 2.4, ring=PALETTE["closed"], ring_width=0.4, level=1)),
+        ("model within the tolerance of the field", "ELSE", Marker(PALETTE["quiet"], 2.0)),
+    ]),
     "segments": ("line", [
         ("closing it cuts off other customers", '"cut_off_meters" > 0 OR "cut_off_hydrants" > 0',
          Line(PALETTE["critical"], 1.6, level=3)),

@@ -218,6 +218,8 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
         opts = solve_options(cfg)
         layers: dict[str, object] = {}
         results: dict[str, tuple[Network, HydraulicResult, HydraulicSystem]] = {}
+        rating = getattr(clean.links, "pressure_rating_m", None)
+        rating = None if rating is None else np.asarray(rating, dtype=float)
         failure: ConvergenceError | None = None
         shared: HydraulicSystem | None = None  # one symbolic analysis for every scenario
         for name in cfg.scenarios:
@@ -270,6 +272,13 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
             layers["hydrants_fireflow"] = _fireflow(cfg, clean, results, opts, workers,
                                                     scheduler, findings, info)
 
+        if failure is None:
+            from gridflow.jobs.flowtests import flow_tests_step
+
+            ft, _ = flow_tests_step(cfg, clean, alloc, opts, findings, info, previous=previous,
+                                    workers=workers, scheduler=scheduler)
+            if ft is not None:
+                layers["flow_tests"] = ft
         if failure is None and cfg.segments.enabled:
             from gridflow.jobs.segments import segments_step
 
@@ -282,8 +291,11 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
                 findings=findings, info=info, progress=terminal_progress("segment closures"))
             info.append(("seconds_segments", f"{time.perf_counter() - t0:.2f}"))
 
-        findings_gdf = findings.to_geodataframe(crs=clean.crs)
+        # the layer holds what someone should look at; routine facts become counts
+        findings_gdf = findings.to_geodataframe(crs=clean.crs, routine=False)
         layers["findings"] = findings_gdf
+        routine = findings.routine_counts()
+        info += [(f"routine:{k}", str(v)) for k, v in routine.items()]
         if prev_flags is not None:
             changes = compare_flags(flag_set(layers), prev_flags)
             layers["changes"] = changes
@@ -291,7 +303,7 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
             n_res = int((changes["change"] == "resolved").sum())
             info += [("changes_new", str(n_new)), ("changes_resolved", str(n_res))]
             log.info("since the previous run: %d new flag(s), %d resolved", n_new, n_res)
-        info += [("findings", str(len(findings))),
+        info += [("findings", str(len(findings_gdf))),
                  ("started_utc", started.isoformat(timespec="seconds")),
                  ("ended_utc", _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds")),
                  ("seconds_total", f"{time.perf_counter() - t_start:.2f}")]
@@ -303,7 +315,7 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
             write_geopackage(out_path, layers, inputs=inputs, styles=True)
             log.info("wrote %s", out_path)
         if cfg.report.enabled and failure is None:
-            _report(cfg, out_path, layers, info)
+            _report(cfg, out_path, clean, results, layers, info, routine, rating)
         if failure is not None:
             raise failure
         _print_summary(out_path, layers, findings, cfg.report.enabled,
@@ -318,7 +330,7 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
 def _print_summary(out_path: Path, layers: dict, findings: Findings, report: bool,
                    published: str | None = None) -> None:
     """A few lines on stdout for whoever ran the command: what was flagged, where it went."""
-    print(f"gridflow run: {len(findings)} finding(s) "
+    print(f"gridflow run: {len(layers['findings'])} finding(s) "
           f"({findings.count(severity='error')} error, {findings.count(severity='warning')} "
           "warning)")
     for name, df in layers.items():
@@ -333,6 +345,14 @@ def _print_summary(out_path: Path, layers: dict, findings: Findings, report: boo
         h = layers["hydrants_fireflow"]
         print(f"  fire flow: {int((h['meets_required'] == 0).sum())} of {len(h)} hydrant(s) "
               "below their required flow")
+    if "flow_tests" in layers:
+        ft = layers["flow_tests"]
+        col = next(c for c in ft.columns if c.startswith("residual_diff_"))
+        err = ft.loc[ft["used"] == 1, col].abs()
+        unit = col.rsplit("_", 1)[-1]
+        print(f"  field flow tests: {len(err)} of {len(ft)} compared, residual error mean "
+              f"{err.mean():.1f} {unit}, worst {err.max():.1f} {unit}; "
+              f"{int(ft['out_of_tolerance'].sum())} out of tolerance")
     if "segments" in layers:
         g = layers["segments"]
         print(f"  valve segments: {len(g)}, {int(g['oversized'].sum())} oversized, "
@@ -395,21 +415,29 @@ def _fireflow(cfg, clean, results, opts, workers, scheduler, findings, info):
     return layer
 
 
-def _report(cfg, out_path, layers, info):
-    from gridflow.report import write_report
+def _report(cfg, out_path, clean, results, layers, info, routine, rating):
+    """The HTML report, from the results in memory (SI arrays, typed criteria)."""
+    import shapely
+
+    from gridflow.report import ReportData, ScenarioData, write_report
+    from gridflow.report.flowtests import flow_tests_table
+    from gridflow.report.segments import segments_table
 
     html = out_path.with_suffix(".html")
-    c = cfg.criteria
-    from gridflow.units import FT, KPA_PER_M_HEAD, M_HEAD_PER_PSI
-
-    if cfg.run.units == "US":
-        crit = {"min_pressure": f"{c.min_pressure / M_HEAD_PER_PSI:.0f} psi",
-                "max_pressure": f"{c.max_pressure / M_HEAD_PER_PSI:.0f} psi",
-                "max_velocity": f"{c.max_velocity / FT:.1f} ft/s"}
-    else:
-        crit = {"min_pressure": f"{c.min_pressure * KPA_PER_M_HEAD:.0f} kPa",
-                "max_pressure": f"{c.max_pressure * KPA_PER_M_HEAD:.0f} kPa",
-                "max_velocity": f"{c.max_velocity:.2f} m/s"}
-    write_report(html, layers, info, units=cfg.run.units, hgl_path=cfg.report.hgl_path or None,
-                 worst_rows=cfg.report.worst_rows, criteria=crit)
+    scenarios = [ScenarioData.solved(name, net, r, cfg.criteria)
+                 for name, (net, r, _) in results.items()]
+    geoms = clean.nodes.geometry.values
+    xy = None
+    if len(geoms) == scenarios[0].network.n_nodes:
+        xy = shapely.get_coordinates(geoms)
+        xy = xy if len(xy) == len(geoms) else None
+    data = ReportData(scenarios=scenarios, criteria=cfg.criteria, units=cfg.run.units,
+                      name=cfg.run.name, node_xy=xy,
+                      crs=clean.crs.name if clean.crs is not None else "",
+                      pressure_rating_m=rating, hydrants=layers.get("hydrants_fireflow"),
+                      findings=layers.get("findings"), changes=layers.get("changes"),
+                      flow_tests=layers.get("flow_tests"), segments=layers.get("segments"),
+                      routine=routine, run_info=list(info),
+                      hgl_path=cfg.report.hgl_path or None, worst_rows=cfg.report.worst_rows)
+    write_report(html, data, extra_tables=[flow_tests_table, segments_table])
     log.info("wrote %s", html)

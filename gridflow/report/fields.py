@@ -1,19 +1,16 @@
-"""Contract field names of the result layers, per unit system, as the report reads them.
+"""Contract field names and display units of the result layers, per unit system.
 
-The report never converts units: it reads the fields the writer produced (``pressure_psi`` or
-``pressure_kpa``...) and shows them with the unit their suffix names.
+The unit system is always given (the run's typed config), never guessed from field names.
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass
 
-import pandas as pd
-
 from gridflow.errors import GridflowError
 from gridflow.units import FT, KPA_PER_M_HEAD, M_HEAD_PER_PSI, UnitSystem, out_field
 
-__all__ = ["Fields", "detect_units", "fields_for", "require"]
+__all__ = ["Fields", "fields_for"]
 
 
 @dataclass(frozen=True)
@@ -66,22 +63,3 @@ def fields_for(system: UnitSystem) -> Fields:
         return Fields("SI", *names, "m", "kPa", "L/s", "m/s", "mm", "m/km",
                       1.0 / KPA_PER_M_HEAD, ("km", 1.0 / 1000.0))
     raise GridflowError(f"unknown unit system {system!r}; expected 'US' or 'SI'", key="units")
-
-
-def detect_units(frame: pd.DataFrame, layer: str = "nodes") -> UnitSystem:
-    """``"US"`` if the layer carries ``head_ft``, ``"SI"`` if ``head_m``."""
-    if "head_ft" in frame.columns:
-        return "US"
-    if "head_m" in frame.columns:
-        return "SI"
-    raise GridflowError(f"layer {layer} has neither head_ft nor head_m: cannot tell its units",
-                        layer=layer, field="head_ft")
-
-
-def require(frame: pd.DataFrame, layer: str, names: tuple[str, ...] | list[str]) -> None:
-    """Raise naming the layer and the first missing field."""
-    missing = [n for n in names if n not in frame.columns]
-    if missing:
-        raise GridflowError(f"layer {layer} lacks field {missing[0]} needed by the report "
-                            f"(has: {', '.join(map(str, frame.columns))})",
-                            layer=layer, field=missing[0])

@@ -1,169 +1,151 @@
-"""Hydraulic grade line profile along a path through the network."""
+"""Hydraulic grade line profile along a path, by scipy's csgraph on the network arrays."""
 
 from __future__ import annotations
 
 import itertools
 
-import networkx as nx
 import numpy as np
 import pandas as pd
+from scipy.sparse import coo_matrix, csr_matrix
+from scipy.sparse.csgraph import dijkstra
 
 from gridflow.errors import ConfigError, GridflowError
-from gridflow.report.fields import detect_units, fields_for, require
+from gridflow.hydraulics import LINK_STATE_NAMES, HydraulicResult
+from gridflow.network import NODE_JUNCTION, Network
+from gridflow.report.fields import fields_for
+from gridflow.units import UnitSystem, out_field
 
-__all__ = ["default_path_ends", "hgl_profile"]
+__all__ = ["hgl_profile"]
 
-
-def _graph(pipes: pd.DataFrame, length_field: str) -> nx.Graph:
-    """Undirected graph of the links that can carry flow (closed links left out).
-
-    Parallel links between the same two nodes keep the shortest one.
-    """
-    open_ = pipes["status"].astype(str).str.lower() != "closed"
-    p = pipes.loc[open_, ["pipe_id", "from_node", "to_node", length_field]]
-    p = p.sort_values(length_field, ascending=False, kind="stable")  # shortest added last wins
-    g = nx.Graph()
-    g.add_edges_from(
-        (str(a), str(b), {"length": float(w) if np.isfinite(w) else 0.0, "pipe_id": str(pid)})
-        for pid, a, b, w in p.itertuples(index=False, name=None))
-    return g
+_CLOSED = LINK_STATE_NAMES.index("closed")
+_EPS = 1e-9  # [m] added to every edge weight: csgraph reads an explicit zero as no edge
 
 
-def default_path_ends(nodes: pd.DataFrame) -> tuple[list[str], str]:
-    """Fixed-head sources and tanks, and the lowest-pressure supplied node.
+class _Graph:
+    """Open links as an undirected weighted graph; parallel links keep the shortest one."""
 
-    Raises
-    ------
-    GridflowError
-        If the layer has no fixed-head node or no supplied node with a pressure.
-    """
-    f = fields_for(detect_units(nodes))
-    kind = nodes["kind"].astype(str).str.lower()
-    fixed = (nodes["fixed_head"].astype(int) == 1) & kind.isin(["source", "tank"])
-    sources = nodes.loc[fixed, "node_id"].astype(str).tolist()
-    if not sources:
-        raise GridflowError("no fixed-head source or tank to start the HGL profile from",
-                            layer="nodes", field="fixed_head")
-    cand = nodes[(nodes["supplied"].astype(int) == 1) & ~fixed & nodes[f.pressure].notna()]
-    if cand.empty:
-        raise GridflowError("no supplied node with a pressure to end the HGL profile at",
-                            layer="nodes", field="supplied")
-    target = str(cand.loc[cand[f.pressure].idxmin(), "node_id"])
-    return sources, target
+    def __init__(self, net: Network, r: HydraulicResult) -> None:
+        ok = np.flatnonzero(r.link_state != _CLOSED)
+        a, b = net.from_idx[ok], net.to_idx[ok]
+        lo, hi = np.minimum(a, b), np.maximum(a, b)
+        w = np.where(np.isfinite(net.length_m[ok]), net.length_m[ok], 0.0)
+        order = np.lexsort((w, hi, lo))  # shortest first within each node pair
+        lo, hi, w, ok = lo[order], hi[order], w[order], ok[order]
+        first = np.r_[True, (lo[1:] != lo[:-1]) | (hi[1:] != hi[:-1])]
+        lo, hi, w, ok = lo[first], hi[first], w[first], ok[first]
+        n = net.n_nodes
+        rows, cols = np.r_[lo, hi], np.r_[hi, lo]
+        self.w = csr_matrix(coo_matrix((np.r_[w, w] + _EPS, (rows, cols)), shape=(n, n)))
+        self.link = csr_matrix(coo_matrix((np.r_[ok, ok] + 1, (rows, cols)), shape=(n, n)))
+
+    def path(self, sources: list[int], target: int) -> list[int] | None:
+        dist, pred, _ = dijkstra(self.w, directed=False, indices=sources,
+                                 return_predecessors=True, min_only=True)
+        if not np.isfinite(dist[target]):
+            return None
+        out = [target]
+        while pred[out[-1]] >= 0:
+            out.append(int(pred[out[-1]]))
+        return out[::-1]
+
+    def links(self, path: list[int]) -> np.ndarray:
+        a, b = np.asarray(path[:-1]), np.asarray(path[1:])
+        return np.asarray(self.link[a, b]).ravel().astype(np.int64) - 1
 
 
-def hgl_profile(nodes: pd.DataFrame, pipes: pd.DataFrame,
-                path_node_ids: list[str] | None = None) -> pd.DataFrame:
+def hgl_profile(net: Network, r: HydraulicResult, units: UnitSystem = "US",
+                path_node_ids: list[str] | None = None, *,
+                pressure_rating_m: np.ndarray | None = None) -> pd.DataFrame:
     """The hydraulic grade line, the ground and the pipes' pressure-rating limit along a path.
 
     Parameters
     ----------
-    nodes : GeoDataFrame or DataFrame
-        One scenario's ``nodes_<scenario>`` layer (contract fields, US or SI).
-    pipes : GeoDataFrame or DataFrame
-        The same scenario's ``pipes_<scenario>`` layer; ``pressure_rating_psi`` (or ``_kpa``)
-        is used where present.
+    net : Network
+        The scenario's network (arrays, SI).
+    r : HydraulicResult
+        Its solved result; closed links are left out of the path search.
+    units : {'US', 'SI'}
+        Display units of the returned columns.
     path_node_ids : list of str, optional
         Node ids the path passes through, in order (at least two). Between consecutive ids the
         path follows the shortest route by pipe length. If None or empty: from the nearest
-        fixed-head source or tank to the supplied node with the lowest pressure.
+        source or tank to the supplied junction with the lowest pressure.
+    pressure_rating_m : ndarray, optional
+        Pressure rating per link as head [m] (NaN where unknown).
 
     Returns
     -------
     DataFrame
-        One row per node along the path: ``distance_<u>`` (cumulative pipe length from the
-        start), ``node_id``, ``pipe_id`` (the link arriving at the node; '' at the start),
-        ``elevation_<u>`` (ground), ``head_<u>`` (HGL, the solver's head),
-        ``pressure_<p>``, and ``rating_head_<u>``: ground plus the lowest pressure rating of
-        the path pipes meeting at the node, as head (NaN where none carries a rating).
-        ``<u>`` is ft or m and ``<p>`` psi or kpa, as in the input layers.
+        One row per node along the path: ``distance_<u>`` (cumulative pipe length),
+        ``node_id``, ``pipe_id`` (the link arriving at the node; '' at the start),
+        ``elevation_<u>``, ``head_<u>``, ``pressure_<p>``, and ``rating_head_<u>``: ground
+        plus the lowest pressure rating of the path pipes meeting at the node, as head (NaN
+        where none carries a rating). ``<u>`` is ft or m, ``<p>`` psi or kpa.
 
     Raises
     ------
     ConfigError
-        If a given node id is not in the layer or two given nodes are not connected
-        (``key='report.hgl_path'``).
+        A given node id is not in the network, or two given nodes are not connected by open
+        links (``key='report.hgl_path'``).
     GridflowError
-        If a default path cannot be found (no source, no supplied node, not connected).
+        No default path: no source or tank, no supplied junction, or not connected.
 
     Notes
     -----
-    Shortest paths by Dijkstra's algorithm over open links, O((n + m) log n). Closed links are
-    left out, so a path never crosses a closed valve. The rating limit as head is
-    ``elevation + rating * k`` with ``k`` = 2.3067 ft/psi or 0.10197 m/kPa (water at about
-    4 degC, standard gravity).
-
-    Examples
-    --------
-    >>> prof = hgl_profile(nodes_avg, pipes_avg, ["R1", "J17"])   # doctest: +SKIP
-    >>> prof[["distance_ft", "head_ft"]]                          # doctest: +SKIP
+    Dijkstra's algorithm (``scipy.sparse.csgraph.dijkstra``, all sources at once with
+    ``min_only``) over open links, O((n + m) log n). The rating limit as head is
+    ``elevation + rating``, the rating already being a head.
     """
-    system = detect_units(nodes)
-    f = fields_for(system)
-    require(nodes, "nodes", ["node_id", "kind", "fixed_head", "supplied", f.elevation, f.head,
-                             f.pressure])
-    require(pipes, "pipes", ["pipe_id", "from_node", "to_node", "status", f.length])
-    g = _graph(pipes, f.length)
-    ids = nodes["node_id"].astype(str)
-
+    g = _Graph(net, r)
     if path_node_ids:
         want = [str(v) for v in path_node_ids]
-        known = set(ids)
+        pos = pd.Index(net.node_id.astype(str))
         for v in want:
-            if v not in known:
+            if v not in pos:
                 raise ConfigError(f"HGL path node {v!r} is not a node of the network",
                                   key="report.hgl_path", node_id=v)
         if len(want) < 2:
             raise ConfigError("the HGL path needs at least two node ids", key="report.hgl_path")
-        path = [want[0]]
+        path = [int(pos.get_loc(want[0]))]
         for a, b in itertools.pairwise(want):
-            try:
-                leg = nx.shortest_path(g, a, b, weight="length")
-            except (nx.NetworkXNoPath, nx.NodeNotFound):
+            leg = g.path([int(pos.get_loc(a))], int(pos.get_loc(b)))
+            if leg is None:
                 raise ConfigError(f"HGL path nodes {a!r} and {b!r} are not connected by open "
-                                  "links", key="report.hgl_path", node_id=b) from None
+                                  "links", key="report.hgl_path", node_id=b)
             path.extend(leg[1:])
     else:
-        sources, target = default_path_ends(nodes)
-        sources = [s for s in sources if s in g]
-        try:
-            _, path = nx.multi_source_dijkstra(g, sources, target=target, weight="length")
-        except (nx.NetworkXNoPath, nx.NodeNotFound, ValueError):
-            raise GridflowError(f"lowest-pressure node {target!r} is not connected to a source "
-                                "by open links", layer="nodes", node_id=target) from None
-        path = [str(v) for v in path]
-
-    seg = [g.edges[a, b] for a, b in itertools.pairwise(path)]
-    seg_len = np.array([e["length"] for e in seg], dtype=float)
-    seg_pipe = [e["pipe_id"] for e in seg]
-    dist = np.concatenate([[0.0], np.cumsum(seg_len)])
-
-    pos = pd.Series(np.arange(len(ids)), index=ids.to_numpy())
-    if pos.index.has_duplicates:
-        pos = pos[~pos.index.duplicated()]
-    at = pos.loc[path].to_numpy()
-    elev = nodes[f.elevation].to_numpy(dtype=float)[at]
-    head = nodes[f.head].to_numpy(dtype=float)[at]
-    pres = nodes[f.pressure].to_numpy(dtype=float)[at]
-
-    rating = np.full(len(seg_pipe), np.nan)
-    if f.rating in pipes.columns and seg_pipe:
-        r = pd.Series(pipes[f.rating].to_numpy(dtype=float),
-                      index=pipes["pipe_id"].astype(str).to_numpy())
-        r = r[~r.index.duplicated()]
-        rating = r.reindex(seg_pipe).to_numpy(dtype=float)
-    # lowest rating of the path pipes on either side of each node (fmin ignores NaN)
-    before = np.concatenate([[np.nan], rating])
-    after = np.concatenate([rating, [np.nan]])
+        sources = np.flatnonzero(net.is_fixed)
+        if not sources.size:
+            raise GridflowError("no fixed-head source or tank to start the HGL profile from",
+                                layer="nodes", field="fixed_head")
+        cand = (net.node_kind == NODE_JUNCTION) & r.supplied & np.isfinite(r.pressure_m)
+        if not cand.any():
+            raise GridflowError("no supplied node with a pressure to end the HGL profile at",
+                                layer="nodes", field="supplied")
+        target = int(np.flatnonzero(cand)[np.argmin(r.pressure_m[cand])])
+        found = g.path(list(sources), target)
+        if found is None:
+            raise GridflowError(f"lowest-pressure node {net.node_id[target]!r} is not "
+                                "connected to a source by open links", layer="nodes",
+                                node_id=str(net.node_id[target]))
+        path = found
+    at = np.asarray(path, dtype=np.int64)
+    lk = g.links(path) if len(path) > 1 else np.zeros(0, np.int64)
+    seg = np.where(np.isfinite(net.length_m[lk]), net.length_m[lk], 0.0)
+    dist = np.concatenate([[0.0], np.cumsum(seg)])
+    rating = (np.full(len(lk), np.nan) if pressure_rating_m is None
+              else np.asarray(pressure_rating_m, dtype=float)[lk])
     with np.errstate(invalid="ignore"):
-        node_rating = np.fmin(before, after)
-    u = f.u_len
+        node_rating = np.fmin(np.r_[np.nan, rating], np.r_[rating, np.nan])
+    f = fields_for(units)
+    k_len = out_field("length", units)[1]
+    elev = net.elevation_m[at]
     return pd.DataFrame({
-        f"distance_{u}": dist,
-        "node_id": path,
-        "pipe_id": [""] + seg_pipe,
-        f.elevation: elev,
-        f.head: head,
-        f.pressure: pres,
-        f"rating_head_{u}": elev + node_rating * f.head_per_pressure,
+        f"distance_{f.u_len}": dist * k_len,
+        "node_id": net.node_id[at].astype(str),
+        "pipe_id": [""] + list(net.link_id[lk].astype(str)),
+        f.elevation: elev * out_field("elevation", units)[1],
+        f.head: r.head_m[at] * out_field("head", units)[1],
+        f.pressure: r.pressure_m[at] * out_field("pressure", units)[1],
+        f"rating_head_{f.u_len}": (elev + node_rating) * out_field("head", units)[1],
     })

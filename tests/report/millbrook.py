@@ -18,8 +18,10 @@ import numpy as np
 import pandas as pd
 import shapely
 
+from gridflow.config.sections import CriteriaSection
 from gridflow.hydraulics import solve
 from gridflow.network import Network
+from gridflow.report import ReportData, ScenarioData
 from gridflow.units import M_HEAD_PER_PSI, OUTPUT, US_GALLON
 
 CRS = "EPSG:26918"  # a projected CRS in metres
@@ -184,13 +186,13 @@ def build_layers(system: str = "US") -> tuple[dict, dict, Network]:
         results[name] = r
     layers["hydrants_fireflow"] = hydrant_layer(net, xy, system)
     layers["findings"] = gpd.GeoDataFrame({
-        "kind": ["snapped_end", "unsnapped_end", "missing_diameter", "closed_valve_cutoff"],
-        "severity": ["info", "warning", "error", "warning"],
-        "layer": ["mains", "mains", "mains", "valves"],
-        "feature_id": ["M-2003", "M-2011", "M-2040", "V-12"],
-        "message": ["end snapped 0.4 m to J-103", "end 2.1 m from the nearest main",
-                    "diameter missing; 6 in assumed", "closed valve <V-12> isolates 2 nodes"],
-    }, geometry=[shapely.Point(X0 + 360, Y0 + 3), shapely.Point(X0 + 600, Y0 + 245),
+        "kind": ["unsnapped_end", "missing_diameter", "closed_valve_cutoff"],
+        "severity": ["warning", "error", "warning"],
+        "layer": ["mains", "mains", "valves"],
+        "feature_id": ["M-2011", "M-2040", "V-12"],
+        "message": ["end 2.1 m from the nearest main", "diameter missing; 6 in assumed",
+                    "closed valve <V-12> isolates 2 nodes"],
+    }, geometry=[shapely.Point(X0 + 600, Y0 + 245),
                  shapely.LineString([(X0 + 240, Y0 + 360), (X0 + 360, Y0 + 360)]), None],
         crs=CRS)
     layers["changes"] = pd.DataFrame({
@@ -204,3 +206,25 @@ def build_layers(system: str = "US") -> tuple[dict, dict, Network]:
     run_info += [(f"iterations_{s}", str(r.iterations)) for s, r in results.items()]
     layers["run_info"] = pd.DataFrame(run_info, columns=["key", "value"])
     return layers, results, net
+
+
+CRITERIA = CriteriaSection(min_pressure=MIN_P, max_pressure=MAX_P, max_velocity=MAX_V,
+                           max_unit_headloss=MAX_UHL)
+
+
+def report_data(system: str = "US", **overrides) -> tuple[ReportData, dict, Network]:
+    """What the run hands the report, for the Millbrook test network (and its layers)."""
+    layers, results, net = build_layers(system)
+    _, xy, extra = build_network()
+    scen = [ScenarioData.solved(name, net.replace(demand_m3s=net.demand_m3s * factor),
+                                results[name], CRITERIA)
+            for name, factor in SCENARIOS.items()]
+    kw = dict(scenarios=scen, criteria=CRITERIA, units=system,
+              name="Millbrook nightly & test <run>", node_xy=xy, crs="NAD83 / UTM zone 18N",
+              pressure_rating_m=extra["pressure_rating_psi"] * M_HEAD_PER_PSI,
+              hydrants=layers["hydrants_fireflow"], findings=layers["findings"],
+              changes=layers["changes"], routine={"end_snapped": 1, "hydrant_attached": 9},
+              run_info=[tuple(r) for r in layers["run_info"].itertuples(index=False)],
+              worst_rows=10)
+    kw.update(overrides)
+    return ReportData(**kw), layers, net
