@@ -280,3 +280,62 @@ def test_run_prints_a_summary_with_the_caution(tmp_path):
     assert res.exit_code == 0
     assert "peak_hour:" in res.output and "low-pressure" in res.output
     assert "model estimates" in res.output and "licensed engineers decide" in res.output
+
+
+def test_fireflow_figures_are_physical_and_checkable(run_output):
+    from gridflow.analysis.nfpa import nfpa_class
+
+    out, _ = run_output
+    h = pyogrio.read_dataframe(out, layer="hydrants_fireflow", read_geometry=False)
+    ins = h[h["in_service"] == 1]
+    assert len(ins) > 400
+    # NFPA 291 chapter 5 (via secondary sources): the class rests on the flow at 20 psi,
+    # the written rated flow
+    assert (ins["nfpa_class"].to_numpy() == nfpa_class(ins["rated_flow_20psi_gpm"].to_numpy())
+            ).all()
+    assert (ins["available_flow_gpm"] <= ins["rated_flow_20psi_gpm"].fillna(0.0) + 1e-6).all()
+    # no written pressure below vacuum: -101.325 kPa gauge = -14.696 psi (standard atmosphere)
+    for col in ("static_pressure_psi", "residual_pressure_at_required_psi"):
+        assert not (h[col] < -14.696).any()
+    nodes = pyogrio.read_dataframe(out, layer="nodes_max_day", read_geometry=False)
+    assert not (nodes["pressure_psi"] < -14.696).any()
+    # a residual is written exactly where the required flow is achievable
+    ok, no = ins["required_achievable"] == 1, ins["required_achievable"] == 0
+    assert (ok | no).all()
+    assert ins.loc[ok, "residual_pressure_at_required_psi"].ge(0).all()
+    assert ins.loc[no, "residual_pressure_at_required_psi"].isna().all()
+    assert (ins.loc[no, "flow_at_0psi_gpm"] < ins.loc[no, "required_flow_gpm"]).all()
+    assert (ins.loc[no, "meets_required"] == 0).all()
+    # limits are codes; every limiting node lies in the hydrant's zone
+    assert set(ins["limited_by"]) <= {"residual", "node_pressure", "velocity", "unsupplied",
+                                      "static_pressure", "not_converged", "fixed_head"}
+    zone = dict(zip(nodes["node_id"], nodes["zone"]))
+    lim = ins[ins["limiting_node_id"].fillna("") != ""]
+    assert len(lim) == len(ins[ins["limited_by"] != "velocity"])
+    assert all(zone[n] == z for n, z in zip(lim["limiting_node_id"], lim["zone"]))
+    # the fastest main during each draw is named and flagged against 10 ft/s (the criteria
+    # default; common practice, no single source)
+    has = ins["max_velocity_fps"].notna()
+    assert (ins.loc[has, "max_velocity_pipe_id"] != "").all()
+    assert (ins.loc[has, "high_velocity"] == (ins.loc[has, "max_velocity_fps"] > 10.0)).all()
+    # no hydrant passes what its connection cannot: below 10,000 gpm (common practice)
+    assert ins["available_flow_gpm"].max() < 10_000
+    # the summary counts in-service hydrants only
+    info = pyogrio.read_dataframe(out, layer="run_info", read_geometry=False)
+    kv = dict(zip(info["key"], info["value"]))
+    assert int(kv["fireflow:hydrants"]) == len(ins)
+    assert int(kv["fireflow:failing"]) == int((ins["meets_required"] == 0).sum())
+
+
+def test_fireflow_local_processes_and_dask_cluster_identical(run_output, tmp_path):
+    distributed = pytest.importorskip("distributed")
+    _, cfg = run_output
+    procs, dask = tmp_path / "procs.gpkg", tmp_path / "dask.gpkg"
+    assert _run("run", str(cfg), "--out", str(procs), "--workers", "2").exit_code == 0
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                                  dashboard_address=None, host="127.0.0.1") as cluster:
+        res = _run("run", str(cfg), "--out", str(dask), "--scheduler", cluster.scheduler_address)
+    assert res.exit_code == 0, res.output
+    a = pyogrio.read_dataframe(procs, layer="hydrants_fireflow")
+    b = pyogrio.read_dataframe(dask, layer="hydrants_fireflow")
+    pd.testing.assert_frame_equal(a, b)

@@ -48,7 +48,9 @@ class CriteriaSection:
     max_velocity: float = opt(5 * FT, parse=quantity("velocity", minimum=0.0),
                               doc="maximum velocity at normal demand (high_velocity flag)")
     max_velocity_fire: float = opt(10 * FT, parse=quantity("velocity", minimum=0.0),
-                                   doc="maximum velocity under fire flow")
+                                   doc="maximum velocity under fire flow: the fastest main "
+                                       "of each fire draw is flagged above it (a limit on the "
+                                       "draw with fireflow.velocity_limit)")
     max_unit_headloss: float = opt(0.010, parse=quantity("ratio", minimum=0.0),
                                    doc="maximum unit head loss (high_headloss flag), "
                                        "e.g. '10 ft/kft'")

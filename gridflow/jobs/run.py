@@ -343,8 +343,10 @@ def _print_summary(out_path: Path, layers: dict, findings: Findings, report: boo
                   f"{int(pipes['high_headloss'].sum())} high-loss pipe(s)")
     if "hydrants_fireflow" in layers:
         h = layers["hydrants_fireflow"]
-        print(f"  fire flow: {int((h['meets_required'] == 0).sum())} of {len(h)} hydrant(s) "
-              "below their required flow")
+        ins = h[h["in_service"] == 1]
+        print(f"  fire flow: {int((ins['meets_required'] == 0).sum())} of {len(ins)} "
+              "in-service hydrant(s) below their required flow"
+              + (f"; {len(h) - len(ins)} out of service" if len(h) > len(ins) else ""))
     if "flow_tests" in layers:
         ft = layers["flow_tests"]
         col = next(c for c in ft.columns if c.startswith("residual_diff_"))
@@ -409,8 +411,12 @@ def _fireflow(cfg, clean, results, opts, workers, scheduler, findings, info):
                           f"pressure is below the fire-flow system minimum in scenario {name} "
                           "before any fire draw; not counted as limiting each hydrant",
                           list(clean.nodes.geometry.values[idx]))
-    info += [("fireflow:scenario", name), ("fireflow:hydrants", str(len(ff))),
-             ("fireflow:failing", str(int((ff["meets_required"] == 0).sum()))),
+    summary = ff.attrs["summary"]
+    info += [("fireflow:scenario", name), ("fireflow:hydrants", str(summary["hydrants"])),
+             ("fireflow:out_of_service", str(summary["out_of_service"])),
+             ("fireflow:failing", str(summary["hydrants"] - summary["meets_required"])),
+             ("fireflow:required_not_achievable", str(summary["required_not_achievable"])),
+             ("fireflow:high_velocity", str(summary["high_velocity"])),
              ("fireflow:seconds", f"{time.perf_counter() - t0:.2f}")]
     return layer
 
@@ -420,6 +426,7 @@ def _report(cfg, out_path, clean, results, layers, info, routine, rating):
     import shapely
 
     from gridflow.report import ReportData, ScenarioData, write_report
+    from gridflow.report.fireflow import in_service, limiting_nodes_table
     from gridflow.report.flowtests import flow_tests_table
     from gridflow.report.segments import segments_table
 
@@ -434,10 +441,12 @@ def _report(cfg, out_path, clean, results, layers, info, routine, rating):
     data = ReportData(scenarios=scenarios, criteria=cfg.criteria, units=cfg.run.units,
                       name=cfg.run.name, node_xy=xy,
                       crs=clean.crs.name if clean.crs is not None else "",
-                      pressure_rating_m=rating, hydrants=layers.get("hydrants_fireflow"),
+                      pressure_rating_m=rating,
+                      hydrants=in_service(layers.get("hydrants_fireflow")),
                       findings=layers.get("findings"), changes=layers.get("changes"),
                       flow_tests=layers.get("flow_tests"), segments=layers.get("segments"),
                       routine=routine, run_info=list(info),
                       hgl_path=cfg.report.hgl_path or None, worst_rows=cfg.report.worst_rows)
-    write_report(html, data, extra_tables=[flow_tests_table, segments_table])
+    write_report(html, data, extra_tables=[limiting_nodes_table, flow_tests_table,
+                                           segments_table])
     log.info("wrote %s", html)

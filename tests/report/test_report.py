@@ -585,3 +585,29 @@ def test_browser_map_draws_the_segment_layer(run_us, tmp_path):
         assert errors == []
     finally:
         b.close()
+
+
+def test_fire_tables_count_in_service_hydrants_and_limiting_nodes():
+    import pandas as pd
+
+    from gridflow.report.fireflow import in_service, limiting_nodes_table
+
+    hyd = pd.DataFrame({
+        "hydrant_id": ["H1", "H2", "H3", "H4", "H5"],
+        "zone": ["N", "N", "N", "S", "N"],
+        "in_service": [1, 1, 1, 1, 0],
+        "limited_by": ["node_pressure", "node_pressure", "residual", "node_pressure",
+                       "out_of_service"],
+        "limiting_node_id": ["J7", "J7", "J1", "J9", ""],
+    })
+    ins = in_service(hyd)
+    assert ins is not None and ins["hydrant_id"].tolist() == ["H1", "H2", "H3", "H4"]
+
+    class D:
+        hydrants = ins
+
+    table = limiting_nodes_table(D())  # type: ignore[arg-type]
+    assert table is not None
+    assert table.frame[["zone", "limiting_node_id", "hydrants"]].values.tolist() == [
+        ["N", "J7", 2], ["S", "J9", 1]]
+    assert table.frame["hydrant_ids"].iloc[0] == "H1, H2"
