@@ -129,7 +129,7 @@ def test_written_results_obey_mass_and_energy(run_output, scenario):
     j = nodes[(nodes["fixed_head"] == 0) & (nodes["supplied"] == 1)]
     inflow = (pipes.groupby("to_node")["flow_gpm"].sum()
               .sub(pipes.groupby("from_node")["flow_gpm"].sum(), fill_value=0))
-    active_prv_to = set(pipes.loc[pipes["status"] == "active", "to_node"])
+    active_prv_to = set(pipes.loc[pipes["status"] == "regulating", "to_node"])
     j = j[~j["node_id"].isin(active_prv_to)]
     bal = inflow.reindex(j["node_id"]).fillna(0).to_numpy() - j["demand_gpm"].to_numpy()
     assert np.max(np.abs(bal)) < 0.05  # gpm
@@ -265,10 +265,14 @@ def test_nonconvergence_exits_3_with_diagnostics(tmp_path):
     assert "max_iter = 1" in text
     cfg.write_text(text)
     out = tmp_path / "diag.gpkg"
+    out.write_bytes(b"last night's results")  # what a nightly schedule still needs
     res = _run("run", str(cfg), "--out", str(out))
     assert res.exit_code == 3, res.output
     assert "did not converge" in res.output
-    f = pyogrio.read_dataframe(out, layer="findings", read_geometry=False)
+    assert out.read_bytes() == b"last night's results"  # never written over
+    diag = tmp_path / "diag.diagnostics.gpkg"
+    assert str(diag) in res.output
+    f = pyogrio.read_dataframe(diag, layer="findings", read_geometry=False)
     worst = f[f["kind"] == "not_converged"]
     assert len(worst) == 10 and (worst["severity"] == "error").all()
     assert worst["feature_id"].iloc[0] in res.output
@@ -279,7 +283,51 @@ def test_run_prints_a_summary_with_the_caution(tmp_path):
     res = _run("-q", "run", str(cfg), "--out", str(tmp_path / "s.gpkg"))
     assert res.exit_code == 0
     assert "peak_hour:" in res.output and "low-pressure" in res.output
+    # every scenario line says how much demand is not delivered and what shut devices cut off
+    lines = [ln for ln in res.output.splitlines() if ln.startswith("  ") and "low-pressure" in ln]
+    assert len(lines) == 3
+    assert all("demand not delivered" in ln and "cut off by shut devices" in ln for ln in lines)
     assert "model estimates" in res.output and "licensed engineers decide" in res.output
+
+
+#: words and codes of another modelling vocabulary that no output may carry as a value
+#: (a regulating valve's status, short valve and check-valve codes, the status-loop word)
+_FOREIGN_VALUES = {"active", "prv", "tcv", "cv", "gpv", "psv", "pbv", "fcv"}
+
+
+def _coded_values(path: Path) -> dict[str, set[str]]:
+    found: dict[str, set[str]] = {}
+    for name, _ in pyogrio.list_layers(path):
+        df = pyogrio.read_dataframe(path, layer=str(name), read_geometry=False)
+        for col in df.columns:
+            if not (pd.api.types.is_numeric_dtype(df[col])
+                    or pd.api.types.is_datetime64_any_dtype(df[col])):
+                found[f"{name}.{col}"] = set(df[col].dropna().astype(str).str.lower())
+    return found
+
+
+def test_outputs_use_our_own_words(run_output, tmp_path):
+    out, cfg = run_output
+    values = _coded_values(out)
+    for where, vals in values.items():
+        if where.endswith(("_id", "_node", ".message", ".feature_id", ".value")):
+            continue  # the utility's own ids and free text
+        assert not vals & _FOREIGN_VALUES, (where, vals & _FOREIGN_VALUES)
+    status = set().union(*(v for k, v in values.items() if k.startswith("pipes_")
+                           and k.endswith(".status")))
+    assert status <= {"open", "closed", "regulating"}
+    assert "regulating" in status  # the sample's pressure-reducing valves hold their settings
+    keys = values["run_info.key"]
+    words = {w for k in keys for w in re.split(r"[^a-z]+", k)}
+    assert not words & {"trial", "trials"}
+    assert any(k.endswith(":status_rounds") for k in keys)
+    # the cleaned network that `gridflow check` writes names valve types in words
+    chk = tmp_path / "check.gpkg"
+    res = _run("check", str(cfg), "--out", str(chk))
+    assert res.exit_code == 0, res.output
+    cvals = _coded_values(chk)
+    vt = set().union(*(v for k, v in cvals.items() if k.endswith(".valve_type")))
+    assert "pressure_reducing" in vt and not vt & _FOREIGN_VALUES
 
 
 def test_fireflow_figures_are_physical_and_checkable(run_output):

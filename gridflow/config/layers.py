@@ -77,8 +77,8 @@ ROLE_FIELDS: dict[str, tuple[str, ...]] = {
     "valves": ("type", "status", "setting", "diameter", "elevation", "minor_loss_k",
                "direction"),
     "tanks": ("bottom_elevation*", "level*", "max_level", "diameter", "name"),
-    "pumps": ("design_flow", "design_head", "flow_1", "head_1", "flow_2", "head_2", "flow_3",
-              "head_3", "speed", "status", "name", "direction"),
+    "pumps": ("design_flow", "design_head", "shut_off_head", "flow_1", "head_1", "flow_2",
+              "head_2", "flow_3", "head_3", "speed", "status", "name", "direction"),
     "sources": ("head*", "elevation", "name"),
     "meters": ("consumption*", "category", "zone"),
 }
@@ -96,8 +96,9 @@ NUMERIC_FIELDS: dict[str, dict[str, dict[str, float] | None]] = {
                "minor_loss_k": None},
     "tanks": {"bottom_elevation": HEAD, "level": LENGTH, "max_level": LENGTH,
               "diameter": DIAMETER},
-    "pumps": {"design_flow": FLOW, "design_head": HEAD, "flow_1": FLOW, "head_1": HEAD,
-              "flow_2": FLOW, "head_2": HEAD, "flow_3": FLOW, "head_3": HEAD, "speed": None},
+    "pumps": {"design_flow": FLOW, "design_head": HEAD, "shut_off_head": HEAD, "flow_1": FLOW,
+              "head_1": HEAD, "flow_2": FLOW, "head_2": HEAD, "flow_3": FLOW, "head_3": HEAD,
+              "speed": None},
     "sources": {"head": HEAD, "elevation": HEAD},
     "meters": {"consumption": None},
 }

@@ -71,3 +71,14 @@ class SolverSection:
                                   doc="pressure below which a node delivers nothing")
     pdd_required_pressure: float = opt(20 * PSI, parse=quantity("pressure"),
                                        doc="pressure at which a node delivers its full demand")
+    max_status_rounds: int = opt(30, parse=P_INT,
+                                 doc="rounds of pump, check-valve and pressure-reducing-valve "
+                                     "status changes allowed")
+    flow_relative_tolerance: float = opt(
+        1e-9, parse=P_FLOAT,
+        doc="mass tolerance relative to the largest link flow or total demand (the absolute "
+            "flow_tolerance is the floor)")
+    pump_shutoff_ratio: float = opt(
+        1.25, parse=P_FLOAT,
+        doc="shut-off head / design head assumed for a pump given by one design point without "
+            "a shut_off_head field (1.25: common practice for radial centrifugal pumps)")

@@ -1,7 +1,8 @@
 """The nightly job: read, clean, allocate, solve every scenario, flag, fire flow, write.
 
 Exit codes (the contract): 0 done; 2 unusable config or input (nothing written); 3 a scenario did
-not converge (diagnostics written: findings name the worst node and link); 1 unexpected.
+not converge (diagnostics written to ``<stem>.diagnostics.gpkg`` beside the output, whose
+previous version is left as it was: findings name the worst node and link); 1 unexpected.
 """
 
 from __future__ import annotations
@@ -19,13 +20,12 @@ from gridflow import __version__
 from gridflow.config import Config, load_config
 from gridflow.errors import ConvergenceError, InputError, OutputError, TopologyError
 from gridflow.findings import Findings
-from gridflow.hydraulics import HydraulicSystem, SolveOptions
-from gridflow.hydraulics.solver import HydraulicResult
+from gridflow.hydraulics import HydraulicResult, HydraulicSystem, SolveOptions
 from gridflow.jobs.check import file_sha256
 from gridflow.network import NODE_JUNCTION, Network
 
 __all__ = ["run_job", "solve_options", "verify_solution", "require_solvable",
-           "check_output_path"]
+           "check_output_path", "diagnostics_path", "shut_zone_findings"]
 
 log = logging.getLogger("gridflow")
 
@@ -33,6 +33,8 @@ log = logging.getLogger("gridflow")
 def solve_options(cfg: Config) -> SolveOptions:
     s = cfg.solver
     return SolveOptions(max_iter=s.max_iter, flow_tolerance=s.flow_tolerance,
+                        mass_relative_tolerance=s.flow_relative_tolerance,
+                        max_status_rounds=s.max_status_rounds,
                         head_tolerance=s.head_tolerance, pressure_driven=s.pressure_driven,
                         pdd_min_pressure=s.pdd_min_pressure,
                         pdd_required_pressure=s.pdd_required_pressure)
@@ -43,33 +45,48 @@ def verify_solution(system: HydraulicSystem, r: HydraulicResult) -> tuple[float,
 
     Returns the largest mass imbalance [m3/s] over supplied unknown-head nodes, the largest
     head-loss residual [m] over open links between supplied nodes, and the worst node and
-    link positions. A non-finite head or flow at a supplied node or open link counts as an
-    infinite residual there.
-
-    Notes
-    -----
-    Mass: ``max_i |sum_in q - sum_out q - d_i|`` over supplied nodes whose head is not fixed
-    and not pinned by an active PRV. Energy: ``max_k |h_f(q_k) - (H_from - H_to)|`` over open
-    links, ``h_f`` the link's head-loss law at the written flow.
+    link positions, by the same residual function the solvers use
+    (:func:`gridflow.hydraulics.assembly.residuals`). A non-finite head or flow at a supplied
+    node or open link counts as an infinite residual there.
     """
+    res = system.residuals(r)
+    return res.max_mass, res.max_error, res.worst_node, res.worst_link
+
+
+def diagnostics_path(out_path: Path) -> Path:
+    """Where a run that does not converge writes: ``<stem>.diagnostics.gpkg`` beside the output
+    (the output itself, last night's results, stays as it was)."""
+    return out_path.with_name(f"{out_path.stem}.diagnostics.gpkg")
+
+
+def shut_zone_findings(name: str, system: HydraulicSystem, r: HydraulicResult, findings,
+                       link_geoms, meter_link_idx: np.ndarray | None = None) -> tuple[int, float]:
+    """A warning per zone that the input connects to a fixed head but the solution leaves dry
+    because a device is shut, at the device(s); returns (nodes, undelivered demand m3/s)."""
     net = system.net
-    nn = net.n_nodes
-    q = r.flow_m3s
-    inflow = np.bincount(net.to_idx, q, nn) - np.bincount(net.from_idx, q, nn)
-    pinned = net.is_fixed.copy()
-    active = r.link_state == 2
-    pinned[net.to_idx[active]] = True
-    check = r.supplied & ~pinned
-    imb = np.where(check, np.abs(inflow - r.demand_m3s), 0.0)
-    imb[r.supplied & ~(np.isfinite(r.head_m) & np.isfinite(inflow))] = np.inf
-    hl, _ = system.link_headloss(q)
-    open_ = (r.link_state == 0) & r.supplied[net.from_idx] & r.supplied[net.to_idx]
-    dh = r.head_m[net.from_idx] - r.head_m[net.to_idx]
-    e = np.where(open_, np.abs(hl - dh), 0.0)
-    e[open_ & ~np.isfinite(e)] = np.inf
-    wn = int(np.argmax(imb)) if nn else 0
-    wl = int(np.argmax(e)) if len(e) else 0
-    return float(imb[wn]) if nn else 0.0, float(e[wl]) if len(e) else 0.0, wn, wl
+    n_nodes, undelivered = 0, 0.0
+    for z in system.shut_zones(r):
+        inz = np.zeros(net.n_nodes, dtype=bool)
+        inz[z.nodes] = True
+        meters = 0
+        if meter_link_idx is not None and len(meter_link_idx):
+            ok = meter_link_idx >= 0
+            li = meter_link_idx[ok]
+            meters = int(np.sum(inz[net.from_idx[li]] | inz[net.to_idx[li]]))
+        devices = [str(net.link_id[k]) for k in z.devices] or ["(none found)"]
+        msg = (f"scenario {name}: {len(z.nodes)} node(s) and {meters} meter(s) are connected to "
+               f"a source or tank by links open in the GIS but get no supply because "
+               f"{', '.join(devices)} shut; {z.required_m3s * 1000:.3g} L/s of demand is not "
+               "delivered")
+        for k in (z.devices if len(z.devices) else [int(z.nodes[0])]):
+            layer = f"pipes_{name}" if len(z.devices) else f"nodes_{name}"
+            fid = net.link_id[k] if len(z.devices) else net.node_id[k]
+            geom = link_geoms[k] if len(z.devices) else None
+            findings.add("supply_cut_by_device", "warning", layer, fid, msg, geom)
+        log.warning(msg)
+        n_nodes += len(z.nodes)
+        undelivered += z.required_m3s
+    return n_nodes, undelivered
 
 
 def _attach_log_file(out_path: Path) -> logging.Handler | None:
@@ -231,7 +248,7 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
                 r = system.solve()
             except ConvergenceError as exc:
                 r = exc.fields["result"]
-                worst = _worst_nodes(net, system, r, 10)
+                worst = list(net.node_id[system.residuals(r).worst_nodes(10)])
                 findings.add_many("not_converged", "error", f"nodes_{name}", worst,
                                   [f"scenario {name}: {r.message}"] * len(worst),
                                   list(clean.nodes.geometry.values[net.node_index(worst)]))
@@ -241,13 +258,23 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
                 info.append((f"{name}:converged", "0"))
                 break
             mass, headres, wn, wl = verify_solution(system, r)
+            cut_nodes, cut_m3s = shut_zone_findings(
+                name, system, r, findings, clean.links.geometry.values,
+                getattr(alloc, "meter_link_idx", None))
+            r.message += (f"; {cut_nodes} node(s) cut off by shut devices"
+                          if cut_nodes else "")
             info += [(f"iterations_{name}", str(r.iterations)),
-                     (f"{name}:status_trials", str(r.trials)),
+                     (f"{name}:status_rounds", str(r.status_rounds)),
+                     (f"{name}:solve_status", r.status),
+                     (f"{name}:undelivered_demand_m3s", f"{r.undelivered_m3s:.6g}"),
+                     (f"{name}:cut_off_nodes", str(cut_nodes)),
+                     (f"{name}:cut_off_demand_m3s", f"{cut_m3s:.6g}"),
                      (f"{name}:mass_residual_m3s", f"{mass:.3e}"),
                      (f"{name}:head_residual_m", f"{headres:.3e}"),
                      (f"{name}:converged", "1"),
                      (f"{name}:seconds", f"{time.perf_counter() - t0:.2f}")]
-            if not (mass <= 10 * opts.flow_tolerance and headres <= 10 * opts.head_tolerance):
+            mtol = max(opts.flow_tolerance, r.mass_tolerance_m3s)
+            if not (mass <= 10 * mtol and headres <= 10 * opts.head_tolerance):
                 msg = (f"scenario {name}: the solution failed its check (mass imbalance "
                        f"{mass:.3g} m3/s at node {net.node_id[wn]}, head-loss residual "
                        f"{headres:.3g} m on link {net.link_id[wl]}); its results are not written")
@@ -309,17 +336,23 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
                  ("seconds_total", f"{time.perf_counter() - t_start:.2f}")]
         layers["run_info"] = pd.DataFrame(info, columns=["key", "value"])
         inputs = [cfg.resolve(p) for p in cfg.inputs.values()]
+        published = None
+        if failure is not None:
+            # last night's output (file or published schema) stays as it was
+            target = diagnostics_path(out_path)
+            write_geopackage(target, layers, inputs=inputs, styles=True)
+            log.info("wrote %s", target)
+            raise ConvergenceError(f"{failure.message}; diagnostics written to {target} "
+                                   f"(the output {db_out or out_path} left as it was)",
+                                   **failure.fields)
         if db_out is not None:
             published = publish_postgis(db_out, layers, crs=clean.crs)
         else:
             write_geopackage(out_path, layers, inputs=inputs, styles=True)
             log.info("wrote %s", out_path)
-        if cfg.report.enabled and failure is None:
+        if cfg.report.enabled:
             _report(cfg, out_path, clean, results, layers, info, routine, rating)
-        if failure is not None:
-            raise failure
-        _print_summary(out_path, layers, findings, cfg.report.enabled,
-                       published if db_out is not None else None)
+        _print_summary(out_path, layers, findings, cfg.report.enabled, published)
         return 0
     finally:
         if handler is not None:
@@ -336,11 +369,17 @@ def _print_summary(out_path: Path, layers: dict, findings: Findings, report: boo
     for name, df in layers.items():
         if name.startswith("nodes_"):
             pipes = layers[f"pipes_{name[6:]}"]
+            info = layers.get("run_info")
+            kv = dict(zip(info["key"], info["value"], strict=True)) if info is not None else {}
+            short = float(kv.get(f"{name[6:]}:undelivered_demand_m3s", "0") or 0)
+            cut = kv.get(f"{name[6:]}:cut_off_nodes", "0")
             print(f"  {name[6:]}: {int(df['low_pressure'].sum())} low-pressure, "
                   f"{int(df['high_pressure'].sum())} high-pressure, "
                   f"{int((df['supplied'] == 0).sum())} unsupplied node(s); "
                   f"{int(pipes['high_velocity'].sum())} fast, "
-                  f"{int(pipes['high_headloss'].sum())} high-loss pipe(s)")
+                  f"{int(pipes['high_headloss'].sum())} high-loss pipe(s); "
+                  f"{cut} node(s) cut off by shut devices, {short * 1000:.3g} L/s of demand not "
+                  "delivered")
     if "hydrants_fireflow" in layers:
         h = layers["hydrants_fireflow"]
         ins = h[h["in_service"] == 1]
@@ -385,15 +424,6 @@ def terminal_progress(label: str):
         sys.stderr.flush()
 
     return show
-
-
-def _worst_nodes(net: Network, system: HydraulicSystem, r: HydraulicResult, k: int) -> list:
-    nn = net.n_nodes
-    q = r.flow_m3s
-    inflow = np.bincount(net.to_idx, q, nn) - np.bincount(net.from_idx, q, nn)
-    imb = np.where(r.supplied & ~net.is_fixed, np.abs(inflow - r.demand_m3s), 0.0)
-    order = np.argsort(-imb, kind="stable")[:k]
-    return list(net.node_id[order])
 
 
 def _fireflow(cfg, clean, results, opts, workers, scheduler, findings, info):

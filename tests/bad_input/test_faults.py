@@ -175,12 +175,14 @@ def test_solution_failing_its_check_stops_with_exit_3(tmp_path, monkeypatch, spo
         assert m_node in node, msg
     if link:
         assert m_link in link, msg
-    f = pyogrio.read_dataframe(target, layer="findings", read_geometry=False)
+    assert not target.exists()  # the output is not written; diagnostics go beside it
+    diag = target.with_name("result.diagnostics.gpkg")
+    f = pyogrio.read_dataframe(diag, layer="findings", read_geometry=False)
     bad = f[f["kind"] == "solution_check_failed"]
     assert set(bad["feature_id"]) == {m_node, m_link}
-    layers = {n for n, _ in pyogrio.list_layers(target)}
+    layers = {n for n, _ in pyogrio.list_layers(diag)}
     assert "nodes_average_day" not in layers  # the wrong answer is not written
-    info = pyogrio.read_dataframe(target, layer="run_info")
+    info = pyogrio.read_dataframe(diag, layer="run_info")
     kv = dict(zip(info["key"], info["value"]))
     mass = float(kv["average_day:mass_residual_m3s"])
     head = float(kv["average_day:head_residual_m"])

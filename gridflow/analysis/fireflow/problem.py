@@ -32,7 +32,7 @@ from gridflow.network.model import (
     LINK_VALVE,
     NODE_JUNCTION,
     STATUS_CLOSED,
-    VALVE_TCV,
+    VALVE_THROTTLE,
     Network,
 )
 
@@ -329,10 +329,10 @@ def _add_laterals(net, hid, main, has_lat, length, diameter, fire):
         "roughness": cat(net.roughness, np.where(is_pipe, rough, np.nan)),
         "minor_k": cat(net.minor_k, np.where(is_pipe, k, 0.0)),
         "status": cat(net.status, np.zeros(m)),
-        "valve_type": cat(net.valve_type, np.where(is_pipe, 0, VALVE_TCV)),
+        "valve_type": cat(net.valve_type, np.where(is_pipe, 0, VALVE_THROTTLE)),
         "valve_setting": cat(net.valve_setting, np.where(is_pipe, np.nan, k)),
-        "pump_a": cat(net.pump_a, nanv), "pump_b": cat(net.pump_b, nanv),
-        "pump_c": cat(net.pump_c, nanv), "pump_speed": cat(net.pump_speed, np.ones(m)),
+        "pump_h0": cat(net.pump_h0, nanv), "pump_h1": cat(net.pump_h1, nanv),
+        "pump_h2": cat(net.pump_h2, nanv), "pump_speed": cat(net.pump_speed, np.ones(m)),
     }
     return net.replace(**changes), outlet
 

@@ -35,7 +35,7 @@ from gridflow.units import M_HEAD_PER_PSI
 
 if TYPE_CHECKING:
     from gridflow.analysis.fireflow.problem import FireflowProblem
-    from gridflow.hydraulics import DrawSolver, HydraulicResult
+    from gridflow.hydraulics import DrawOutcome, DrawSolver, HydraulicResult
 
 __all__ = ["LIMIT_CODES", "CannotAnswer", "DrawRoute", "FullRoute", "HydrantRecord",
            "SolveFailed", "run_rows", "search_hydrant"]
@@ -95,20 +95,20 @@ class DrawRoute:
     def __init__(self, problem: FireflowProblem, ds: DrawSolver) -> None:
         self.p, self.ds, self.iterations = problem, ds, 0
 
-    def _ok(self, r: HydraulicResult | None) -> HydraulicResult:
-        if r is None:
+    def _ok(self, out: DrawOutcome) -> HydraulicResult:
+        if not out.success or out.result is None:
             raise CannotAnswer
-        self.iterations += r.iterations
-        return r
+        self.iterations += out.result.iterations
+        return out.result
 
     def pin(self, j: int, head: float, start: HydraulicResult | None) -> HydraulicResult:
-        return self._ok(self.ds.solve(int(self.p.outlet_idx[j]), head_m=head, start=start))
+        return self._ok(self.ds.solve(int(self.p.outlet_idx[j]), "head", head, start=start))
 
     def at_draw(self, j: int, q: float, start: HydraulicResult | None) -> HydraulicResult:
         if start is not None:
             q_start = self.p.draw(j, start)
             start = self.ds.blend(start, q / q_start) if q_start > 0 else start
-        return self._ok(self.ds.solve(int(self.p.outlet_idx[j]), draw_m3s=q, start=start))
+        return self._ok(self.ds.solve(int(self.p.outlet_idx[j]), "draw", q, start=start))
 
     def hold(self, j: int, kind: str, idx: int, start: HydraulicResult,
              first: bool) -> HydraulicResult:
@@ -122,7 +122,7 @@ class DrawRoute:
             drop_ok = float(p.warm.head_m[idx]) - held
             t = (drop_ok / drop_pin) ** (1 / p.exponent) if drop_pin > 0 and drop_ok > 0 else 1.0
             start = self.ds.blend(start, min(max(t, 0.05), 1.0))
-        return self._ok(self.ds.solve(int(p.outlet_idx[j]), limit_node=idx, limit_head_m=held,
+        return self._ok(self.ds.solve(int(p.outlet_idx[j]), "limit", held, limit_node=idx,
                                       start=start))
 
 
