@@ -13,7 +13,7 @@ import pyogrio
 import pytest
 from click.testing import CliRunner
 
-from gridflow.cli.main import _register, cli
+from gridflow.cli.main import cli
 from gridflow.units import FT, US_GALLON
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -36,7 +36,6 @@ def _config(tmp_path: Path, *, fireflow: bool) -> Path:
 
 
 def _run(*args):
-    _register()
     return CliRunner().invoke(cli, list(args), catch_exceptions=False)
 
 

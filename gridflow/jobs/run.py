@@ -225,7 +225,7 @@ def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
     from gridflow.io.postgis import read_previous_flags as pg_previous_flags
     from gridflow.io.publish import publish_postgis
     from gridflow.io.write import write_layers
-    from gridflow.jobs.layers import nodes_layer, pipes_layer
+    from gridflow.jobs.stages import scenario_layers
     from gridflow.topology import build_network
 
     log_path = outputs["log file"]
@@ -311,10 +311,7 @@ def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
                              msg, clean.links.geometry.values[wl])
                 failure = ConvergenceError(msg, node_id=net.node_id[wn], link_id=net.link_id[wl])
                 break
-            nodes = nodes_layer(net, r, clean.nodes.geometry.values, clean.crs, cfg.criteria,
-                                system_units)
-            pipes = pipes_layer(net, r, clean.links.geometry.values, clean.crs, cfg.criteria,
-                                system_units, rating)
+            nodes, pipes = scenario_layers(cfg, clean, net, r)
             for flag in ("low_pressure", "high_pressure", "negative_pressure"):
                 info.append((f"{name}:{flag}", str(int(nodes[flag].sum()))))
             info.append((f"{name}:unsupplied", str(int((nodes["supplied"] == 0).sum()))))
@@ -476,16 +473,13 @@ def terminal_progress(label: str):
 
 
 def _fireflow(cfg, clean, results, opts, workers, scheduler, findings, info):
-    from gridflow.analysis.fireflow import sweep
-    from gridflow.jobs.layers import hydrants_layer
+    from gridflow.jobs.stages import fireflow_layer
 
     name = cfg.fireflow.scenario
     net, base, _ = results[name]
     t0 = time.perf_counter()
-    hyd = clean.hydrants
-    ff = sweep(net, base, pd.DataFrame(hyd.drop(columns="geometry")), cfg.fireflow,
-               cfg.criteria, options=opts, workers=workers, scheduler=scheduler,
-               progress=terminal_progress("fire flow"))
+    ff, layer = fireflow_layer(cfg, clean, net, base, opts, workers=workers,
+                               scheduler=scheduler, progress=terminal_progress("fire flow"))
     below = ff.attrs.get("base_below_minimum", [])
     if len(below):
         idx = net.node_index(below)
@@ -493,9 +487,6 @@ def _fireflow(cfg, clean, results, opts, workers, scheduler, findings, info):
                           f"pressure is below the fire-flow system minimum in scenario {name} "
                           "before any fire draw; not counted as limiting each hydrant",
                           list(clean.nodes.geometry.values[idx]))
-    order = pd.Index(ff["hydrant_id"].astype(str))
-    geo = hyd.set_index(hyd["hydrant_id"].astype(str)).geometry.reindex(order).values
-    layer = hydrants_layer(ff, geo, clean.crs, cfg.run.units)
     summary = ff.attrs["summary"]
     info += [("fireflow:scenario", name), ("fireflow:hydrants", str(summary["hydrants"])),
              ("fireflow:out_of_service", str(summary["out_of_service"])),

@@ -19,7 +19,7 @@ import pyogrio
 import pytest
 from click.testing import CliRunner
 
-from gridflow.cli.main import _register, cli
+from gridflow.cli.main import cli
 from gridflow.io.write import remove_stale_temporaries
 from tests.bad_input.harness import previous_output
 from tests.bad_input.town import Town
@@ -34,7 +34,6 @@ def _many_scenarios(t: Town, n: int) -> Town:
 
 
 def _cli(*args):
-    _register()
     return CliRunner().invoke(cli, list(args))
 
 
