@@ -16,15 +16,13 @@ runs the same in this process, on local processes, or on a Dask cluster (see
 from __future__ import annotations
 
 import logging
-import os
 import time
 from collections.abc import Callable
-from concurrent.futures import ProcessPoolExecutor
-from concurrent.futures import as_completed as futures_completed
 from dataclasses import dataclass, field
 
 import numpy as np
 
+from gridflow.analysis.parallel import Backend
 from gridflow.analysis.segments import Segments
 from gridflow.errors import ConvergenceError
 from gridflow.hydraulics import HydraulicResult, HydraulicSystem, SolveOptions
@@ -159,26 +157,11 @@ class ClosureProblem:
 
 
 # ---------------------------------------------------------------------- execution
-_WORKER: ClosureProblem | None = None
 
 
-def _init_worker(problem: ClosureProblem) -> None:
-    global _WORKER
-    _WORKER = problem
-
-
-def _run_in_worker(rows: np.ndarray) -> dict:
-    assert _WORKER is not None
-    return _WORKER.run(rows)
-
-
-def _run_batch(problem: ClosureProblem, rows: np.ndarray) -> dict:
-    """A Dask task: a pure function of the (scattered) problem and the segment rows."""
+def close_segments(problem: ClosureProblem, rows: np.ndarray) -> dict[str, np.ndarray]:
+    """The task :func:`closure_sweep` runs: a pure function of the problem and segment rows."""
     return problem.run(rows)
-
-
-def _batches(rows: np.ndarray, size: int) -> list[np.ndarray]:
-    return [rows[i:i + size] for i in range(0, len(rows), size)]
 
 
 def closure_sweep(problem: ClosureProblem, *, batch_size: int = 50,
@@ -187,8 +170,9 @@ def closure_sweep(problem: ClosureProblem, *, batch_size: int = 50,
                   ) -> tuple[dict[str, np.ndarray], dict]:
     """Close every segment of ``problem.segments`` in turn; figures per segment, in order.
 
-    Batches are sized so each worker gets several (at most ``batch_size`` segments each); the
-    problem is shipped to each worker once. Results do not depend on how the work is split.
+    Runs on :class:`gridflow.analysis.parallel.Backend`: batches of at most ``batch_size``
+    segments, sized so each worker gets several; the problem is shipped to each worker once.
+    Results do not depend on how the work is split.
 
     Returns
     -------
@@ -201,54 +185,22 @@ def closure_sweep(problem: ClosureProblem, *, batch_size: int = 50,
     assert problem.segments is not None
     t0 = time.perf_counter()
     n = problem.segments.n
-    rows = np.arange(n, dtype=np.int64)
-    try:
-        cores = len(os.sched_getaffinity(0))
-    except AttributeError:  # pragma: no cover - not on Linux
-        cores = os.cpu_count() or 1
-    nworkers = max(1, cores if workers is None else int(workers))
-    size = max(1, min(int(batch_size), -(-n // (4 * nworkers)) if n else 1))
-    batches = _batches(rows, size)
     done = [0]
     parts: list[dict] = []
-
-    def took(rec: dict) -> None:
-        parts.append(rec)
-        done[0] += len(rec["row"])
-        if progress is not None:
-            progress(done[0], n)
-
-    if scheduler:
-        from distributed import as_completed as dask_completed
-
-        from gridflow.analysis.fireflow import connect_scheduler
-
-        mode = "dask"
-        client = connect_scheduler(scheduler)
-        try:
-            shared = client.scatter(problem, broadcast=True, hash=False)
-            futs = [client.submit(_run_batch, shared, b, pure=False) for b in batches]
-            for f in dask_completed(futs, loop=client.loop):
-                took(f.result())
-                f.release()
-        finally:
-            client.close()
-    elif nworkers > 1 and len(batches) > 1:
-        mode = "processes"
-        with ProcessPoolExecutor(max_workers=min(nworkers, len(batches)),
-                                 initializer=_init_worker, initargs=(problem,)) as pool:
-            for f in futures_completed([pool.submit(_run_in_worker, b) for b in batches]):
-                took(f.result())
-    else:
-        mode = "serial"
-        for b in batches:
-            took(problem.run(b))
+    with Backend(problem, workers=workers, scheduler=scheduler) as backend:
+        batches = backend.batches(np.arange(n, dtype=np.int64), batch_size)
+        for _, rec in backend.run(close_segments, batches):
+            parts.append(rec)
+            done[0] += len(rec["row"])
+            if progress is not None:
+                progress(done[0], n)
+        mode, slots = backend.mode, backend.slots
     records: dict[str, np.ndarray] = {}
     if parts:
         order = np.argsort(np.concatenate([p["row"] for p in parts]), kind="stable")
         for name in RECORD_FIELDS:
             records[name] = np.concatenate([p[name] for p in parts])[order]
-    summary = {"mode": mode, "workers": nworkers if mode != "serial" else 1,
+    summary = {"mode": mode, "workers": slots,
                "batches": len(batches), "seconds": round(time.perf_counter() - t0, 3)}
     log.info("segment closures: %d segments in %.1f s (%s)", n, summary["seconds"], mode)
     return records, summary
