@@ -15,7 +15,9 @@ consumption in gallons per day, PRV settings in psi, pump curves in gpm and ft. 
 LineString Z with ground elevation [ft] at each vertex.
 
 Realistic GIS defects and hydraulic weak spots are planted on purpose; their ids come from
-:func:`planted` (printed by this script) and are listed in ``sample_gis/README.md``.
+:func:`planted` and are written beside the GeoPackage as ``manifest.json`` (what the tests and
+``sample_gis/README.md`` read; ``tests/sample/test_sample_gis.py`` checks that the README
+names them).
 
 Usage::
 
@@ -29,6 +31,7 @@ so two runs write identical attributes and geometries.
 from __future__ import annotations
 
 import argparse
+import json
 import sys
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -895,8 +898,21 @@ def planted(t: Town) -> dict[str, object]:
     }
 
 
+#: the manifest's name, beside the GeoPackage
+MANIFEST = "manifest.json"
+
+
+def manifest_text(t: Town) -> str:
+    """The manifest: the ids of :func:`planted`, as JSON (sorted keys, one value a line)."""
+    doc = {"about": "Planted GIS defects, weak spots and notable ids of the Millbrook sample; "
+                    "written by scripts/make_sample_gis.py (do not edit).",
+           **planted(t)}
+    return json.dumps(doc, indent=1, sort_keys=True) + "\n"
+
+
 def write(path: str | Path, seed: int = SEED) -> Town:
-    """Build the town and write every layer to ``path`` (replaced if it exists)."""
+    """Build the town and write every layer to ``path`` (replaced if it exists) and the
+    manifest of planted ids beside it (:data:`MANIFEST`)."""
     path = Path(path)
     t = build(seed)
     layers = frames(t)
@@ -911,6 +927,10 @@ def write(path: str | Path, seed: int = SEED) -> Town:
     t._flow_tests = add_flow_tests(tmp, Path(__file__).resolve().parents[1] / "sample_gis"
                                    / "millbrook.toml", seed)
     tmp.replace(path)
+    target = path.with_name(MANIFEST)
+    mtmp = target.with_name(f".{MANIFEST}.tmp")
+    mtmp.write_text(manifest_text(t), encoding="utf-8")
+    mtmp.replace(target)
     return t
 
 

@@ -17,7 +17,9 @@ from click.testing import CliRunner
 import gridflow
 from gridflow.cli.main import cli
 
-ROOT = Path(__file__).resolve().parents[1]
+from ..sample_ids import sample_ids
+
+ROOT = Path(__file__).resolve().parents[2]
 SAMPLE = ROOT / "sample_gis"
 
 
@@ -158,8 +160,9 @@ def test_errors_are_the_typed_errors_the_cli_maps(model, tmp_path):
         model.solve("max_day", tank_levels={"T-1": "20 gpm"})
     with pytest.raises(gridflow.ConfigError, match="no node or attached hydrant with id 'X'"):
         model.solve("max_day", demands={"X": "10 gpm"})
-    with pytest.raises(gridflow.InputError, match="HYD-1413 is not attached") as e:
-        model.fire_flow(["HYD-1413"])  # the hydrant in the golf course
+    far = sample_ids()["far_hydrant"]  # the hydrant in the golf course
+    with pytest.raises(gridflow.InputError, match=f"{far} is not attached") as e:
+        model.fire_flow([far])
     assert e.value.exit_code == 2
     with pytest.raises(gridflow.InputError, match="no hydrant with id 'HYD-0' in layer"):
         model.fire_flow("HYD-0")

@@ -10,7 +10,7 @@ from gridflow.cli.main import cli
 from gridflow.errors import OutputError
 from gridflow.io.write import write_geopackage
 
-from .gis_helpers import L, P, layer, pipe, source_rows
+from ..gis_helpers import L, P, layer, pipe, source_rows
 
 CONFIG = """
 [run]

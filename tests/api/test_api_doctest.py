@@ -12,7 +12,7 @@ import pytest
 import gridflow._model
 import gridflow.config.draft
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 FLAGS = doctest.ELLIPSIS | doctest.NORMALIZE_WHITESPACE
 
 

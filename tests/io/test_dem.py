@@ -10,7 +10,7 @@ from gridflow.findings import Findings
 from gridflow.io.dem import sample_dem
 from gridflow.topology import build_network
 
-from .gis_helpers import CRS, X0, Y0, L, P, config, layer, pipe, source_layer, source_rows
+from ..gis_helpers import CRS, X0, Y0, L, P, config, layer, pipe, source_layer, source_rows
 
 CELL = 10.0  # m
 

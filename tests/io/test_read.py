@@ -9,7 +9,7 @@ from gridflow.errors import InputError
 from gridflow.findings import Findings
 from gridflow.io.read import read_inputs
 
-from .gis_helpers import CRS, X0, Y0, L, P, config, layer, pipe, source_layer, source_rows
+from ..gis_helpers import CRS, X0, Y0, L, P, config, layer, pipe, source_layer, source_rows
 
 
 def _gis(tmp_path, rows=None, crs=CRS):

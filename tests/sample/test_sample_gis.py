@@ -1,6 +1,7 @@
 """The Millbrook sample GIS: reproducible from its generator, defects planted, config valid.
 
-The ids below are the ones listed in ``sample_gis/README.md``. Hydraulic sense checks use hand
+The ids come from the generator's manifest (``sample_gis/manifest.json``), which the README
+names too (checked here). Hydraulic sense checks use hand
 calculations (Hazen-Williams, unit facts) on the committed data; the pipeline's own end-to-end
 checks of findings and flags come with the pipeline.
 """
@@ -8,6 +9,7 @@ checks of findings and flags come with the pipeline.
 from __future__ import annotations
 
 import importlib.util
+import re
 import sys
 from pathlib import Path
 
@@ -19,7 +21,9 @@ import shapely
 
 from gridflow.config import load_config
 
-ROOT = Path(__file__).resolve().parents[1]
+from ..sample_ids import MANIFEST, sample_ids
+
+ROOT = Path(__file__).resolve().parents[2]
 GPKG = ROOT / "sample_gis" / "millbrook.gpkg"
 CONFIG = ROOT / "sample_gis" / "millbrook.toml"
 LAYERS = ["WaterMains", "Hydrants", "SystemValves", "PRVStations", "Tanks", "PumpStations",
@@ -29,30 +33,30 @@ TABLES = {"FlowTestOutlets"}  # attribute tables, no geometry
 FT = 0.3048
 FT_PER_PSI = 2.3067  # 1 psi = 2.3067 ft of water (standard definitions; checked with pint)
 
-# planted defects and weak spots (sample_gis/README.md)
-DUP_SAME_ID = "WM-11430"
-DUP_OTHER_ID = ("WM-10377", "WM-10378")
-NO_DIAMETER = "WM-12187"
-ZERO_LENGTH = "WM-11244"
-SNAPPED = ["WM-11486", "WM-11883", "WM-12108", "WM-11570", "WM-12536", "WM-11082"]
-UNSNAPPED = ["WM-12496", "WM-12504"]
-TEE_PARENTS = ["WM-12446", "WM-11567", "WM-12334"]
-TEE_SPURS = ["WM-12447", "WM-11569", "WM-12338"]
-CROSSING = ("WM-10997", "WM-10993")
-WILLOW_RIDGE = ["WM-12716", "WM-12717", "WM-12718", "WM-12719", "WM-12727", "WM-12728",
-                "WM-12731", "WM-12802", "WM-12803", "WM-12806", "WM-12807", "WM-12808",
-                "WM-12809", "WM-12812", "WM-12800", "WM-12804", "WM-12810", "WM-12720"]
-WILLOW_HYDRANTS = ["HYD-1428", "HYD-1430", "HYD-1446"]
-CLOSED_CUTOFF_VALVE, CLOSED_CUTOFF_MAIN = "V-20308", "WM-12347"
-FAR_HYDRANT = "HYD-1413"
-FAR_METER = "300001"
-CREAMERY_4IN, CREAMERY_METER, CREAMERY_HYDRANT = "WM-10943", "301638", "HYD-1126"
-QUARRY_MAINS = ["WM-12664", "WM-12662", "WM-12799", "WM-12798", "WM-12814", "WM-12813",
-                "WM-12816", "WM-12815"]
-QUARRY_HYDRANTS = ["HYD-1445", "HYD-1447", "HYD-1449", "HYD-1448"]
-BOUNDARY_VALVES = ["V-20049", "V-20061", "V-20067", "V-20069", "V-20079", "V-20175", "V-20176",
-                   "V-20280", "V-20281"]
-PUMP_MAIN = "WM-11731"
+# planted defects and weak spots: the generator's manifest (sample_gis/manifest.json)
+ID = sample_ids()
+DUP_SAME_ID = ID["duplicate_same_id"]
+DUP_OTHER_ID = tuple(ID["duplicate_other_id"])
+NO_DIAMETER = ID["no_diameter"]
+ZERO_LENGTH = ID["zero_length"]
+SNAPPED = ID["snapped_within_tolerance"]
+UNSNAPPED = ID["unsnapped_beyond_tolerance"]
+TEE_PARENTS = ID["tee_into_mid_span"]
+TEE_SPURS = ID["tee_spurs"]
+CROSSING = tuple(ID["crossing_without_junction"])
+WILLOW_RIDGE = ID["disconnected_subdivision"]
+WILLOW_HYDRANTS = ID["willow_hydrants"]
+CLOSED_CUTOFF_VALVE, CLOSED_CUTOFF_MAIN = ID["closed_valve_cutoff"], ID["closed_valve_cutoff_main"]
+FAR_HYDRANT = ID["far_hydrant"]
+FAR_METER = ID["far_meter"]
+CREAMERY_4IN, CREAMERY_METER, CREAMERY_HYDRANT = (ID["creamery_4in_main"], ID["creamery_meter"],
+                                                  ID["creamery_hydrant"])
+QUARRY_MAINS = ID["quarry_mains"]
+QUARRY_HYDRANTS = ID["quarry_hydrants"]
+BOUNDARY_VALVES = ID["boundary_valves"]
+PUMP_MAIN = ID["pump_main"]
+#: manifest entries the README lists only in part or by count
+README_BY_COUNT = {"abandoned", "flow_tests"}
 
 
 def _generator():
@@ -102,6 +106,23 @@ def test_committed_gpkg_matches_generator(tmp_path):
         assert list(shapely.to_wkb(new.geometry.values, include_srid=False)) == \
             list(shapely.to_wkb(old.geometry.values, include_srid=False)), name
         assert new.crs == old.crs
+    assert (tmp_path / "manifest.json").read_text(encoding="utf-8") == \
+        MANIFEST.read_text(encoding="utf-8")
+
+
+def test_readme_names_every_planted_id():
+    readme = (ROOT / "sample_gis" / "README.md").read_text(encoding="utf-8")
+    for key, value in ID.items():
+        if key in README_BY_COUNT:
+            continue
+        ids = value if isinstance(value, list) else [value]
+        missing = [i for i in ids if f"`{i}`" not in readme]
+        assert not missing, f"{key}: sample_gis/README.md does not name {missing}"
+    # listed by count; any flow test the README names is one of the manifest's
+    assert f"{len(ID['abandoned'])} mains with `LIFECYCLE = ABD`" in readme
+    assert f"hold {len(ID['flow_tests'])} invented NFPA 291 flow tests" in readme
+    named = set(re.findall(r"`(FT-\d{4}-\d{3})`", readme))
+    assert named and named <= set(ID["flow_tests"]), named - set(ID["flow_tests"])
 
 
 def test_layers_sizes_and_crs(gis):
@@ -353,7 +374,7 @@ def test_config_parses_and_matches_data(gis):
 
 # ---- invented field flow tests -------------------------------------------------------------
 
-BAD_FLOW_TEST = "FT-2023-116"  # residual above static (sample_gis/README.md)
+BAD_FLOW_TEST = ID["bad_flow_test"]  # residual above static
 
 
 def test_flow_tests_reference_hydrants_and_outlets(gis):

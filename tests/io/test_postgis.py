@@ -18,7 +18,7 @@ from click.testing import CliRunner
 from gridflow.cli.main import cli
 from tests import pg_server
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 SAMPLE = ROOT / "sample_gis"
 
 

@@ -19,9 +19,11 @@ from click.testing import CliRunner
 
 from gridflow.cli.main import cli
 
-ROOT = Path(__file__).resolve().parents[1]
+from ..sample_ids import sample_ids
+
+ROOT = Path(__file__).resolve().parents[2]
 SAMPLE = ROOT / "sample_gis"
-BAD_TEST = "FT-2023-116"  # residual above static (sample_gis/README.md)
+BAD_TEST = sample_ids()["bad_flow_test"]  # residual above static (sample_gis/manifest.json)
 SAMPLE_TRUE_C = 55.0  # the generator's invented truth for cast iron before 1930
 
 

@@ -25,7 +25,7 @@ from gridflow.network import (
 from gridflow.topology import build_network
 from gridflow.topology.zones import supplied_nodes
 
-from .gis_helpers import CRS, ML, L, P, config, layer, pipe, source_layer, source_rows
+from ..gis_helpers import CRS, ML, L, P, config, layer, pipe, source_layer, source_rows
 
 HYD = {"input": "gis", "layer": "hydrants", "id": "HYD_ID"}
 VALVES = {"input": "gis", "layer": "valves", "id": "VALVE_ID",

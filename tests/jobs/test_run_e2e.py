@@ -16,9 +16,12 @@ from click.testing import CliRunner
 from gridflow.cli.main import cli
 from gridflow.units import FT, US_GALLON
 
-ROOT = Path(__file__).resolve().parents[1]
+from ..sample_ids import sample_ids
+
+ROOT = Path(__file__).resolve().parents[2]
 SAMPLE = ROOT / "sample_gis"
 GPM = US_GALLON / 60
+ID = sample_ids()  # planted defects and weak spots (sample_gis/manifest.json)
 
 
 def _config(tmp_path: Path, *, fireflow: bool) -> Path:
@@ -157,15 +160,15 @@ def test_planted_problems_appear(run_output):
     out, _ = run_output
     f = pyogrio.read_dataframe(out, layer="findings", read_geometry=False)
     ids = set(zip(f["kind"], f["feature_id"]))
-    assert ("diameter_missing", "WM-12187") in ids
-    assert any(k == "hydrant_unattached" and i == "HYD-1413" for k, i in ids)
-    assert any(k == "meter_unallocated" and i == "300001" for k, i in ids)
+    assert ("diameter_missing", ID["no_diameter"]) in ids
+    assert any(k == "hydrant_unattached" and i == ID["far_hydrant"] for k, i in ids)
+    assert any(k == "meter_unallocated" and i == ID["far_meter"] for k, i in ids)
     assert (f["kind"] == "disconnected_part").any()
     assert (f["kind"] == "duplicate_dropped").sum() >= 2
     # the old 4 in cast-iron main loses too much head in every scenario (sample_gis/README.md)
     for s in SCENARIOS:
         pipes = pyogrio.read_dataframe(out, layer=f"pipes_{s}", read_geometry=False)
-        assert pipes.loc[pipes["pipe_id"] == "WM-10943", "high_headloss"].item() == 1
+        assert pipes.loc[pipes["pipe_id"] == ID["creamery_4in_main"], "high_headloss"].item() == 1
         nodes = pyogrio.read_dataframe(out, layer=f"nodes_{s}", read_geometry=False)
         assert nodes["low_pressure"].sum() >= 10  # the hilltop near the tank's grade
         assert (nodes["supplied"] == 0).sum() > 0  # the disconnected subdivision
