@@ -29,6 +29,10 @@ rounding of the heads makes) and the head residual within ``max(head_tolerance,
 PRECISION_FACTOR * eps * max|H|)``; ``stalled`` (not converged, naming the worst node and link)
 when the plateau lies within ``STALL_SPAN`` times those bounds; farther above them the
 residuals are still on their way (slow progress is not a plateau) and iterations go on.
+
+Size: about 500 lines on purpose: the Newton iteration, its line search, the status rounds and
+the result they build share the system's kept state (pattern, ordering, factorization); what
+stands alone is already in ``assembly``, ``status``, ``regulating``, ``pdd`` and ``results``.
 """
 
 from __future__ import annotations

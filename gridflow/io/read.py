@@ -9,6 +9,10 @@ reprojected to one projected working CRS.
 Input files are opened read-only (pyogrio never opens a data source for update when reading),
 and GeoPackages are held under a SQLite read lock while they are read (:func:`shared_locks`), so
 an editor's save cannot land half-way through a read.
+
+Size: about 500 lines on purpose: inspection, the choice of working CRS and the bulk read are
+one pass over the same layers and schemas; what stands alone is in ``codes.py`` (coded values),
+``validate.py`` (value ranges), ``dem.py`` and ``paths.py``.
 """
 
 from __future__ import annotations
