@@ -22,7 +22,7 @@ import pytest
 import tomli_w
 from click.testing import CliRunner
 
-from gridflow.cli.main import _register, cli
+from gridflow.cli.main import cli
 from gridflow.config.layers import ROLE_FIELDS
 from tests.bad_input import generated as g
 from tests.bad_input.harness import previous_output
@@ -95,7 +95,6 @@ def run_generated(c: g.GenCase, folder: Path) -> tuple[int, str, Path]:
     side = {p: _digest(p) for p in target.parent.iterdir()
             if p.is_file() and not p.is_symlink()} if target.parent.is_dir() else {}
     inputs = _files(folder)
-    _register()
     old = signal.signal(signal.SIGALRM, _alarm)
     signal.alarm(60)
     try:
