@@ -92,7 +92,7 @@ def attach_points(ctx: Context, sn: Snapped) -> Attached:
             up[e1], down[e1] = k, sn.lab_e[li[e1]]
             end_key[li[e1]] = k
         devices.append(Device(points=pl, line=li, up=up, down=down,
-                              reversed=_against(ctx, pl, sn.geoms[li], s, glen[li])))
+                              reversed=_against(ctx, pl, sn.geoms[li], s, glen[li]), xy=pxy))
     order = np.lexsort((ev_s, ev_line))
     return Attached(key_xy=np.vstack(keys.xy), n_clusters=len(sn.cxy),
                     ev_line=ev_line[order].astype(np.int64), ev_s=ev_s[order],

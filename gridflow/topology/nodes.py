@@ -72,17 +72,27 @@ def number_nodes(ctx: Context, sn: Snapped, at: Attached, sp: Split) -> NodeTabl
         kind[i], fixed_head[i], node_id[i] = fk, head, fid
         if np.isfinite(el):
             elev[i] = el
-    taken = set(node_id[node_id != None].tolist())  # noqa: E711
     gen = node_id == None  # noqa: E711
-    prefix = "N"
-    while any(f"{prefix}{i + 1}" in taken for i in range(int(gen.sum()))):
-        prefix += "N"
-    node_id[gen] = [f"{prefix}{i + 1}" for i in range(int(gen.sum()))]
+    node_id[gen] = _generated_ids(node_id[~gen], int(gen.sum()))
     standin = np.zeros(nn, bool)
     standin[idx_of_key[sorted(standin_keys)]] = True
     return NodeTable(keys=keys, idx_of_key=idx_of_key, xy=node_xy,
                      node_id=unique_ids(node_id), kind=kind, fixed_head_m=fixed_head,
                      elevation_m=elev, standin=standin, zone=zone)
+
+
+def _generated_ids(taken: np.ndarray, n: int) -> np.ndarray:
+    """``N1`` ... ``Nn``, the prefix lengthened (``NN1`` ...) until no id is taken."""
+    import pandas as pd
+
+    num = (np.arange(n) + 1).astype(str).astype(object)
+    taken_ix = pd.Index(np.asarray(taken, dtype=object).astype(str), dtype=object)
+    prefix = "N"
+    while True:
+        ids = prefix + num if n else num
+        if not n or not pd.Index(ids, dtype=object).isin(taken_ix).any():
+            return ids
+        prefix += "N"
 
 
 def _levels_are_elevations(ctx: Context, role: str, frame) -> np.ndarray:
@@ -205,7 +215,10 @@ def unique_ids(ids: np.ndarray) -> np.ndarray:
     """Ids made unique with a '#k' suffix on repeats (repeats across layers)."""
     import pandas as pd
 
-    s = pd.Series(ids.astype(str))
+    text = ids.astype(str)
+    if pd.Index(text, dtype=object).is_unique:  # the usual case: one hash pass
+        return ids.astype(object)
+    s = pd.Series(text, dtype=object)
     k = s.groupby(s, sort=False).cumcount().to_numpy()
     if (k > 0).any():
         out = s.to_numpy(dtype=object)
