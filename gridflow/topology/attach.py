@@ -152,7 +152,7 @@ def _nearest(tree, geoms, pts, sd):
     """(point idx, line idx, distance) of the nearest main within ``sd``; and all distances."""
     if len(pts) == 0 or len(geoms) == 0:
         return (np.zeros(0, int),) * 2 + (np.zeros(0),), np.full(len(pts), np.inf)
-    pts = shapely.force_2d(pts)
+    pts = shapely.force_2d(pts) if shapely.has_z(pts).any() else pts
     pi, li, dist = nearest_lines(tree, geoms, pts, sd)
     full = np.full(len(pts), np.inf)
     full[pi] = dist

@@ -16,16 +16,19 @@ import shapely
 
 __all__ = ["nearest_lines"]
 
-#: first search radius [m]; doubled for the points with no line within it
-FIRST_RADIUS_M = 10.0
-#: radius doublings before an unbounded search hands the rest to ``query_nearest``
-MAX_ROUNDS = 7
+#: points measured with ``query_nearest`` to choose the first search radius
+SAMPLE = 512
+#: share of the sampled points the first radius reaches
+SAMPLE_QUANTILE = 0.9
+#: largest radius [m] searched by bounded queries; ``query_nearest`` answers the points left
+#: (a bounded query's pairs grow with the square of the radius)
+MAX_RADIUS_M = 100.0
 
 
 def nearest_lines(tree: shapely.STRtree, lines: np.ndarray, pts: np.ndarray,
                   max_distance: float | None = None, *,
-                  first_radius: float = FIRST_RADIUS_M) -> tuple[np.ndarray, np.ndarray,
-                                                                 np.ndarray]:
+                  first_radius: float | None = None) -> tuple[np.ndarray, np.ndarray,
+                                                              np.ndarray]:
     """Each point's nearest line, as ``tree.query_nearest(pts, max_distance=max_distance,
     return_distance=True, all_matches=False)`` gives it.
 
@@ -37,8 +40,9 @@ def nearest_lines(tree: shapely.STRtree, lines: np.ndarray, pts: np.ndarray,
     pts : ndarray of Point
     max_distance : float, optional
         Farthest distance [m] searched (inclusive); None: no limit.
-    first_radius : float
-        First search radius [m].
+    first_radius : float, optional
+        First search radius [m]; default: reaching 90 % of an evenly spaced sample of the
+        points (their nearest distances measured with ``query_nearest``).
 
     Returns
     -------
@@ -60,16 +64,11 @@ def nearest_lines(tree: shapely.STRtree, lines: np.ndarray, pts: np.ndarray,
         return q[ok].astype(np.int64), t[ok].astype(np.int64), d[ok]
     got_p, got_l, got_d = [], [], []
     todo = np.arange(n)
-    r = first_radius if max_distance is None else min(first_radius, max_distance)
-    rounds = 0
+    if first_radius is None:
+        first_radius = _first_radius(tree, pts, max_distance)
+    limit = np.inf if max_distance is None else max_distance
+    r = min(first_radius, MAX_RADIUS_M, limit)
     while todo.size:
-        last = max_distance is not None and r >= max_distance
-        if max_distance is None and rounds >= MAX_ROUNDS:
-            (q, t), d = tree.query_nearest(pts[todo], return_distance=True, all_matches=False)
-            got_p.append(todo[q])
-            got_l.append(t)
-            got_d.append(d)
-            break
         q, t = tree.query(pts[todo], predicate="dwithin", distance=r)
         if q.size:
             d = shapely.distance(pts[todo[q]], lines[t])
@@ -94,13 +93,29 @@ def nearest_lines(tree: shapely.STRtree, lines: np.ndarray, pts: np.ndarray,
             found = np.zeros(todo.size, bool)
             found[q] = True
             todo = todo[~found]
-        if last:
+        if r >= limit or not todo.size:
             break
-        r = 2.0 * r if max_distance is None else min(2.0 * r, max_distance)
-        rounds += 1
+        if r >= MAX_RADIUS_M:  # the few far points: one nearest search each
+            (q, t), d = tree.query_nearest(pts[todo], max_distance=max_distance,
+                                           return_distance=True, all_matches=False)
+            got_p.append(todo[q])
+            got_l.append(t)
+            got_d.append(d)
+            break
+        r = min(max(2.0 * r, 1.0), MAX_RADIUS_M, limit)
     if not got_p:
         return np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0)
     p = np.concatenate(got_p).astype(np.int64)
     order = np.argsort(p, kind="stable")
     return (p[order], np.concatenate(got_l).astype(np.int64)[order],
             np.concatenate(got_d).astype(float)[order])
+
+
+def _first_radius(tree: shapely.STRtree, pts: np.ndarray, max_distance: float | None) -> float:
+    """A radius [m] that reaches the nearest line of most points (from a sample)."""
+    sample = pts[:: max(1, len(pts) // SAMPLE)]
+    (_, _), d = tree.query_nearest(sample, max_distance=max_distance, return_distance=True,
+                                   all_matches=False)
+    if len(d) == 0:
+        return max_distance if max_distance is not None else 1.0
+    return max(float(np.quantile(d, SAMPLE_QUANTILE)) * 1.01, 1e-3)

@@ -85,14 +85,18 @@ def _generated_ids(taken: np.ndarray, n: int) -> np.ndarray:
     """``N1`` ... ``Nn``, the prefix lengthened (``NN1`` ...) until no id is taken."""
     import pandas as pd
 
-    num = (np.arange(n) + 1).astype(str).astype(object)
-    taken_ix = pd.Index(np.asarray(taken, dtype=object).astype(str), dtype=object)
-    prefix = "N"
-    while True:
-        ids = prefix + num if n else num
-        if not n or not pd.Index(ids, dtype=object).isin(taken_ix).any():
-            return ids
-        prefix += "N"
+    # a taken id collides with N...Nk (k in 1..n) when it is L letters N then k
+    m = pd.Series(np.asarray(taken, dtype=object).astype(str), dtype=object).str.extract(
+        r"^(N+)([1-9][0-9]*)\Z")
+    m = m[m[0].notna()]
+    clash = m[0].str.len().to_numpy()[m[1].str.len().to_numpy() <= len(str(n))]
+    num = m[1].to_numpy()[m[1].str.len().to_numpy() <= len(str(n))]
+    clash = clash[np.array([int(x) <= n for x in num], dtype=bool)] if len(num) else clash
+    width = 1
+    while width in set(clash.tolist()):
+        width += 1
+    prefix = "N" * width
+    return np.array([f"{prefix}{i}" for i in range(1, n + 1)], dtype=object)
 
 
 def _levels_are_elevations(ctx: Context, role: str, frame) -> np.ndarray:
@@ -215,7 +219,9 @@ def unique_ids(ids: np.ndarray) -> np.ndarray:
     """Ids made unique with a '#k' suffix on repeats (repeats across layers)."""
     import pandas as pd
 
-    text = ids.astype(str)
+    ids = np.asarray(ids)
+    text = (ids if ids.dtype == object and pd.api.types.infer_dtype(ids, skipna=False)
+            == "string" else ids.astype(str).astype(object))
     if pd.Index(text, dtype=object).is_unique:  # the usual case: one hash pass
         return ids.astype(object)
     s = pd.Series(text, dtype=object)
