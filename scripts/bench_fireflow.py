@@ -3,8 +3,11 @@
 For each size: hydrants per second per core (serial run), the mean cost of a hydrant in numeric
 factorizations of the same matrix (time per hydrant / time of one numeric factorization of the
 network's head matrix, measured in the same run), factorizations and Newton iterations per
-hydrant, and the speed-up with 2 local worker processes. Targets: <= 3 factorizations per
-hydrant; >= 1.8x with 2 workers. Hydrant nodes are picked at random (fixed seed).
+hydrant, and the speed-ups with 2 local worker processes and with a Dask ``LocalCluster`` of 2
+single-threaded worker processes on loopback (cluster start-up not timed; connecting, the
+scatter of the problem and all tasks are). Targets: <= 1 factorization-equivalent per hydrant;
+>= 1.8x with 2 workers, local processes and Dask alike. Hydrant nodes are picked at random
+(fixed seed). Hydrants carry the default hydrant path (lateral and hydrant loss).
 
 Usage: python scripts/bench_fireflow.py [--sizes 10000:1000,100000:10000] [--sample N]
 ``--sample N`` times only the first N hydrants of each size (the full 100k sweep takes long on
@@ -77,7 +80,15 @@ def one(n_pipes: int, n_hydrants: int, sample: int | None) -> dict:
     t0 = time.perf_counter()
     two = sweep(net, base, hyd, fire, crit, options=opts, workers=2)
     t2 = time.perf_counter() - t0
-    same = serial.equals(two)
+    from distributed import LocalCluster
+
+    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
+                      dashboard_address=None) as cluster:
+        t0 = time.perf_counter()
+        dask = sweep(net, base, hyd, fire, crit, options=opts,
+                     scheduler=cluster.scheduler_address)
+        td = time.perf_counter() - t0
+    same = serial.equals(two) and serial.equals(dask)
     n = len(hyd)
     s = serial.attrs["summary"]
     return {"pipes": net.n_links, "hydrants": n, "serial_s": t1, "two_s": t2,
@@ -85,8 +96,11 @@ def one(n_pipes: int, n_hydrants: int, sample: int | None) -> dict:
             "cost_in_factorizations": t1 / n / t_fact,
             "factorizations_per_hydrant": s["factorizations"] / n,
             "iterations_per_hydrant": s["iterations"] / n, "speedup_2": t1 / t2,
-            "identical": same, "fallback": s["fallback"], "limited_by_node": s["limited_by_node"],
-            "limits": serial["limited_by"].str.split().str[0].value_counts().to_dict()}
+            "dask_s": td, "speedup_dask": t1 / td, "batches_2": two.attrs["summary"]["batches"],
+            "batches_dask": dask.attrs["summary"]["batches"],
+            "identical": same, "fallback": s["fallback"],
+            "limited_by_node": s["limited_by_node_pressure"],
+            "limits": serial["limited_by"].value_counts().to_dict()}
 
 
 def main() -> None:
@@ -94,19 +108,21 @@ def main() -> None:
     ap.add_argument("--sizes", default="10000:1000,100000:10000")
     ap.add_argument("--sample", type=int, default=None)
     a = ap.parse_args()
-    print(f"{'pipes':>7} {'hydr':>5} {'serial s':>8} {'2-wkr s':>8} {'hyd/s/core':>10} "
-          f"{'factor ms':>9} {'cost/fact':>9} {'facts/hyd':>9} {'iter/hyd':>8} {'x2':>5} "
-          f"{'same':>5} {'node-lim':>8}")
+    print(f"{'pipes':>7} {'hydr':>5} {'serial s':>8} {'2-wkr s':>8} {'dask s':>7} "
+          f"{'hyd/s/core':>10} {'factor ms':>9} {'fact-eq/hyd':>11} {'facts/hyd':>9} "
+          f"{'iter/hyd':>8} {'x2':>5} {'x2 dask':>7} {'same':>5} {'node-lim':>8}")
     for item in a.sizes.split(","):
         p, h = (int(v) for v in item.split(":"))
         d = one(p, h, a.sample)
         print(f"{d['pipes']:>7} {d['hydrants']:>5} {d['serial_s']:>8.2f} {d['two_s']:>8.2f} "
-              f"{d['per_core']:>10.1f} {d['factor_ms']:>9.3f} "
-              f"{d['cost_in_factorizations']:>9.1f} {d['factorizations_per_hydrant']:>9.2f} "
+              f"{d['dask_s']:>7.2f} {d['per_core']:>10.1f} {d['factor_ms']:>9.3f} "
+              f"{d['cost_in_factorizations']:>11.1f} {d['factorizations_per_hydrant']:>9.2f} "
               f"{d['iterations_per_hydrant']:>8.2f} {d['speedup_2']:>5.2f} "
-              f"{d['identical']!s:>5} {d['limited_by_node']:>8}", flush=True)
+              f"{d['speedup_dask']:>7.2f} {d['identical']!s:>5} {d['limited_by_node']:>8}",
+              flush=True)
         print(f"        limits: {d['limits']}; hydrants on the full-solve route: "
-              f"{d['fallback']}", flush=True)
+              f"{d['fallback']}; batches: {d['batches_2']} (2 processes), {d['batches_dask']} "
+              "(Dask)", flush=True)
 
 
 if __name__ == "__main__":

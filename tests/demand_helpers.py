@@ -109,8 +109,8 @@ def make_clean(meters: gpd.GeoDataFrame | None = None, *, link_changes: dict | N
         roughness=np.where(kind == LINK_PIPE, 130.0, np.nan),
         status=[links[k][4] for k in link_ids],
         valve_type=np.where(kind == LINK_VALVE, VALVE_ISOLATION, VALVE_NONE),
-        pump_a=np.where(pump, 40.0, np.nan), pump_b=np.where(pump, 1000.0, np.nan),
-        pump_c=np.where(pump, 2.0, np.nan),
+        pump_h0=np.where(pump, 40.0, np.nan), pump_h1=np.where(pump, 0.0, np.nan),
+        pump_h2=np.where(pump, -1000.0, np.nan),
     )
     nodes = gpd.GeoDataFrame(
         {"node_id": node_ids, "kind": [("junction", "source", "tank")[NODES[k][2]]

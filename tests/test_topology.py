@@ -17,9 +17,9 @@ from gridflow.findings import Findings
 from gridflow.network import (
     LINK_PUMP,
     LINK_VALVE,
+    STATUS_CHECK,
     STATUS_CLOSED,
-    STATUS_CV,
-    VALVE_PRV,
+    VALVE_PRESSURE_REDUCING,
     Network,
 )
 from gridflow.topology import build_network
@@ -160,7 +160,7 @@ def test_zone_names_from_zone_field_majority(tmp_path):
     cn = build_network(cfg, Findings())
     net = cn.network
     v = list(net.link_id).index("V1")
-    assert net.valve_type[v] == VALVE_PRV
+    assert net.valve_type[v] == VALVE_PRESSURE_REDUCING
     assert net.valve_setting[v] == pytest.approx(50 * 0.70307, rel=1e-4)  # 1 psi = 0.70307 m
     # the PRV sits at B's first end (within the tolerance), between the node and B
     assert net.node_id[net.from_idx[v]] == net.node_id[net.to_idx[0]]
@@ -181,11 +181,13 @@ def test_check_valve_and_pump(tmp_path):
     cn = build_network(cfg, Findings())
     net = cn.network
     ids = list(net.link_id)
-    assert net.status[ids.index("CV1")] == STATUS_CV
+    assert net.status[ids.index("CV1")] == STATUS_CHECK
     p = ids.index("PU1")
     assert net.link_kind[p] == LINK_PUMP
-    # one design point: shut-off head 4/3 of the design head (common practice)
-    assert net.pump_a[p] == pytest.approx(4 / 3 * 150 * 0.3048)
+    # one design point without a shut-off head: the configured ratio (default 1.25, common
+    # practice) times the design head, and a warning that it was assumed
+    assert net.pump_h0[p] == pytest.approx(1.25 * 150 * 0.3048)
+    assert net.pump_h1[p] == 0.0
     assert net.from_idx[p] == net.to_idx[ids.index("C.1")]
 
 

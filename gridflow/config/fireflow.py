@@ -14,11 +14,17 @@ from gridflow.config.schema import (
     quantity,
     table_of,
 )
-from gridflow.units import INCH, M_HEAD_PER_PSI, US_GALLON
+from gridflow.units import GPM as _GPM
+from gridflow.units import INCH, M_HEAD_PER_PSI
 
 __all__ = ["FireflowSection", "ReportSection"]
 
-GPM = US_GALLON / 60.0
+GPM = _GPM
+
+#: hydrant body minor-loss K on a 6 in inlet: 2.5 psi at 500 gpm, the largest friction loss
+#: AWWA C502 allows through a dry-barrel hydrant's pumper nozzle (from memory), as
+#: K = h / (v^2 / 2g) with v = 500 gpm over a 6 in bore: 11.5
+HYDRANT_K = 11.5
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -32,8 +38,10 @@ class FireflowSection:
                                 "system_minimum")
     system_minimum: float = opt(20 * M_HEAD_PER_PSI, parse=quantity("pressure"),
                                 doc="minimum pressure elsewhere in the zone during fire flow")
-    max_velocity: float = opt(0.0, parse=quantity("velocity", minimum=0.0),
-                              doc="optional pipe velocity limit during fire flow ('0 m/s': off)")
+    velocity_limit: bool = opt(False, parse=P_BOOL,
+                               doc="also reduce the draw so no main exceeds "
+                                   "criteria.max_velocity_fire (off: such mains are only "
+                                   "flagged)")
     pressure_driven: bool = opt(False, parse=P_BOOL,
                                 doc="pressure-driven demand at the other nodes during fire flow")
     default_required: float = opt(1500 * GPM, parse=quantity("flow", minimum=0.0),
@@ -44,17 +52,22 @@ class FireflowSection:
                                      doc="required fire flow by land-use code")
     required_by_zone: dict = opt(parse=table_of(quantity("flow", minimum=0.0)),
                                  default_factory=dict, doc="required fire flow by zone")
-    lateral_length: float = opt(0.0, parse=quantity("length", minimum=0.0),
-                                doc="default hydrant lateral length ('0 m': no lateral)")
+    lateral_length: float = opt(6.0, parse=quantity("length", minimum=0.0),
+                                doc="hydrant lateral length where the hydrant has none "
+                                    "('0 m' with hydrant_k 0: no lateral)")
     lateral_diameter: float = opt(6 * INCH, parse=quantity("length", minimum=0.0),
-                                  doc="default hydrant lateral diameter")
+                                  doc="hydrant lateral diameter where the hydrant has none")
     lateral_c: float = opt(120.0, parse=P_FLOAT,
                            doc="Hazen-Williams C of hydrant laterals (Hazen-Williams runs)")
     lateral_roughness: float = opt(0.15e-3, parse=quantity("length", minimum=0.0),
                                    doc="absolute roughness of hydrant laterals (Darcy-Weisbach "
                                        "runs), e.g. '0.15 mm'")
-    hydrant_k: float = opt(0.0, parse=P_FLOAT, doc="minor-loss K of hydrant and lateral fittings")
-    batch_size: int = opt(100, parse=P_INT, doc="hydrants per parallel task")
+    hydrant_k: float = opt(HYDRANT_K, parse=P_FLOAT,
+                           doc="minor-loss K of the hydrant body (and lateral fittings), "
+                               "referred to the lateral's diameter")
+    batch_size: int = opt(100, parse=P_INT,
+                          doc="largest number of hydrants per parallel task (smaller where "
+                              "needed to give every worker at least 4 tasks)")
     progress_every: int = opt(10, parse=P_INT,
                               doc="log progress to the 'gridflow' logger every N batches")
 

@@ -60,7 +60,7 @@ from gridflow.config.schema import (
     table_of,
 )
 from gridflow.errors import ConfigError
-from gridflow.units import DIAMETER, FLOW, HEAD, LENGTH, PRESSURE
+from gridflow.units import DIAMETER, FLOW, HEAD, INCH, LENGTH, PRESSURE
 
 __all__ = ["LayerSection", "LayersSection", "ElevationSection", "RoughnessSection",
            "RoughnessRule", "ROLE_FIELDS", "ROLES", "NUMERIC_FIELDS", "TEXT_FIELDS",
@@ -77,8 +77,8 @@ ROLE_FIELDS: dict[str, tuple[str, ...]] = {
     "valves": ("type", "status", "setting", "diameter", "elevation", "minor_loss_k",
                "direction"),
     "tanks": ("bottom_elevation*", "level*", "max_level", "diameter", "name"),
-    "pumps": ("design_flow", "design_head", "flow_1", "head_1", "flow_2", "head_2", "flow_3",
-              "head_3", "speed", "status", "name", "direction"),
+    "pumps": ("design_flow", "design_head", "shut_off_head", "flow_1", "head_1", "flow_2",
+              "head_2", "flow_3", "head_3", "speed", "status", "name", "direction"),
     "sources": ("head*", "elevation", "name"),
     "meters": ("consumption*", "category", "zone"),
 }
@@ -96,8 +96,9 @@ NUMERIC_FIELDS: dict[str, dict[str, dict[str, float] | None]] = {
                "minor_loss_k": None},
     "tanks": {"bottom_elevation": HEAD, "level": LENGTH, "max_level": LENGTH,
               "diameter": DIAMETER},
-    "pumps": {"design_flow": FLOW, "design_head": HEAD, "flow_1": FLOW, "head_1": HEAD,
-              "flow_2": FLOW, "head_2": HEAD, "flow_3": FLOW, "head_3": HEAD, "speed": None},
+    "pumps": {"design_flow": FLOW, "design_head": HEAD, "shut_off_head": HEAD, "flow_1": FLOW,
+              "head_1": HEAD, "flow_2": FLOW, "head_2": HEAD, "flow_3": FLOW, "head_3": HEAD,
+              "speed": None},
     "sources": {"head": HEAD, "elevation": HEAD},
     "meters": {"consumption": None},
 }
@@ -326,7 +327,7 @@ def _check_section(role: str, sec: LayerSection, where: str, inputs: dict[str, s
     if sec.default_diameter is not None and role != "pipes":
         raise ConfigError(f"config key {where}.default_diameter applies only to pipes",
                           key=f"{where}.default_diameter")
-    if sec.default_diameter is not None and not 0 < sec.default_diameter <= 120 * 0.0254:
+    if sec.default_diameter is not None and not 0 < sec.default_diameter <= 120 * INCH:
         raise ConfigError(f"config key {where}.default_diameter must be above 0 and at most "
                           "120 in", key=f"{where}.default_diameter")
     for r, table in sec.codes.items():

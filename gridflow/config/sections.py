@@ -9,12 +9,11 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from gridflow.config.schema import P_BOOL, P_FLOAT, P_INT, P_STR, one_of, opt, quantity
-from gridflow.units import M_HEAD_PER_PSI
+from gridflow.units import FT, M_HEAD_PER_PSI
 
 __all__ = ["RunSection", "CriteriaSection", "SolverSection"]
 
 PSI = M_HEAD_PER_PSI
-FT = 0.3048
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -48,7 +47,9 @@ class CriteriaSection:
     max_velocity: float = opt(5 * FT, parse=quantity("velocity", minimum=0.0),
                               doc="maximum velocity at normal demand (high_velocity flag)")
     max_velocity_fire: float = opt(10 * FT, parse=quantity("velocity", minimum=0.0),
-                                   doc="maximum velocity under fire flow")
+                                   doc="maximum velocity under fire flow: the fastest main "
+                                       "of each fire draw is flagged above it (a limit on the "
+                                       "draw with fireflow.velocity_limit)")
     max_unit_headloss: float = opt(0.010, parse=quantity("ratio", minimum=0.0),
                                    doc="maximum unit head loss (high_headloss flag), "
                                        "e.g. '10 ft/kft'")
@@ -69,3 +70,14 @@ class SolverSection:
                                   doc="pressure below which a node delivers nothing")
     pdd_required_pressure: float = opt(20 * PSI, parse=quantity("pressure"),
                                        doc="pressure at which a node delivers its full demand")
+    max_status_rounds: int = opt(30, parse=P_INT,
+                                 doc="rounds of pump, check-valve and pressure-reducing-valve "
+                                     "status changes allowed")
+    flow_relative_tolerance: float = opt(
+        1e-9, parse=P_FLOAT,
+        doc="mass tolerance relative to the largest link flow or total demand (the absolute "
+            "flow_tolerance is the floor)")
+    pump_shutoff_ratio: float = opt(
+        1.25, parse=P_FLOAT,
+        doc="shut-off head / design head assumed for a pump given by one design point without "
+            "a shut_off_head field (1.25: common practice for radial centrifugal pumps)")

@@ -13,6 +13,7 @@ Backends, chosen by measurement (DEVELOPERS.md, ``scripts/bench_solver.py``):
 
 from __future__ import annotations
 
+import threading
 from typing import Literal
 
 import numpy as np
@@ -62,8 +63,10 @@ class FixedPatternSPD:
         self.off_pos = inverse[n:]
         #: no two links share an off-diagonal entry (no parallel links): plain assignment works
         self.unique_off = len(np.unique(self.off_pos)) == len(self.off_pos)
+        # factorizations per (slot, thread): systems sharing this pattern may be solved by
+        # several threads at once (e.g. Dask workers in one process); each keeps its own
         self._solvers: dict = {}
-        self._upper: sp.csc_matrix | None = None
+        self._upper: dict[int, sp.csc_matrix] = {}
         self.factorizations = 0
 
     def matrix(self, data: np.ndarray) -> sp.csc_matrix:
@@ -77,18 +80,21 @@ class FixedPatternSPD:
         side by side (e.g. a base state's, kept for many nearby solves, and a working one).
         """
         self.factorizations += 1
-        solver = self._solvers.get(slot)
+        tid = threading.get_ident()
+        key = (slot, tid)
+        solver = self._solvers.get(key)
         if self.backend == "qdldl":
             import qdldl
 
-            # one CSC object, its values overwritten: qdldl reads the values on each update
-            m = self._upper
+            # one CSC object per thread, its values overwritten: qdldl reads the values on
+            # each update
+            m = self._upper.get(tid)
             if m is None or m.data.shape != (self.nnz,):
-                m = self._upper = self.matrix(np.array(data, dtype=float))
+                m = self._upper[tid] = self.matrix(np.array(data, dtype=float))
             else:
                 m.data[:] = data
             if solver is None:
-                self._solvers[slot] = qdldl.Solver(m, upper=True)
+                self._solvers[key] = qdldl.Solver(m, upper=True)
             else:
                 solver.update(m, upper=True)
         else:
@@ -96,12 +102,13 @@ class FixedPatternSPD:
 
             upper = self.matrix(data)
             full = (upper + sp.triu(upper, k=1).T).tocsc()
-            self._solvers[slot] = spla.splu(full, permc_spec="COLAMD")
+            self._solvers[key] = spla.splu(full, permc_spec="COLAMD")
 
     def solve(self, b: np.ndarray, slot: str = "main") -> np.ndarray:
         """Solve with the factorization kept in ``slot`` (default: the current one)."""
-        return np.asarray(self._solvers[slot].solve(np.ascontiguousarray(b, dtype=float)))
+        solver = self._solvers[(slot, threading.get_ident())]
+        return np.asarray(solver.solve(np.ascontiguousarray(b, dtype=float)))
 
     def has_factor(self, slot: str = "main") -> bool:
         """True if ``slot`` holds a factorization."""
-        return slot in self._solvers
+        return (slot, threading.get_ident()) in self._solvers

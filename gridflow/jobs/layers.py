@@ -86,23 +86,38 @@ def pipes_layer(net: Network, r: HydraulicResult, geometry, crs, criteria: Crite
 
 
 def hydrants_layer(ff: pd.DataFrame, geometry, crs, system: UnitSystem | str) -> gpd.GeoDataFrame:
-    """``hydrants_fireflow`` from the sweep's SI table."""
-    cols = {
-        "hydrant_id": ff["hydrant_id"].astype(str).to_numpy(),
-        "node_id": ff["node_id"].astype(str).to_numpy(),
-        "zone": ff["zone"].astype(str).to_numpy(),
-        field_name("pressure", system, "static_pressure"): _conv(ff["static_pressure_m"],
-                                                                 "pressure", system),
-        field_name("flow", system, "required_flow"): _conv(ff["required_flow_m3s"], "flow",
-                                                           system),
-        field_name("flow", system, "available_flow"): _conv(ff["available_flow_m3s"], "flow",
-                                                            system),
-        field_name("pressure", system, "residual_pressure_at_required"): _conv(
-            ff["residual_pressure_at_required_m"], "pressure", system),
-        "meets_required": ff["meets_required"].astype(np.int32).to_numpy(),
-        "limited_by": ff["limited_by"].astype(str).to_numpy(),
-        "nfpa_class": ff["nfpa_class"].astype(str).to_numpy(),
-    }
+    """``hydrants_fireflow`` from the sweep's SI table (empty figures stay null)."""
+    def flow(stem: str, col: str):
+        return field_name("flow", system, stem), _conv(ff[col], "flow", system)
+
+    def pressure(stem: str, col: str):
+        return field_name("pressure", system, stem), _conv(ff[col], "pressure", system)
+
+    def flag(col: str):
+        return pd.array(ff[col], dtype="Int32")
+
+    cols = dict([
+        ("hydrant_id", ff["hydrant_id"].astype(str).to_numpy()),
+        ("node_id", ff["node_id"].astype(str).to_numpy()),
+        ("zone", ff["zone"].astype(str).to_numpy()),
+        ("in_service", ff["in_service"].astype(np.int32).to_numpy()),
+        pressure("static_pressure", "static_pressure_m"),
+        flow("required_flow", "required_flow_m3s"),
+        flow("available_flow", "available_flow_m3s"),
+        flow("rated_flow_20psi", "rated_flow_20psi_m3s"),
+        pressure("residual_pressure_at_required", "residual_pressure_at_required_m"),
+        ("required_achievable", flag("required_achievable")),
+        flow("flow_at_0psi", "flow_at_0psi_m3s"),
+        ("meets_required", flag("meets_required")),
+        ("limited_by", ff["limited_by"].astype(str).to_numpy()),
+        ("limiting_node_id", ff["limiting_node_id"].astype(str).to_numpy()),
+        ("limiting_pipe_id", ff["limiting_pipe_id"].astype(str).to_numpy()),
+        (field_name("velocity", system, "max_velocity"),
+         _conv(ff["max_velocity_ms"], "velocity", system)),
+        ("max_velocity_pipe_id", ff["max_velocity_pipe_id"].astype(str).to_numpy()),
+        ("high_velocity", flag("high_velocity")),
+        ("nfpa_class", ff["nfpa_class"].astype(str).to_numpy()),
+    ])
     return gpd.GeoDataFrame(cols, geometry=gpd.GeoSeries(geometry, crs=crs), crs=crs)
 
 

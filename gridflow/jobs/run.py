@@ -1,7 +1,8 @@
 """The nightly job: read, clean, allocate, solve every scenario, flag, fire flow, write.
 
 Exit codes (the contract): 0 done; 2 unusable config or input (nothing written); 3 a scenario did
-not converge (diagnostics written: findings name the worst node and link); 1 unexpected.
+not converge (diagnostics written to ``<stem>.diagnostics.gpkg`` beside the output, whose
+previous version is left as it was: findings name the worst node and link); 1 unexpected.
 """
 
 from __future__ import annotations
@@ -9,6 +10,7 @@ from __future__ import annotations
 import datetime as _dt
 import logging
 import os
+import sys
 import time
 from pathlib import Path
 
@@ -17,15 +19,16 @@ import pandas as pd
 
 from gridflow import __version__
 from gridflow.config import Config, load_config
-from gridflow.errors import ConvergenceError, InputError, OutputError, TopologyError
+from gridflow.errors import ConfigError, ConvergenceError, InputError, OutputError, TopologyError
 from gridflow.findings import Findings
-from gridflow.hydraulics import HydraulicSystem, SolveOptions
-from gridflow.hydraulics.solver import HydraulicResult
+from gridflow.hydraulics import HydraulicResult, HydraulicSystem, SolveOptions
+from gridflow.io.atomic import OutputSet
 from gridflow.jobs.check import file_sha256
+from gridflow.jobs.signals import stop_on_signals
 from gridflow.network import NODE_JUNCTION, Network
 
 __all__ = ["run_job", "solve_options", "verify_solution", "require_solvable",
-           "check_output_path"]
+           "check_output_path", "diagnostics_path", "shut_zone_findings"]
 
 log = logging.getLogger("gridflow")
 
@@ -33,6 +36,8 @@ log = logging.getLogger("gridflow")
 def solve_options(cfg: Config) -> SolveOptions:
     s = cfg.solver
     return SolveOptions(max_iter=s.max_iter, flow_tolerance=s.flow_tolerance,
+                        mass_relative_tolerance=s.flow_relative_tolerance,
+                        max_status_rounds=s.max_status_rounds,
                         head_tolerance=s.head_tolerance, pressure_driven=s.pressure_driven,
                         pdd_min_pressure=s.pdd_min_pressure,
                         pdd_required_pressure=s.pdd_required_pressure)
@@ -43,37 +48,51 @@ def verify_solution(system: HydraulicSystem, r: HydraulicResult) -> tuple[float,
 
     Returns the largest mass imbalance [m3/s] over supplied unknown-head nodes, the largest
     head-loss residual [m] over open links between supplied nodes, and the worst node and
-    link positions. A non-finite head or flow at a supplied node or open link counts as an
-    infinite residual there.
-
-    Notes
-    -----
-    Mass: ``max_i |sum_in q - sum_out q - d_i|`` over supplied nodes whose head is not fixed
-    and not pinned by an active PRV. Energy: ``max_k |h_f(q_k) - (H_from - H_to)|`` over open
-    links, ``h_f`` the link's head-loss law at the written flow.
+    link positions, by the same residual function the solvers use
+    (:func:`gridflow.hydraulics.assembly.residuals`). A non-finite head or flow at a supplied
+    node or open link counts as an infinite residual there.
     """
+    res = system.residuals(r)
+    return res.max_mass, res.max_error, res.worst_node, res.worst_link
+
+
+def diagnostics_path(out_path: Path) -> Path:
+    """Where a run that does not converge writes: ``<stem>.diagnostics.gpkg`` beside the output
+    (the output itself, last night's results, stays as it was)."""
+    return out_path.with_name(f"{out_path.stem}.diagnostics.gpkg")
+
+
+def shut_zone_findings(name: str, system: HydraulicSystem, r: HydraulicResult, findings,
+                       link_geoms, meter_link_idx: np.ndarray | None = None) -> tuple[int, float]:
+    """A warning per zone that the input connects to a fixed head but the solution leaves dry
+    because a device is shut, at the device(s); returns (nodes, undelivered demand m3/s)."""
     net = system.net
-    nn = net.n_nodes
-    q = r.flow_m3s
-    inflow = np.bincount(net.to_idx, q, nn) - np.bincount(net.from_idx, q, nn)
-    pinned = net.is_fixed.copy()
-    active = r.link_state == 2
-    pinned[net.to_idx[active]] = True
-    check = r.supplied & ~pinned
-    imb = np.where(check, np.abs(inflow - r.demand_m3s), 0.0)
-    imb[r.supplied & ~(np.isfinite(r.head_m) & np.isfinite(inflow))] = np.inf
-    hl, _ = system.link_headloss(q)
-    open_ = (r.link_state == 0) & r.supplied[net.from_idx] & r.supplied[net.to_idx]
-    dh = r.head_m[net.from_idx] - r.head_m[net.to_idx]
-    e = np.where(open_, np.abs(hl - dh), 0.0)
-    e[open_ & ~np.isfinite(e)] = np.inf
-    wn = int(np.argmax(imb)) if nn else 0
-    wl = int(np.argmax(e)) if len(e) else 0
-    return float(imb[wn]) if nn else 0.0, float(e[wl]) if len(e) else 0.0, wn, wl
+    n_nodes, undelivered = 0, 0.0
+    for z in system.shut_zones(r):
+        inz = np.zeros(net.n_nodes, dtype=bool)
+        inz[z.nodes] = True
+        meters = 0
+        if meter_link_idx is not None and len(meter_link_idx):
+            ok = meter_link_idx >= 0
+            li = meter_link_idx[ok]
+            meters = int(np.sum(inz[net.from_idx[li]] | inz[net.to_idx[li]]))
+        devices = [str(net.link_id[k]) for k in z.devices] or ["(none found)"]
+        msg = (f"scenario {name}: {len(z.nodes)} node(s) and {meters} meter(s) are connected to "
+               f"a source or tank by links open in the GIS but get no supply because "
+               f"{', '.join(devices)} shut; {z.required_m3s * 1000:.3g} L/s of demand is not "
+               "delivered")
+        for k in (z.devices if len(z.devices) else [int(z.nodes[0])]):
+            layer = f"pipes_{name}" if len(z.devices) else f"nodes_{name}"
+            fid = net.link_id[k] if len(z.devices) else net.node_id[k]
+            geom = link_geoms[k] if len(z.devices) else None
+            findings.add("supply_cut_by_device", "warning", layer, fid, msg, geom)
+        log.warning(msg)
+        n_nodes += len(z.nodes)
+        undelivered += z.required_m3s
+    return n_nodes, undelivered
 
 
-def _attach_log_file(out_path: Path) -> logging.Handler | None:
-    log_path = out_path.with_suffix(".log")
+def _attach_log_file(log_path: Path) -> logging.Handler | None:
     try:
         handler = logging.FileHandler(log_path, mode="w", encoding="utf-8")
     except OSError:
@@ -82,6 +101,16 @@ def _attach_log_file(out_path: Path) -> logging.Handler | None:
     handler.setLevel(logging.DEBUG)
     logging.getLogger("gridflow").addHandler(handler)
     return handler
+
+
+def output_paths(out_path: Path) -> dict[str, Path]:
+    """Every file a run may write for the target ``out_path``, by what it is."""
+    stem = out_path.stem
+    return {"output GeoPackage": out_path,
+            "report": out_path.with_suffix(".html"),
+            "log file": out_path.with_suffix(".log"),
+            "log of a failed run": out_path.with_name(f"{stem}.failed.log"),
+            "diagnostics file": out_path.with_name(f"{stem}.diagnostics.gpkg")}
 
 
 def _input_sha256(cfg: Config, name: str, p: str) -> str:
@@ -130,41 +159,32 @@ def require_solvable(cfg: Config, clean) -> None:
                          "digitise mains with Z, or give a DEM", key="elevation.source")
 
 
-def check_output_path(out_path: Path, cfg: Config) -> None:
-    """Refuse an output that is an input or the config, or a folder that cannot be written."""
-    out_abs = out_path.resolve()
-    for name, p in cfg.inputs.items():
-        if cfg.resolve(p).resolve() == out_abs:
-            raise OutputError(f"output {out_path} is the input file {name!r}: gridflow never "
-                              "writes to an input; choose another --out", file=str(out_path))
-    if cfg.path is not None and Path(cfg.path).resolve() == out_abs:
-        raise OutputError(f"output {out_path} is the config file: gridflow never writes to an "
-                          "input; choose another --out", file=str(out_path))
-    folder = out_abs.parent
-    if not folder.is_dir():
-        raise OutputError(f"output folder {folder} does not exist", file=str(out_path))
-    if not os.access(folder, os.W_OK):
-        raise OutputError(f"output folder {folder} is not writable", file=str(out_path))
+def check_output_path(out_path: Path, cfg: Config, previous: str | Path | None = None,
+                      extra: dict[str, Path] | None = None) -> dict[str, Path]:
+    """Check every output of the run against every input before anything is read or written.
+
+    Inputs (config, input files, DEM, ``--previous``) must be regular files; no output (nor
+    ``extra`` ones, e.g. temporaries) may be an input by path, symlink or hard link, nor a
+    folder, nor sit in a folder that cannot be written. ``--previous`` may be the output
+    GeoPackage itself (it is read before anything is written). Returns the outputs.
+    """
+    from gridflow.io.paths import check_outputs, input_paths
+
+    outputs = output_paths(out_path)
+    inputs = input_paths(cfg, previous)
+    gpkg_inputs = {k: v for k, v in inputs.items() if not k.startswith("previous")}
+    check_outputs({"output GeoPackage": out_path}, gpkg_inputs)
+    rest = {k: v for k, v in outputs.items() if k != "output GeoPackage"}
+    check_outputs({**rest, **(extra or {})}, inputs)
+    check_outputs(outputs, {})
+    return outputs
 
 
 def run_job(config_path: str | Path, *, out: str | Path | None = None,
             previous: str | Path | None = None, workers: int | None = None,
             scheduler: str | None = None) -> int:
     """Run the nightly job; returns 0 or raises a :class:`GridflowError` (see exit codes)."""
-    from gridflow.analysis.changes import compare_flags, flag_set, read_previous_flags
-    from gridflow.config.database import is_database, parse_database
-    from gridflow.demand import allocate, run_info_rows, scenario_network
-    from gridflow.io.postgis import last_snapshots
-    from gridflow.io.postgis import read_previous_flags as pg_previous_flags
-    from gridflow.io.publish import (
-        check_database_output,
-        local_output_path,
-        output_database,
-        publish_postgis,
-    )
-    from gridflow.io.write import write_geopackage
-    from gridflow.jobs.layers import nodes_layer, pipes_layer
-    from gridflow.topology import build_network
+    from gridflow.io.publish import check_database_output, local_output_path, output_database
 
     t_start = time.perf_counter()
     started = _dt.datetime.now(_dt.UTC)
@@ -180,13 +200,37 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
         except OSError as exc:
             raise OutputError(f"cannot make the output folder {out_path.parent}: "
                               f"{exc.strerror}", file=str(out_path)) from None
-    check_output_path(out_path, cfg)
+    outputs = check_output_path(out_path, cfg, previous)
+    if workers is not None and not 1 <= workers <= 1024:
+        raise ConfigError(f"--workers {workers} is out of range; valid: 1 to 1024",
+                          key="--workers")
     if scheduler and cfg.fireflow.enabled:
         # fail in seconds, not after the scenarios: is the cluster there and runnable?
         from gridflow.analysis.fireflow import connect_scheduler
 
         connect_scheduler(scheduler).close()
-    handler = _attach_log_file(out_path)
+    with OutputSet(outputs.values()) as outs, stop_on_signals():
+        check_output_path(out_path, cfg, previous, extra={
+            f"temporary file for the {k}": outs.temp(v) for k, v in outputs.items()})
+        return _run(cfg, out_path, outputs, outs, previous, workers, scheduler, t_start,
+                    started, db_out)
+
+
+def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
+         previous, workers, scheduler, t_start: float, started, db_out) -> int:
+    from gridflow.analysis.changes import compare_flags, flag_set, read_previous_flags
+    from gridflow.config.database import is_database, parse_database
+    from gridflow.demand import allocate, run_info_rows, scenario_network
+    from gridflow.io.postgis import last_snapshots
+    from gridflow.io.postgis import read_previous_flags as pg_previous_flags
+    from gridflow.io.publish import publish_postgis
+    from gridflow.io.write import write_layers
+    from gridflow.jobs.stages import scenario_layers
+    from gridflow.topology import build_network
+
+    log_path = outputs["log file"]
+    handler = _attach_log_file(outs.temp(log_path))
+    done = False
     try:
         prev_flags = (None if not previous else pg_previous_flags(previous)
                       if is_database(previous) else read_previous_flags(previous))
@@ -231,7 +275,7 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
                 r = system.solve()
             except ConvergenceError as exc:
                 r = exc.fields["result"]
-                worst = _worst_nodes(net, system, r, 10)
+                worst = list(net.node_id[system.residuals(r).worst_nodes(10)])
                 findings.add_many("not_converged", "error", f"nodes_{name}", worst,
                                   [f"scenario {name}: {r.message}"] * len(worst),
                                   list(clean.nodes.geometry.values[net.node_index(worst)]))
@@ -241,13 +285,23 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
                 info.append((f"{name}:converged", "0"))
                 break
             mass, headres, wn, wl = verify_solution(system, r)
+            cut_nodes, cut_m3s = shut_zone_findings(
+                name, system, r, findings, clean.links.geometry.values,
+                getattr(alloc, "meter_link_idx", None))
+            r.message += (f"; {cut_nodes} node(s) cut off by shut devices"
+                          if cut_nodes else "")
             info += [(f"iterations_{name}", str(r.iterations)),
-                     (f"{name}:status_trials", str(r.trials)),
+                     (f"{name}:status_rounds", str(r.status_rounds)),
+                     (f"{name}:solve_status", r.status),
+                     (f"{name}:undelivered_demand_m3s", f"{r.undelivered_m3s:.6g}"),
+                     (f"{name}:cut_off_nodes", str(cut_nodes)),
+                     (f"{name}:cut_off_demand_m3s", f"{cut_m3s:.6g}"),
                      (f"{name}:mass_residual_m3s", f"{mass:.3e}"),
                      (f"{name}:head_residual_m", f"{headres:.3e}"),
                      (f"{name}:converged", "1"),
                      (f"{name}:seconds", f"{time.perf_counter() - t0:.2f}")]
-            if not (mass <= 10 * opts.flow_tolerance and headres <= 10 * opts.head_tolerance):
+            mtol = max(opts.flow_tolerance, r.mass_tolerance_m3s)
+            if not (mass <= 10 * mtol and headres <= 10 * opts.head_tolerance):
                 msg = (f"scenario {name}: the solution failed its check (mass imbalance "
                        f"{mass:.3g} m3/s at node {net.node_id[wn]}, head-loss residual "
                        f"{headres:.3g} m on link {net.link_id[wl]}); its results are not written")
@@ -257,10 +311,7 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
                              msg, clean.links.geometry.values[wl])
                 failure = ConvergenceError(msg, node_id=net.node_id[wn], link_id=net.link_id[wl])
                 break
-            nodes = nodes_layer(net, r, clean.nodes.geometry.values, clean.crs, cfg.criteria,
-                                system_units)
-            pipes = pipes_layer(net, r, clean.links.geometry.values, clean.crs, cfg.criteria,
-                                system_units, rating)
+            nodes, pipes = scenario_layers(cfg, clean, net, r)
             for flag in ("low_pressure", "high_pressure", "negative_pressure"):
                 info.append((f"{name}:{flag}", str(int(nodes[flag].sum()))))
             info.append((f"{name}:unsupplied", str(int((nodes["supplied"] == 0).sum()))))
@@ -311,23 +362,48 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
                  ("ended_utc", _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds")),
                  ("seconds_total", f"{time.perf_counter() - t_start:.2f}")]
         layers["run_info"] = pd.DataFrame(info, columns=["key", "value"])
-        inputs = [cfg.resolve(p) for p in cfg.inputs.values()]
-        if db_out is not None:
-            published = publish_postgis(db_out, layers, crs=clean.crs)
-        else:
-            write_geopackage(out_path, layers, inputs=inputs, styles=True)
-            log.info("wrote %s", out_path)
-        if cfg.report.enabled and failure is None:
-            _report(cfg, out_path, clean, results, layers, info, routine, rating)
         if failure is not None:
+            # last night's outputs stay as they are; what went wrong goes beside them
+            diag = outputs["diagnostics file"]
+            outs.write(diag, lambda tmp: write_layers(tmp, layers, styles=True))
+            outs.commit([diag])
+            log.info("wrote %s", diag)
+            failure.message += f"; diagnostics in {diag} (the previous output is kept)"
+            failure.args = (failure.message,)
             raise failure
-        _print_summary(out_path, layers, findings, cfg.report.enabled,
-                       published if db_out is not None else None)
+        published = None
+        if db_out is None:
+            gpkg = outputs["output GeoPackage"]
+            outs.write(gpkg, lambda tmp: write_layers(tmp, layers, styles=True))
+            log.info("wrote %s", gpkg)
+        if cfg.report.enabled:
+            html = outputs["report"]
+            outs.write(html, lambda tmp: _report(cfg, tmp, clean, results, layers, info,
+                                                  routine, rating))
+            log.info("wrote %s", html)
+        if handler is not None:
+            logging.getLogger("gridflow").removeHandler(handler)
+            handler.close()
+            handler = None
+            outs.adopt(log_path)
+        if db_out is not None:  # one transaction; the local report and log follow it
+            published = publish_postgis(db_out, layers, crs=clean.crs)
+        outs.commit()
+        done = True
+        _print_summary(out_path, layers, findings, cfg.report.enabled, published)
         return 0
     finally:
         if handler is not None:
             logging.getLogger("gridflow").removeHandler(handler)
             handler.close()
+        tmp_log = outs.temp(log_path)
+        if not done and tmp_log.exists():
+            failed = outputs["log of a failed run"]
+            try:
+                os.replace(tmp_log, failed)
+                print(f"log of the failed run: {failed}", file=sys.stderr)
+            except OSError:
+                pass
 
 
 def _print_summary(out_path: Path, layers: dict, findings: Findings, report: bool,
@@ -339,15 +415,23 @@ def _print_summary(out_path: Path, layers: dict, findings: Findings, report: boo
     for name, df in layers.items():
         if name.startswith("nodes_"):
             pipes = layers[f"pipes_{name[6:]}"]
+            info = layers.get("run_info")
+            kv = dict(zip(info["key"], info["value"], strict=True)) if info is not None else {}
+            short = float(kv.get(f"{name[6:]}:undelivered_demand_m3s", "0") or 0)
+            cut = kv.get(f"{name[6:]}:cut_off_nodes", "0")
             print(f"  {name[6:]}: {int(df['low_pressure'].sum())} low-pressure, "
                   f"{int(df['high_pressure'].sum())} high-pressure, "
                   f"{int((df['supplied'] == 0).sum())} unsupplied node(s); "
                   f"{int(pipes['high_velocity'].sum())} fast, "
-                  f"{int(pipes['high_headloss'].sum())} high-loss pipe(s)")
+                  f"{int(pipes['high_headloss'].sum())} high-loss pipe(s); "
+                  f"{cut} node(s) cut off by shut devices, {short * 1000:.3g} L/s of demand not "
+                  "delivered")
     if "hydrants_fireflow" in layers:
         h = layers["hydrants_fireflow"]
-        print(f"  fire flow: {int((h['meets_required'] == 0).sum())} of {len(h)} hydrant(s) "
-              "below their required flow")
+        ins = h[h["in_service"] == 1]
+        print(f"  fire flow: {int((ins['meets_required'] == 0).sum())} of {len(ins)} "
+              "in-service hydrant(s) below their required flow"
+              + (f"; {len(h) - len(ins)} out of service" if len(h) > len(ins) else ""))
     if "flow_tests" in layers:
         ft = layers["flow_tests"]
         col = next(c for c in ft.columns if c.startswith("residual_diff_"))
@@ -388,26 +472,14 @@ def terminal_progress(label: str):
     return show
 
 
-def _worst_nodes(net: Network, system: HydraulicSystem, r: HydraulicResult, k: int) -> list:
-    nn = net.n_nodes
-    q = r.flow_m3s
-    inflow = np.bincount(net.to_idx, q, nn) - np.bincount(net.from_idx, q, nn)
-    imb = np.where(r.supplied & ~net.is_fixed, np.abs(inflow - r.demand_m3s), 0.0)
-    order = np.argsort(-imb, kind="stable")[:k]
-    return list(net.node_id[order])
-
-
 def _fireflow(cfg, clean, results, opts, workers, scheduler, findings, info):
-    from gridflow.analysis.fireflow import sweep
-    from gridflow.jobs.layers import hydrants_layer
+    from gridflow.jobs.stages import fireflow_layer
 
     name = cfg.fireflow.scenario
     net, base, _ = results[name]
     t0 = time.perf_counter()
-    hyd = clean.hydrants
-    ff = sweep(net, base, pd.DataFrame(hyd.drop(columns="geometry")), cfg.fireflow,
-               cfg.criteria, options=opts, workers=workers, scheduler=scheduler,
-               progress=terminal_progress("fire flow"))
+    ff, layer = fireflow_layer(cfg, clean, net, base, opts, workers=workers,
+                               scheduler=scheduler, progress=terminal_progress("fire flow"))
     below = ff.attrs.get("base_below_minimum", [])
     if len(below):
         idx = net.node_index(below)
@@ -415,24 +487,25 @@ def _fireflow(cfg, clean, results, opts, workers, scheduler, findings, info):
                           f"pressure is below the fire-flow system minimum in scenario {name} "
                           "before any fire draw; not counted as limiting each hydrant",
                           list(clean.nodes.geometry.values[idx]))
-    order = pd.Index(ff["hydrant_id"].astype(str))
-    geo = hyd.set_index(hyd["hydrant_id"].astype(str)).geometry.reindex(order).values
-    layer = hydrants_layer(ff, geo, clean.crs, cfg.run.units)
-    info += [("fireflow:scenario", name), ("fireflow:hydrants", str(len(ff))),
-             ("fireflow:failing", str(int((ff["meets_required"] == 0).sum()))),
+    summary = ff.attrs["summary"]
+    info += [("fireflow:scenario", name), ("fireflow:hydrants", str(summary["hydrants"])),
+             ("fireflow:out_of_service", str(summary["out_of_service"])),
+             ("fireflow:failing", str(summary["hydrants"] - summary["meets_required"])),
+             ("fireflow:required_not_achievable", str(summary["required_not_achievable"])),
+             ("fireflow:high_velocity", str(summary["high_velocity"])),
              ("fireflow:seconds", f"{time.perf_counter() - t0:.2f}")]
     return layer
 
 
-def _report(cfg, out_path, clean, results, layers, info, routine, rating):
+def _report(cfg, html, clean, results, layers, info, routine, rating):
     """The HTML report, from the results in memory (SI arrays, typed criteria)."""
     import shapely
 
     from gridflow.report import ReportData, ScenarioData, write_report
+    from gridflow.report.fireflow import in_service, limiting_nodes_table
     from gridflow.report.flowtests import flow_tests_table
     from gridflow.report.segments import segments_table
 
-    html = out_path.with_suffix(".html")
     scenarios = [ScenarioData.solved(name, net, r, cfg.criteria)
                  for name, (net, r, _) in results.items()]
     geoms = clean.nodes.geometry.values
@@ -443,10 +516,12 @@ def _report(cfg, out_path, clean, results, layers, info, routine, rating):
     data = ReportData(scenarios=scenarios, criteria=cfg.criteria, units=cfg.run.units,
                       name=cfg.run.name, node_xy=xy,
                       crs=clean.crs.name if clean.crs is not None else "",
-                      pressure_rating_m=rating, hydrants=layers.get("hydrants_fireflow"),
+                      pressure_rating_m=rating,
+                      hydrants=in_service(layers.get("hydrants_fireflow")),
                       findings=layers.get("findings"), changes=layers.get("changes"),
                       flow_tests=layers.get("flow_tests"), segments=layers.get("segments"),
                       routine=routine, run_info=list(info),
                       hgl_path=cfg.report.hgl_path or None, worst_rows=cfg.report.worst_rows)
-    write_report(html, data, extra_tables=[flow_tests_table, segments_table])
+    write_report(html, data, extra_tables=[limiting_nodes_table, flow_tests_table,
+                                           segments_table])
     log.info("wrote %s", html)

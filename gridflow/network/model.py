@@ -30,12 +30,12 @@ __all__ = [
     "LINK_KINDS",
     "STATUS_OPEN",
     "STATUS_CLOSED",
-    "STATUS_CV",
+    "STATUS_CHECK",
     "STATUS_NAMES",
     "VALVE_NONE",
     "VALVE_ISOLATION",
-    "VALVE_PRV",
-    "VALVE_TCV",
+    "VALVE_PRESSURE_REDUCING",
+    "VALVE_THROTTLE",
     "VALVE_NAMES",
     "HeadlossModel",
 ]
@@ -44,10 +44,10 @@ NODE_JUNCTION, NODE_SOURCE, NODE_TANK = 0, 1, 2
 NODE_KINDS = ("junction", "source", "tank")
 LINK_PIPE, LINK_PUMP, LINK_VALVE = 0, 1, 2
 LINK_KINDS = ("pipe", "pump", "valve")
-STATUS_OPEN, STATUS_CLOSED, STATUS_CV = 0, 1, 2
+STATUS_OPEN, STATUS_CLOSED, STATUS_CHECK = 0, 1, 2
 STATUS_NAMES = ("open", "closed", "check_valve")
-VALVE_NONE, VALVE_ISOLATION, VALVE_PRV, VALVE_TCV = 0, 1, 2, 3
-VALVE_NAMES = ("", "isolation", "prv", "throttle")
+VALVE_NONE, VALVE_ISOLATION, VALVE_PRESSURE_REDUCING, VALVE_THROTTLE = 0, 1, 2, 3
+VALVE_NAMES = ("", "isolation", "pressure_reducing", "throttle")
 
 HeadlossModel = Literal["hazen-williams", "darcy-weisbach"]
 
@@ -108,16 +108,18 @@ class Network:
     minor_k : ndarray
         Sum of minor-loss coefficients K (dimensionless, on the link's velocity).
     status : ndarray of int8
-        :data:`STATUS_OPEN`, :data:`STATUS_CLOSED` or :data:`STATUS_CV` (check valve: flow
+        :data:`STATUS_OPEN`, :data:`STATUS_CLOSED` or :data:`STATUS_CHECK` (check valve: flow
         only from ``from_idx`` to ``to_idx``).
     valve_type : ndarray of int8
-        For valves: :data:`VALVE_ISOLATION`, :data:`VALVE_PRV` (``valve_setting`` is the
-        downstream pressure setting [m of head]) or :data:`VALVE_TCV` (``valve_setting`` is
+        For valves: :data:`VALVE_ISOLATION`, :data:`VALVE_PRESSURE_REDUCING` (``valve_setting``
+        is the
+        downstream pressure setting [m of head]) or :data:`VALVE_THROTTLE` (``valve_setting`` is
         the valve's loss coefficient K).
     valve_setting : ndarray
         See ``valve_type``. NaN where not used.
-    pump_a, pump_b, pump_c : ndarray
-        Pump head curve ``h = a - b q**c`` [m, q in m3/s] at relative speed 1.
+    pump_h0, pump_h1, pump_h2 : ndarray
+        Pump head curve ``H = h0 + h1 q + h2 q**2`` [m, q in m3/s] at relative speed 1
+        (:mod:`gridflow.network.pumps`): ``h0`` the shut-off head, ``h1, h2 <= 0``.
     pump_speed : ndarray
         Relative speed; 0 means the pump is off.
     headloss_model : {'hazen-williams', 'darcy-weisbach'}
@@ -141,9 +143,9 @@ class Network:
     status: np.ndarray
     valve_type: np.ndarray
     valve_setting: np.ndarray
-    pump_a: np.ndarray
-    pump_b: np.ndarray
-    pump_c: np.ndarray
+    pump_h0: np.ndarray
+    pump_h1: np.ndarray
+    pump_h2: np.ndarray
     pump_speed: np.ndarray
     headloss_model: HeadlossModel = "hazen-williams"
     _validated: bool = field(default=False, repr=False, compare=False)
@@ -170,9 +172,9 @@ class Network:
         status=None,
         valve_type=None,
         valve_setting=None,
-        pump_a=None,
-        pump_b=None,
-        pump_c=None,
+        pump_h0=None,
+        pump_h1=None,
+        pump_h2=None,
         pump_speed=None,
         headloss_model: HeadlossModel = "hazen-williams",
     ) -> Network:
@@ -205,9 +207,9 @@ class Network:
             status=_i(status, nl),
             valve_type=_i(valve_type, nl),
             valve_setting=_f(valve_setting, nl),
-            pump_a=_f(pump_a, nl),
-            pump_b=_f(pump_b, nl),
-            pump_c=_f(pump_c, nl),
+            pump_h0=_f(pump_h0, nl),
+            pump_h1=_f(pump_h1, nl),
+            pump_h2=_f(pump_h2, nl),
             pump_speed=_f(pump_speed, nl, 1.0),
             headloss_model=headloss_model,
         )
@@ -257,8 +259,8 @@ class Network:
                 raise NetworkError(f"node array {name} has length {len(getattr(self, name))}, "
                                    f"expected {nn}", field=name)
         for name in ("from_idx", "to_idx", "link_kind", "length_m", "diameter_m", "roughness",
-                     "minor_k", "status", "valve_type", "valve_setting", "pump_a", "pump_b",
-                     "pump_c", "pump_speed"):
+                     "minor_k", "status", "valve_type", "valve_setting", "pump_h0", "pump_h1",
+                     "pump_h2", "pump_speed"):
             if len(getattr(self, name)) != nl:
                 raise NetworkError(f"link array {name} has length {len(getattr(self, name))}, "
                                    f"expected {nl}", field=name)
@@ -318,14 +320,14 @@ class Network:
             raise NetworkError(f"link {ids[k]} has minor-loss K {self.minor_k[k]!r}; expected a "
                                "number >= 0", link_id=ids[k], field="minor_k")
         if pump.any():
-            a, b, c = self.pump_a[pump], self.pump_b[pump], self.pump_c[pump]
+            a, b, c = self.pump_h0[pump], self.pump_h1[pump], self.pump_h2[pump]
             bad = (~(np.isfinite(a) & np.isfinite(b) & np.isfinite(c))
-                   | (a <= 0) | (b <= 0) | (c <= 0))
+                   | (a <= 0) | (b > 0) | (c > 0) | ((b == 0) & (c == 0)))
             if bad.any():
                 k = int(np.flatnonzero(pump)[np.argmax(bad)])
                 raise NetworkError(
-                    f"pump {ids[k]} has no usable head curve (a={self.pump_a[k]!r}, "
-                    f"b={self.pump_b[k]!r}, c={self.pump_c[k]!r}): the head must fall as "
+                    f"pump {ids[k]} has no usable head curve (h0={self.pump_h0[k]!r}, "
+                    f"h1={self.pump_h1[k]!r}, h2={self.pump_h2[k]!r}): the head must fall as "
                     "flow rises", link_id=ids[k], field="pump_curve")
             sp = self.pump_speed[pump]
             bad = ~np.isfinite(sp) | (sp < 0)
@@ -333,9 +335,9 @@ class Network:
                 k = int(np.flatnonzero(pump)[np.argmax(bad)])
                 raise NetworkError(f"pump {ids[k]} has relative speed {self.pump_speed[k]!r}; "
                                    "expected >= 0", link_id=ids[k], field="pump_speed")
-        prv = valve & (self.valve_type == VALVE_PRV)
+        prv = valve & (self.valve_type == VALVE_PRESSURE_REDUCING)
         bad = prv & ~np.isfinite(self.valve_setting)
-        tcv = valve & (self.valve_type == VALVE_TCV)
+        tcv = valve & (self.valve_type == VALVE_THROTTLE)
         bad |= tcv & ~(np.isfinite(self.valve_setting) & (self.valve_setting >= 0))
         if bad.any():
             k = int(np.argmax(bad))
@@ -375,3 +377,9 @@ def _positive(values, ids, name, what, *, allow_zero: bool = False) -> None:
         cmp = ">= 0" if allow_zero else "> 0"
         raise NetworkError(f"{what} {ids[k]} has {name} = {values[k]!r}; expected a number {cmp}",
                            link_id=ids[k], field=name)
+
+
+# Names used before the descriptive ones above; kept importable for code written against them.
+STATUS_CV = STATUS_CHECK
+VALVE_PRV = VALVE_PRESSURE_REDUCING
+VALVE_TCV = VALVE_THROTTLE

@@ -149,6 +149,8 @@ def map_payload(d: ReportData) -> dict | None:
     payload["pressureRange"] = _r(lo_hi, 1)
     payload["hydrants"] = _hydrants(d, x0, y0)
     payload["findings"] = _findings(d, x0, y0)
+    payload["segments"] = _segments(d, x0, y0)
+    payload["flowTests"] = _flow_tests(d, x0, y0)
     return payload
 
 
@@ -188,6 +190,89 @@ def _findings(d: ReportData, x0: float, y0: float) -> dict | None:
             **{k: sub[k].fillna("").astype(str).tolist()
                for k in ("kind", "severity", "layer", "feature_id", "message")},
             "total": len(fd), "shown": len(idx)}
+
+
+#: segments drawn at most (those needing action first, then by criticality)
+MAX_MAP_SEGMENTS = 400
+
+
+def _segments(d: ReportData, x0: float, y0: float) -> dict | None:
+    """Valve segments that need a look: closure cuts off others, oversized, cannot be
+    isolated, then the most critical; geometry simplified to about 2 m."""
+    import shapely
+
+    sg = d.segments
+    if sg is None or not len(sg) or "geometry" not in sg:
+        return None
+    geom = np.asarray(sg.geometry.values, dtype=object)
+    has = ~(shapely.is_missing(geom) | shapely.is_empty(geom))
+    cut = sg["cut_off_segments"].to_numpy() > 0
+    over = sg["oversized"].to_numpy() == 1
+    lone = sg["cannot_isolate"].to_numpy() == 1
+    rank = (sg["criticality_rank"].to_numpy(dtype=float) if "criticality_rank" in sg
+            else np.full(len(sg), np.nan))
+    score = np.where(cut | over | lone, -1e9, np.where(np.isfinite(rank), rank, 1e9))
+    idx = pick(score, has, MAX_MAP_SEGMENTS)
+    if not len(idx):
+        return None
+    sub = sg.iloc[idx]
+    parts, owner = shapely.get_parts(shapely.simplify(geom[idx], 2.0), return_index=True)
+    xy, pidx = shapely.get_coordinates(parts, return_index=True)
+    xy = xy - [x0, y0]
+    lines: list[list[list[float]]] = [[] for _ in idx]
+    splits = np.flatnonzero(np.diff(pidx)) + 1
+    for k, chunk in zip(owner[np.unique(pidx)], np.split(xy, splits)):
+        lines[k].append(_r(chunk.ravel(), 1))
+    kind = np.where(cut[idx], "cuts_off", np.where(over[idx], "oversized",
+                                                    np.where(lone[idx], "cannot_isolate",
+                                                             "critical")))
+    L, _ = out_field_safe(d, "length")
+
+    def col(name: str, digits: int | None = None) -> list:
+        if name not in sub:
+            return [None] * len(sub)
+        v = sub[name]
+        return _r(v, digits) if digits is not None else v.fillna("").astype(str).tolist()
+
+    return {"id": col("segment_id"), "lines": lines, "kind": kind.tolist(),
+            "valves": col("valve_ids"), "length": col(f"length_{L}", 0),
+            "meters": col("meters", 0), "cutOff": col("cut_off_segments", 0),
+            "cutMeters": col("cut_off_meters", 0), "out": col("meters_out_of_water", 0),
+            "low": col("meters_low_pressure", 0), "rank": col("criticality_rank", 0),
+            "total": len(sg), "shown": len(idx)}
+
+
+def _flow_tests(d: ReportData, x0: float, y0: float) -> dict | None:
+    """Field flow tests at their residual hydrant: model minus field residual pressure."""
+    ft = d.flow_tests
+    if ft is None or not len(ft) or "geometry" not in ft:
+        return None
+    xy = points_xy(ft)
+    ok = np.flatnonzero(np.isfinite(xy).all(axis=1))
+    if not len(ok):
+        return None
+    sub = ft.iloc[ok]
+    P, _ = out_field_safe(d, "pressure")
+
+    def col(name: str, digits: int | None = None) -> list:
+        if name not in sub:
+            return [None] * len(sub)
+        v = sub[name]
+        return _r(v, digits) if digits is not None else v.fillna("").astype(str).tolist()
+
+    return {"id": col("test_id"), "x": _r(xy[ok, 0] - x0, 1), "y": _r(xy[ok, 1] - y0, 1),
+            "fieldResidual": col(f"field_residual_pressure_{P}", 1),
+            "modelResidual": col(f"model_residual_pressure_{P}", 1),
+            "diff": col(f"residual_diff_{P}", 1),
+            "out": [int(v) if v == v else 0 for v in sub.get("out_of_tolerance",
+                                                              pd.Series(0, index=sub.index))],
+            "problem": col("problem")}
+
+
+def out_field_safe(d: ReportData, quantity: str) -> tuple[str, float]:
+    from gridflow.units import out_field
+
+    return out_field(quantity, d.units)
 
 
 def payload_json(payload: dict) -> str:

@@ -12,7 +12,7 @@ from gridflow.network import (
     LINK_PUMP,
     LINK_VALVE,
     NODE_KINDS,
-    VALVE_PRV,
+    VALVE_PRESSURE_REDUCING,
     Network,
 )
 from gridflow.topology.clean import CleanNetwork
@@ -40,8 +40,8 @@ def assemble(ctx: Context, at: Attached, nt: NodeTable, lt: LinkTable, elev: np.
         elevation_m=elev, fixed_head_m=nt.fixed_head_m, node_kind=nt.kind, zone=zone,
         link_kind=c["kind"], length_m=np.where(c["kind"] == LINK_PIPE, c["length"], 0.0),
         diameter_m=c["diameter"], roughness=c["rough"], minor_k=c["mk"],
-        status=c["status"], valve_type=c["vt"], valve_setting=c["vs"], pump_a=c["pa"],
-        pump_b=c["pb"], pump_c=c["pc"], pump_speed=c["speed"],
+        status=c["status"], valve_type=c["vt"], valve_setting=c["vs"], pump_h0=c["pa"],
+        pump_h1=c["pb"], pump_h2=c["pc"], pump_speed=c["speed"],
         headloss_model=cfg.run.headloss_model)
     crs = ctx.crs
     node_pts = shapely.points(nt.xy)
@@ -69,12 +69,12 @@ def assemble(ctx: Context, at: Attached, nt: NodeTable, lt: LinkTable, elev: np.
 def _prv_reach(ctx: Context, net: Network, geoms) -> None:
     """A PRV whose setting puts its downstream grade above every grade the network can
     give (the highest source or tank plus every pump's shut-off head) never regulates."""
-    prv = (net.link_kind == LINK_VALVE) & (net.valve_type == VALVE_PRV)
+    prv = (net.link_kind == LINK_VALVE) & (net.valve_type == VALVE_PRESSURE_REDUCING)
     if not prv.any() or not net.is_fixed.any():
         return
-    pump = (net.link_kind == LINK_PUMP) & np.isfinite(net.pump_a)
+    pump = (net.link_kind == LINK_PUMP) & np.isfinite(net.pump_h0)
     ceiling = float(np.max(net.fixed_head_m[net.is_fixed])) + float(
-        np.sum(net.pump_a[pump] * net.pump_speed[pump] ** 2))
+        np.sum(net.pump_h0[pump] * net.pump_speed[pump] ** 2))
     grade = net.elevation_m[net.to_idx] + net.valve_setting
     hi = prv & (grade > ceiling)
     ctx.findings.add_many(

@@ -3,8 +3,9 @@
 Valves and pumps are zero-length links between their two coincident nodes, from the side
 upstream of their action to the side downstream (against the main's digitised direction where
 ``fields.direction`` says so). A PRV needs a setting (a pressure) and a throttle valve a loss
-coefficient; a pump needs a design point or three curve points: where missing, an error
-finding says how it is modelled instead.
+coefficient; a pump needs three curve points or a design point with a shut-off head (mapped,
+or assumed by ``solver.pump_shutoff_ratio`` with a warning): where missing, an error finding
+says how it is modelled instead.
 """
 
 from __future__ import annotations
@@ -17,12 +18,12 @@ from gridflow.network import (
     LINK_PIPE,
     LINK_PUMP,
     LINK_VALVE,
+    STATUS_CHECK,
     STATUS_CLOSED,
-    STATUS_CV,
     STATUS_OPEN,
     VALVE_ISOLATION,
-    VALVE_PRV,
-    VALVE_TCV,
+    VALVE_PRESSURE_REDUCING,
+    VALVE_THROTTLE,
     fit_pump_curve,
 )
 from gridflow.topology.nodes import unique_ids
@@ -108,15 +109,15 @@ def _device_columns(ctx: Context, sn: Snapped, dev: Device, nt: NodeTable) -> di
         f.add_many("valve_setting_missing", "error", layer, ids[bad],
                    "pressure-reducing valve without a setting: modelled as an open valve",
                    pts[bad])
-        vt[prv & ~bad] = VALVE_PRV
+        vt[prv & ~bad] = VALVE_PRESSURE_REDUCING
         tcv = typ == "throttle"
         vs[tcv] = raw[tcv]
         badt = tcv & ~(np.isfinite(vs) & (vs >= 0))
         f.add_many("valve_setting_missing", "error", layer, ids[badt],
                    "throttle valve without a loss coefficient setting: K = 0 used", pts[badt])
         vs[badt] = 0.0
-        vt[tcv] = VALVE_TCV
-        status[(typ == "check") & ~closed] = STATUS_CV
+        vt[tcv] = VALVE_THROTTLE
+        status[(typ == "check") & ~closed] = STATUS_CHECK
     else:
         sp = column(fr, "speed")
         speed = np.where(np.isfinite(sp), sp, 1.0)
@@ -124,11 +125,21 @@ def _device_columns(ctx: Context, sn: Snapped, dev: Device, nt: NodeTable) -> di
         for r in range(m):  # a few pumps per utility: not a hot path
             pts3 = [(column(fr, f"flow_{i}")[r], column(fr, f"head_{i}")[r]) for i in (1, 2, 3)]
             design = (column(fr, "design_flow")[r], column(fr, "design_head")[r])
+            shut = column(fr, "shut_off_head")[r]
             try:
                 if all(np.isfinite(v) for p in pts3 for v in p):
                     a, b_, c_ = fit_pump_curve(pts3, link_id=str(ids[r]))
                 elif all(np.isfinite(design)):
-                    a, b_, c_ = fit_pump_curve([design], link_id=str(ids[r]))
+                    if not np.isfinite(shut):
+                        ratio = ctx.cfg.solver.pump_shutoff_ratio
+                        shut = ratio * design[1]
+                        f.add("pump_shutoff_assumed", "warning", layer, ids[r],
+                              f"pump given by one design point without a shut-off head: "
+                              f"{ratio:g} x the design head assumed (solver.pump_shutoff_ratio);"
+                              " map layers.pumps.fields.shut_off_head for the maker's value",
+                              pts[r])
+                    a, b_, c_ = fit_pump_curve([design], shutoff_head_m=shut,
+                                               link_id=str(ids[r]))
                 else:
                     raise ValueError("no design point or three curve points")
                 pa[r], pb[r], pc[r] = a, b_, c_

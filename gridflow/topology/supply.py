@@ -13,7 +13,7 @@ from gridflow.network import (
     LINK_VALVE,
     NODE_JUNCTION,
     STATUS_CLOSED,
-    VALVE_PRV,
+    VALVE_PRESSURE_REDUCING,
 )
 from gridflow.topology.clean import CleanNetwork
 from gridflow.topology.nearest import nearest_lines
@@ -126,7 +126,7 @@ def pump_grade_findings(ctx: Context, net) -> None:
         return
     zone = pd.Series(net.zone.astype(str))
     grade = pd.Series(net.fixed_head_m).where(net.is_fixed).groupby(zone).max()
-    prv = (net.link_kind == LINK_VALVE) & (net.valve_type == VALVE_PRV)
+    prv = (net.link_kind == LINK_VALVE) & (net.valve_type == VALVE_PRESSURE_REDUCING)
     if prv.any():
         held = pd.Series(net.elevation_m[net.to_idx[prv]] + net.valve_setting[prv]).groupby(
             zone.to_numpy()[net.to_idx[prv]]).max()

@@ -14,7 +14,7 @@ import pandas as pd
 import shapely
 
 from gridflow.findings import Findings
-from gridflow.network import LINK_PUMP, NODE_JUNCTION, STATUS_CLOSED, VALVE_PRV
+from gridflow.network import LINK_PUMP, NODE_JUNCTION, STATUS_CLOSED, VALVE_PRESSURE_REDUCING
 
 __all__ = ["components", "zones_and_parts", "connectivity_findings", "supplied_nodes"]
 
@@ -31,7 +31,8 @@ def components(n: int, a: np.ndarray, b: np.ndarray) -> np.ndarray:
 def zones_and_parts(n: int, frm, to, kind, status, valve_type, speed, link_zone, node_zone,
                     zone_mapped: bool) -> np.ndarray:
     """Zone name per node (see the module notes)."""
-    inner = (status != STATUS_CLOSED) & (valve_type != VALVE_PRV) & (kind != LINK_PUMP)
+    inner = ((status != STATUS_CLOSED) & (valve_type != VALVE_PRESSURE_REDUCING)
+             & (kind != LINK_PUMP))
     comp = components(n, frm[inner], to[inner])
     ncomp = int(comp.max()) + 1 if n else 0
     names = np.full(ncomp, None, dtype=object)

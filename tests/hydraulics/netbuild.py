@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from gridflow.hydraulics.headloss import hw_resistance, minor_coefficient
+from gridflow.hydraulics.results import OPEN, REGULATING
 from gridflow.network import LINK_PIPE, LINK_PUMP, Network
 
 NAN = float("nan")
@@ -17,10 +18,10 @@ def net(nodes, links, **kw) -> Network:
     pos = {v: i for i, v in enumerate(ids)}
     cols = {}
     fields = ("link_kind", "length_m", "diameter_m", "roughness", "minor_k", "status",
-              "valve_type", "valve_setting", "pump_a", "pump_b", "pump_c", "pump_speed")
+              "valve_type", "valve_setting", "pump_h0", "pump_h1", "pump_h2", "pump_speed")
     defaults = {"link_kind": LINK_PIPE, "length_m": 0.0, "diameter_m": NAN, "roughness": NAN,
                 "minor_k": 0.0, "status": 0, "valve_type": 0, "valve_setting": NAN,
-                "pump_a": NAN, "pump_b": NAN, "pump_c": NAN, "pump_speed": 1.0}
+                "pump_h0": NAN, "pump_h1": NAN, "pump_h2": NAN, "pump_speed": 1.0}
     for f in fields:
         cols[f] = [lk.get(f, defaults[f]) for lk in links]
     return Network.from_arrays(
@@ -54,29 +55,62 @@ def independent_headloss(network: Network, q: np.ndarray) -> np.ndarray:
     hl[k] += minor_coefficient(network.minor_k[k], network.diameter_m[k]) * q[k] * np.abs(q[k])
     pu = (network.link_kind == LINK_PUMP) & (network.pump_speed > 0)
     s = network.pump_speed[pu]
-    hl[pu] = -(s**2 * network.pump_a[pu] - network.pump_b[pu] * s ** (2 - network.pump_c[pu])
-               * np.abs(q[pu]) ** network.pump_c[pu])
+    qp = q[pu]
+    # the quadratic pump curve with the affinity laws: H = s^2 h0 + s h1 q + h2 q|q|
+    hl[pu] = -(s**2 * network.pump_h0[pu] + s * network.pump_h1[pu] * qp
+               + network.pump_h2[pu] * qp * np.abs(qp))
     return hl
 
 
 def assert_physics(network: Network, r, *, mass_tol=1e-6, head_tol=1e-3, skip_links=()):
-    """Mass balance at every unknown-head supplied node, head loss on every open link."""
-    q = r.flow_m3s
-    nn = network.n_nodes
-    inflow = (np.bincount(network.to_idx, weights=q, minlength=nn)
-              - np.bincount(network.from_idx, weights=q, minlength=nn))
-    free = r.supplied & ~network.is_fixed
-    # nodes pinned by an active PRV are excluded: their balance sets the PRV flow
-    active = r.link_state == 2
-    free[network.to_idx[active]] = True  # the PRV flow balances them exactly
-    bal = inflow[free] - r.demand_m3s[free]
-    assert np.max(np.abs(bal), initial=0) < mass_tol, f"mass imbalance {np.max(np.abs(bal))}"
-    open_ = (r.link_state == 0) & r.supplied[network.from_idx] & r.supplied[network.to_idx]
+    """Mass balance at every unknown-head supplied node, head loss on every open link, by the
+    solvers' residual function with the head-loss law of the plain published formulas."""
+    from gridflow.hydraulics.assembly import checked_sets, residuals
+    from gridflow.hydraulics.results import CLOSED
+
+    free, open_ = checked_sets(r.link_state, r.supplied, network.is_fixed, network.from_idx,
+                               network.to_idx)
     for i in skip_links:
         open_[i] = False
-    hl = independent_headloss(network, q)
-    dh = r.head_m[network.from_idx] - r.head_m[network.to_idx]
-    err = np.abs(hl - dh)[open_]
-    assert np.max(err, initial=0) < head_tol, f"head-loss residual {np.max(err)}"
-    closed = r.link_state == 1
-    assert np.all(q[closed] == 0)
+    res = residuals(lambda q: (independent_headloss(network, q), None), r.flow_m3s, r.head_m,
+                    fr=network.from_idx, to=network.to_idx, free=free, conducting=open_,
+                    delivered=r.demand_m3s)
+    assert res.max_mass < mass_tol, f"mass imbalance {res.max_mass}"
+    assert res.max_error < head_tol, f"head-loss residual {res.max_error}"
+    closed = r.link_state == CLOSED
+    assert np.all(r.flow_m3s[closed] == 0)
+
+
+def root_reference(n, r0):
+    """Solve the same equations with scipy.optimize.root, statuses taken from r0."""
+    nn, nl = n.n_nodes, n.n_links
+    free = ~n.is_fixed & r0.supplied
+    active = r0.link_state == REGULATING
+    pinned = np.zeros(nn, bool)
+    pinned[n.to_idx[active]] = True
+    hfree = free & ~pinned
+    open_ = (r0.link_state == OPEN) & r0.supplied[n.from_idx] & r0.supplied[n.to_idx]
+    H0 = np.where(n.is_fixed, n.fixed_head_m, 0.0)
+    H0[pinned] = n.elevation_m[pinned] + n.valve_setting[active]
+    fi = np.flatnonzero(hfree)
+
+    def F(x):
+        q = x[:nl]
+        H = H0.copy()
+        H[fi] = x[nl:]
+        hl = independent_headloss(n, q)
+        e = np.where(open_, hl - (H[n.from_idx] - H[n.to_idx]), q)
+        e = np.where(active, 0.0, e)
+        # active PRVs: the flow balances the pinned node
+        inflow = (np.bincount(n.to_idx, weights=q, minlength=nn)
+                  - np.bincount(n.from_idx, weights=q, minlength=nn))
+        mass = inflow - np.where(r0.supplied, n.demand_m3s, 0.0)
+        e[active] = mass[n.to_idx[active]]
+        return np.concatenate([e, mass[fi]])
+
+    from scipy.optimize import root
+
+    x0 = np.concatenate([r0.flow_m3s * 1.1 + 1e-3, r0.head_m[fi] + 0.5])
+    sol = root(F, x0, method="hybr", options={"xtol": 1e-12})
+    assert sol.success, sol.message
+    return sol.x[:nl], sol.x[nl:], fi

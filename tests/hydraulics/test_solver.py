@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from scipy.optimize import root
 
 from gridflow.errors import ConvergenceError, NetworkError, SolverError
 from gridflow.hydraulics import SolveOptions, solve
@@ -13,15 +12,16 @@ from gridflow.hydraulics.solver import smooth_sqrt_ramp
 from gridflow.network import (
     LINK_PUMP,
     LINK_VALVE,
+    STATUS_CHECK,
     STATUS_CLOSED,
-    STATUS_CV,
-    VALVE_PRV,
-    VALVE_TCV,
+    VALVE_PRESSURE_REDUCING,
+    VALVE_THROTTLE,
     fit_pump_curve,
 )
 from gridflow.units import FT, INCH, US_GALLON
 
-from .netbuild import NAN, assert_physics, independent_headloss, net, pipe
+from .netbuild import NAN, assert_physics, net, pipe
+from .netbuild import root_reference as _root_reference
 
 GPM = US_GALLON / 60
 TIGHT = SolveOptions(head_tolerance=1e-9, flow_tolerance=1e-12)
@@ -63,7 +63,6 @@ def test_loss_proportional_to_length_and_diameter_power():
 
     assert loss(800, 0.2) / loss(400, 0.2) == pytest.approx(2.0, rel=1e-6)
     assert loss(400, 0.2 * 2 / 3) / loss(400, 0.2) == pytest.approx(1.5**4.87, rel=1e-6)
-    assert 1.5**4.87 == pytest.approx(7.2, abs=0.05)
 
 
 def test_pipes_in_series_and_parallel_closed_form():
@@ -146,17 +145,43 @@ def test_sudden_expansion_k_borda_carnot():
 
 
 # ---------------------------------------------------------------- pumps
-def test_pump_curve_one_point_and_operating_point():
-    a, b, c = fit_pump_curve([(0.05, 40.0)])
-    assert (a, c) == (pytest.approx(160 / 3), 2.0)
+def _pump(a, b, c, **kw):
+    return {"id": "PU", "fr": "W", "to": "A", "link_kind": LINK_PUMP, "pump_h0": a,
+            "pump_h1": b, "pump_h2": c, **kw}
+
+
+def test_pump_curve_one_point_needs_a_shut_off_head():
+    # one design point and a shut-off head: H = h0 - (h0 - h_d) (q / q_d)^2, flat at shut-off
+    h0, h1, h2 = fit_pump_curve([(0.05, 40.0)], shutoff_head_m=50.0)
+    assert (h0, h1) == (50.0, 0.0)
+    assert h0 + h2 * 0.05**2 == pytest.approx(40.0, rel=1e-12)
+    with pytest.raises(NetworkError, match="shut-off head"):
+        fit_pump_curve([(0.05, 40.0)], link_id="PU1")
+    with pytest.raises(NetworkError, match="shut-off head"):
+        fit_pump_curve([(0.05, 40.0)], shutoff_head_m=39.0)
+
+
+def test_pump_curve_three_points_exact():
+    pts = [(0.0, 60.0), (0.04, 50.0), (0.08, 30.0)]
+    c = fit_pump_curve(pts)
+    for q, h in pts:  # the quadratic passes through every given point
+        assert c.head(q) == pytest.approx(h, abs=1e-9)
+    # cross-check by numpy's least squares on the same three points (exact for a quadratic)
+    ref = np.polyfit([q for q, _ in pts], [h for _, h in pts], 2)
+    assert (c[2], c[1], c[0]) == pytest.approx(tuple(ref), rel=1e-9)
+    c2 = fit_pump_curve([(0.01, 58.0), (0.04, 50.0), (0.08, 30.0)])  # none at shut-off
+    assert c2.head(0.01) == pytest.approx(58.0) and c2.head(0.08) == pytest.approx(30.0)
+
+
+def test_pump_operating_point():
+    a, b, c = fit_pump_curve([(0.05, 40.0)], shutoff_head_m=52.0)
     n = net([("W", 0, 0, 10.0), ("A", 0, 0, None), ("T", 40, 0, 45.0)],
-            [{"id": "PU", "fr": "W", "to": "A", "link_kind": LINK_PUMP, "pump_a": a, "pump_b": b,
-              "pump_c": c}, pipe("P", "A", "T", 1000, 0.2)])
+            [_pump(a, b, c), pipe("P", "A", "T", 1000, 0.2)])
     r = solve(n)
     q = r.flow_m3s[0]
     # operating point: pump gain = static lift + pipe loss
-    assert a - b * q**c == pytest.approx(35.0 + hw_resistance(1000, 0.2, 120) * q**1.852,
-                                         abs=1e-4)
+    assert a + b * q + c * q * q == pytest.approx(
+        35.0 + hw_resistance(1000, 0.2, 120) * q**1.852, abs=1e-4)
     assert_physics(n, r)
 
 
@@ -165,23 +190,23 @@ def test_pump_speed_affinity_and_off():
     base = [("W", 0, 0, 0.0), ("A", 0, 0, None), ("T", 0, 0, 20.0)]
 
     def links(speed):
-        return [{"id": "PU", "fr": "W", "to": "A", "link_kind": LINK_PUMP, "pump_a": a,
-                 "pump_b": b, "pump_c": c, "pump_speed": speed}, pipe("P", "A", "T", 500, 0.25)]
+        return [_pump(a, b, c, pump_speed=speed), pipe("P", "A", "T", 500, 0.25)]
 
     r1 = solve(net(base, links(1.0)))
     r9 = solve(net(base, links(0.9)))
     assert r9.flow_m3s[0] < r1.flow_m3s[0]
     q = r9.flow_m3s[0]
-    assert -r9.headloss_m[0] == pytest.approx(0.81 * a - b * 0.9 ** (2 - c) * q**c, abs=1e-4)
+    # affinity laws: H_s(q) = s^2 H(q / s)
+    assert -r9.headloss_m[0] == pytest.approx(0.81 * (a + b * (q / 0.9) + c * (q / 0.9) ** 2),
+                                              abs=1e-4)
     r0 = solve(net(base, links(0.0)))
     assert r0.flow_m3s[0] == 0 and r0.link_state[0] == 1
 
 
 def test_pump_that_cannot_lift_closes():
-    a, b, c = fit_pump_curve([(0.02, 20.0)])  # shut-off 26.7 m, tank 40 m above
+    a, b, c = fit_pump_curve([(0.02, 20.0)], shutoff_head_m=26.0)  # tank 40 m above
     n = net([("W", 0, 0, 0.0), ("A", 0, 0.0, None), ("T", 0, 0, 40.0)],
-            [{"id": "PU", "fr": "W", "to": "A", "link_kind": LINK_PUMP, "pump_a": a, "pump_b": b,
-              "pump_c": c}, pipe("P", "A", "T", 100, 0.2)])
+            [_pump(a, b, c), pipe("P", "A", "T", 100, 0.2)])
     r = solve(n)
     assert r.link_state[0] == 1 and r.flow_m3s[0] == 0
     assert r.head_m[1] == pytest.approx(40.0, abs=1e-6)
@@ -190,19 +215,21 @@ def test_pump_that_cannot_lift_closes():
 def test_rising_pump_curve_is_an_error():
     with pytest.raises(NetworkError, match="must fall"):
         fit_pump_curve([(0, 30.0), (0.02, 35.0), (0.04, 20.0)], link_id="PU7")
+    with pytest.raises(NetworkError, match="does not fall"):  # a hump: rises from shut-off
+        fit_pump_curve([(0, 30.0), (0.02, 29.9), (0.04, 20.0)], link_id="PU8")
 
 
 # ---------------------------------------------------------------- valves
 def test_check_valve_blocks_reverse_flow():
     # two reservoirs, the check valve pipe points from low to high: no flow
     n = net([("L", 0, 0, 10.0), ("J", 0, 0.0, None), ("H", 0, 0, 30.0)],
-            [pipe("CV", "L", "J", 100, 0.2, status=STATUS_CV), pipe("P", "H", "J", 100, 0.2)])
+            [pipe("CV", "L", "J", 100, 0.2, status=STATUS_CHECK), pipe("P", "H", "J", 100, 0.2)])
     r = solve(n)
     assert r.link_state[0] == 1 and r.flow_m3s[0] == 0
     assert r.head_m[1] == pytest.approx(30.0)
     # reversed orientation: flows
     n = net([("L", 0, 0, 10.0), ("J", 0, 0.0, None), ("H", 0, 0, 30.0)],
-            [pipe("CV", "J", "L", 100, 0.2, status=STATUS_CV), pipe("P", "H", "J", 100, 0.2)])
+            [pipe("CV", "J", "L", 100, 0.2, status=STATUS_CHECK), pipe("P", "H", "J", 100, 0.2)])
     r = solve(n)
     assert r.link_state[0] == 0 and r.flow_m3s[0] > 0
     assert_physics(n, r)
@@ -225,7 +252,7 @@ def _prv_net(h_source, setting, demand=0.02):
                 ("J", 0, demand, None)],
                [pipe("1", "R", "U", 500, 0.2),
                 {"id": "PRV", "fr": "U", "to": "D", "link_kind": LINK_VALVE, "diameter_m": 0.2,
-                 "valve_type": VALVE_PRV, "valve_setting": setting, "minor_k": 0.5},
+                 "valve_type": VALVE_PRESSURE_REDUCING, "valve_setting": setting, "minor_k": 0.5},
                 pipe("2", "D", "J", 300, 0.15)])
 
 
@@ -251,7 +278,7 @@ def test_prv_closes_against_reverse_flow():
     n = net([("R", 0, 0, 60.0), ("U", 0, 0, None), ("D", 0, 0.0, None), ("H", 0, 0, 90.0)],
             [pipe("1", "R", "U", 500, 0.2),
              {"id": "PRV", "fr": "U", "to": "D", "link_kind": LINK_VALVE, "diameter_m": 0.2,
-              "valve_type": VALVE_PRV, "valve_setting": 40.0},
+              "valve_type": VALVE_PRESSURE_REDUCING, "valve_setting": 40.0},
              pipe("2", "H", "D", 300, 0.15)])
     r = solve(n)
     assert r.link_state[1] == 1 and r.flow_m3s[1] == 0
@@ -262,7 +289,7 @@ def test_throttle_valve_fixed_k():
     k, D = 12.0, 0.15
     n = net([("A", 0, 0, 30.0), ("B", 0, 0, 25.0)],
             [{"id": "TV", "fr": "A", "to": "B", "link_kind": LINK_VALVE, "diameter_m": D,
-              "valve_type": VALVE_TCV, "valve_setting": k}])
+              "valve_type": VALVE_THROTTLE, "valve_setting": k}])
     r = solve(n, options=TIGHT)
     v = r.flow_m3s[0] / (np.pi * D**2 / 4)
     assert k * v**2 / (2 * 9.80665) == pytest.approx(5.0, rel=1e-6)
@@ -326,51 +353,18 @@ def test_nonconvergence_names_worst_node_and_link():
 
 
 # ---------------------------------------------------------------- against a root finder
-def _root_reference(n, r0):
-    """Solve the same equations with scipy.optimize.root, statuses taken from r0."""
-    nn, nl = n.n_nodes, n.n_links
-    free = ~n.is_fixed & r0.supplied
-    active = r0.link_state == 2
-    pinned = np.zeros(nn, bool)
-    pinned[n.to_idx[active]] = True
-    hfree = free & ~pinned
-    open_ = r0.link_state == 0
-    H0 = np.where(n.is_fixed, n.fixed_head_m, 0.0)
-    H0[pinned] = n.elevation_m[pinned] + n.valve_setting[active]
-    fi = np.flatnonzero(hfree)
-
-    def F(x):
-        q = x[:nl]
-        H = H0.copy()
-        H[fi] = x[nl:]
-        hl = independent_headloss(n, q)
-        e = np.where(open_, hl - (H[n.from_idx] - H[n.to_idx]), q)
-        e = np.where(active, 0.0, e)
-        # active PRVs: the flow balances the pinned node
-        inflow = (np.bincount(n.to_idx, weights=q, minlength=nn)
-                  - np.bincount(n.from_idx, weights=q, minlength=nn))
-        mass = inflow - n.demand_m3s
-        e[active] = mass[n.to_idx[active]]
-        return np.concatenate([e, mass[fi]])
-
-    x0 = np.concatenate([r0.flow_m3s * 1.1 + 1e-3, r0.head_m[fi] + 0.5])
-    sol = root(F, x0, method="hybr", options={"xtol": 1e-12})
-    assert sol.success, sol.message
-    return sol.x[:nl], sol.x[nl:], fi
-
-
 def test_against_scipy_root_with_pump_check_valve_and_prv():
-    a, b, c = fit_pump_curve([(0.03, 45.0)])
+    a, b, c = fit_pump_curve([(0.03, 45.0)], shutoff_head_m=56.0)
     n = net([("W", 0, 0, 20.0), ("A", 5, 0.004, None), ("B", 12, 0.006, None),
              ("C", 8, 0.005, None), ("T", 50, 0, 58.0), ("U", 3, 0.0, None),
              ("D", -5, 0.0, None), ("E", -8, 0.007, None)],
-            [{"id": "PU", "fr": "W", "to": "A", "link_kind": LINK_PUMP, "pump_a": a, "pump_b": b,
-              "pump_c": c},
+            [{"id": "PU", "fr": "W", "to": "A", "link_kind": LINK_PUMP, "pump_h0": a, "pump_h1": b,
+              "pump_h2": c},
              pipe("1", "A", "B", 400, 0.2), pipe("2", "B", "C", 300, 0.15),
-             pipe("3", "A", "C", 500, 0.15), pipe("4", "C", "T", 600, 0.2, status=STATUS_CV),
+             pipe("3", "A", "C", 500, 0.15), pipe("4", "C", "T", 600, 0.2, status=STATUS_CHECK),
              pipe("5", "T", "B", 800, 0.2), pipe("6", "C", "U", 200, 0.15),
              {"id": "PRV", "fr": "U", "to": "D", "link_kind": LINK_VALVE, "diameter_m": 0.15,
-              "valve_type": VALVE_PRV, "valve_setting": 35.0},
+              "valve_type": VALVE_PRESSURE_REDUCING, "valve_setting": 35.0},
              pipe("7", "D", "E", 300, 0.1)])
     r = solve(n, options=SolveOptions(head_tolerance=1e-8, flow_tolerance=1e-10))
     assert_physics(n, r, mass_tol=1e-9, head_tol=1e-6)

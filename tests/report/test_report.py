@@ -516,3 +516,98 @@ def test_browser_interactive_map(run_us, report_us, tmp_path):
         assert others == [], f"the page fetched {others}"
     finally:
         b.close()
+
+
+def _segments_frame(data, net):
+    """Two invented valve segments over the test town's mains: one whose closure cuts off
+    others, one oversized; geometry from the network's node coordinates."""
+    import geopandas as gpd
+    import shapely
+
+    xy = np.asarray(data.node_xy)
+    parts = [shapely.linestrings(xy[[net.from_idx[k], net.to_idx[k]]]) for k in range(4)]
+    geoms = [shapely.multilinestrings(parts[:2]), shapely.multilinestrings(parts[2:])]
+    return gpd.GeoDataFrame({
+        "segment_id": ["SEG-1", "SEG-2"], "valve_ids": ["V1, V2", "V3"], "valves": [2, 1],
+        "length_ft": [500.0, 2400.0], "meters": [3, 140], "cut_off_segments": [2, 0],
+        "cut_off_meters": [9, 0], "oversized": [0, 1], "cannot_isolate": [0, 0],
+        "meters_out_of_water": [12.0, 140.0], "meters_low_pressure": [0.0, 4.0],
+        "criticality_rank": [2.0, 1.0]}, geometry=geoms, crs="EPSG:26918"), parts
+
+
+def test_map_payload_carries_segments_to_look_at(run_us):
+    """The map's segment layer: each segment's lines are its geometry shifted to the map's
+    origin (simplified by at most 2 m), and its kind says why it is shown."""
+    from dataclasses import replace
+
+    from gridflow.report.interactive import map_payload
+
+    data, _, _, net = run_us
+    frame, parts = _segments_frame(data, net)
+    payload = map_payload(replace(data, segments=frame))
+    seg = payload["segments"]
+    assert seg["id"] == ["SEG-1", "SEG-2"] and seg["kind"] == ["cuts_off", "oversized"]
+    x0, y0 = np.asarray(data.node_xy).min(axis=0)
+    for k, lines in enumerate(seg["lines"]):
+        want = np.vstack([np.asarray(p.coords) for p in parts[2 * k:2 * k + 2]]) - [x0, y0]
+        got = np.vstack([np.reshape(line, (-1, 2)) for line in lines])
+        assert np.abs(got - want).max() <= 2.05
+    assert payload["flowTests"] is None  # none mapped: no layer
+
+
+def test_browser_map_draws_the_segment_layer(run_us, tmp_path):
+    """With segments, the map offers their layer; turning it on and opening a segment's
+    popup works without a script error."""
+    from dataclasses import replace
+
+    data, _, _, net = run_us
+    frame, _ = _segments_frame(data, net)
+    html_path = write_report(tmp_path / "seg.html", replace(data, segments=frame))
+    b = _browser(tmp_path)
+    try:
+        for domain in ("Page", "Runtime"):
+            b.page(f"{domain}.enable")
+        b.page("Page.navigate", url=html_path.as_uri())
+        b.wait_event("Page.loadEventFired")
+        labels = b.js("""[...document.querySelectorAll('.leaflet-control-layers label')]
+            .map(e => e.textContent.trim())""")
+        assert "Valve segments to look at" in labels
+        pop = b.js("""(() => {
+            const g = gridflowMap.layers.overlays['Valve segments to look at'];
+            g.addTo(gridflowMap.map);
+            const line = g.getLayers()[0];
+            line.openPopup();
+            const p = document.querySelector('.leaflet-popup-content .gf-pop');
+            return p ? [p.dataset.kind, p.dataset.id, p.textContent] : null; })()""")
+        assert pop is not None and pop[0] == "segment" and pop[1] == "SEG-1"
+        assert "cuts off other customers" in pop[2]
+        errors = [e for e in b.log if e.get("method") == "Runtime.exceptionThrown"]
+        assert errors == []
+    finally:
+        b.close()
+
+
+def test_fire_tables_count_in_service_hydrants_and_limiting_nodes():
+    import pandas as pd
+
+    from gridflow.report.fireflow import in_service, limiting_nodes_table
+
+    hyd = pd.DataFrame({
+        "hydrant_id": ["H1", "H2", "H3", "H4", "H5"],
+        "zone": ["N", "N", "N", "S", "N"],
+        "in_service": [1, 1, 1, 1, 0],
+        "limited_by": ["node_pressure", "node_pressure", "residual", "node_pressure",
+                       "out_of_service"],
+        "limiting_node_id": ["J7", "J7", "J1", "J9", ""],
+    })
+    ins = in_service(hyd)
+    assert ins is not None and ins["hydrant_id"].tolist() == ["H1", "H2", "H3", "H4"]
+
+    class D:
+        hydrants = ins
+
+    table = limiting_nodes_table(D())  # type: ignore[arg-type]
+    assert table is not None
+    assert table.frame[["zone", "limiting_node_id", "hydrants"]].values.tolist() == [
+        ["N", "J7", 2], ["S", "J9", 1]]
+    assert table.frame["hydrant_ids"].iloc[0] == "H1, H2"

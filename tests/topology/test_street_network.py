@@ -18,7 +18,13 @@ from scipy.spatial import cKDTree
 
 from gridflow.config import parse_config
 from gridflow.findings import Findings
-from gridflow.network import LINK_PIPE, LINK_PUMP, LINK_VALVE, STATUS_CLOSED, VALVE_PRV
+from gridflow.network import (
+    LINK_PIPE,
+    LINK_PUMP,
+    LINK_VALVE,
+    STATUS_CLOSED,
+    VALVE_PRESSURE_REDUCING,
+)
 from gridflow.topology import build_network
 from tests.topology.street_town import build, config_table
 
@@ -137,7 +143,7 @@ def test_zones_separated_by_their_boundary_valves(town, cleaned):
     kinds = net.link_kind[across]
     assert np.all((kinds == LINK_PUMP) | (kinds == LINK_VALVE))
     v = across & (net.link_kind == LINK_VALVE)
-    assert np.all((net.status[v] == STATUS_CLOSED) | (net.valve_type[v] == VALVE_PRV))
+    assert np.all((net.status[v] == STATUS_CLOSED) | (net.valve_type[v] == VALVE_PRESSURE_REDUCING))
     ids = set(net.link_id[across].tolist())
     assert set(town.prv_ids) | {town.pump_id} <= ids
     # the booster is digitised against the flow; the mapped direction makes it lift from the

@@ -164,6 +164,56 @@
     return g;
   }
 
+  var SEG_COLORS = {cuts_off: "#d55e00", oversized: "#e69f00", cannot_isolate: "#78288c",
+                    critical: "#0072b2"};
+  var SEG_WORDS = {cuts_off: "closing it cuts off other customers",
+                   oversized: "larger than the size bounds",
+                   cannot_isolate: "no valve can isolate it", critical: "among the most critical"};
+  function segmentPopup(S, i) {
+    return '<div class="gf-pop" data-kind="segment" data-id="' + esc(S.id[i]) +
+      '"><b>segment ' + esc(S.id[i]) + "</b> (" + esc(SEG_WORDS[S.kind[i]]) + ")<table>" +
+      "<tr><th>isolating valves</th><td>" + esc(S.valves[i]) + "</td></tr>" +
+      "<tr><th>main [" + esc(U.len) + "]</th><td>" + num(S.length[i]) + "</td></tr>" +
+      "<tr><th>meters</th><td>" + num(S.meters[i]) + "</td></tr>" +
+      "<tr><th>segments also cut off</th><td>" + num(S.cutOff[i]) + " (" +
+      num(S.cutMeters[i]) + " meters)</td></tr>" +
+      "<tr><th>meters out of water / below minimum</th><td>" + num(S.out[i]) + " / " +
+      num(S.low[i]) + "</td></tr><tr><th>criticality rank</th><td>" + num(S.rank[i]) +
+      "</td></tr></table><i>From the valves as mapped.</i></div>";
+  }
+  function segmentsLayer() {
+    var g = L.layerGroup(), S = D.segments;
+    if (!S) { return g; }
+    for (var i = 0; i < S.id.length; i++) {
+      var parts = S.lines[i].map(function (flat) {
+        var pts = [];
+        for (var j = 0; j + 1 < flat.length; j += 2) { pts.push(ll(flat[j], flat[j + 1])); }
+        return pts;
+      });
+      L.polyline(parts, {color: SEG_COLORS[S.kind[i]] || "#0072b2", weight: 5, opacity: 0.8})
+        .bindPopup(segmentPopup.bind(null, S, i), {maxWidth: 420}).addTo(g);
+    }
+    return g;
+  }
+  function flowTestsLayer() {
+    var g = L.layerGroup(), T = D.flowTests;
+    if (!T) { return g; }
+    for (var i = 0; i < T.id.length; i++) {
+      L.circleMarker(ll(T.x[i], T.y[i]), {
+        radius: 8, weight: 3, color: T.out[i] ? "#d55e00" : "#009e73", fillColor: "#ffffff",
+        fillOpacity: 1})
+        .bindPopup('<div class="gf-pop" data-kind="flow_test" data-id="' + esc(T.id[i]) +
+          '"><b>flow test ' + esc(T.id[i]) + "</b><table><tr><th>field residual [" +
+          esc(U.pressure) + "]</th><td>" + num(T.fieldResidual[i]) + "</td></tr>" +
+          "<tr><th>model residual</th><td>" + num(T.modelResidual[i]) + "</td></tr>" +
+          "<tr><th>model minus field</th><td>" + num(T.diff[i]) + "</td></tr>" +
+          "<tr><th>out of tolerance</th><td>" + (T.out[i] ? "yes" : "no") + "</td></tr>" +
+          (T.problem[i] ? "<tr><th>left out</th><td>" + esc(T.problem[i]) + "</td></tr>" : "") +
+          "</table></div>").addTo(g);
+    }
+    return g;
+  }
+
   var all = [];
   for (var k = 0; k < D.mains.id.length; k++) { all.push(k); }
   var base = {}, overlays = {};
@@ -173,6 +223,8 @@
   overlays["Flagged mains"] = mainsLayer(D.mains.flagged, true);
   overlays["Fire-flow classes"] = hydrantLayer();
   overlays["Findings"] = findingsLayer();
+  if (D.segments) { overlays["Valve segments to look at"] = segmentsLayer(); }
+  if (D.flowTests) { overlays["Field flow tests"] = flowTestsLayer(); }
   overlays["Mains"].addTo(map);
   pressure[0].addTo(map);
   overlays["Flagged mains"].addTo(map);
