@@ -27,6 +27,7 @@ import shapely
 from gridflow.errors import ConfigError, InputError
 from gridflow.findings import Findings
 from gridflow.network.model import LINK_PIPE, NODE_JUNCTION, STATUS_CLOSED, Network
+from gridflow.topology.nearest import nearest_lines
 from gridflow.units import FLOW, out_field, to_si
 
 __all__ = ["DemandAllocation", "ZoneCategoryTotal", "allocate", "run_info_rows"]
@@ -424,8 +425,7 @@ def _allocate_meters(ctx: _Context, clean, meters, replaced: set[str]) -> _Meter
         if len(cand) == 0:
             continue
         tree = shapely.STRtree(lines[cand])
-        (q, t), d = tree.query_nearest(pts[sel], max_distance=max_distance,
-                                       return_distance=True, all_matches=False)
+        q, t, d = nearest_lines(tree, lines[cand], pts[sel], max_distance)
         link_idx[sel[q]] = cand[t]
         dist[sel[q]] = d
 
@@ -477,7 +477,7 @@ def _report_unallocated(ctx, k, ids, pts, lines, any_main, eligible, link_zone, 
                                for i in ids[k]], pts[k].tolist())
         return
     tree = shapely.STRtree(lines[mains])
-    (q, t), d = tree.query_nearest(pts[k], return_distance=True, all_matches=False)
+    q, t, d = nearest_lines(tree, lines[mains], pts[k])
     near = np.full(len(k), -1, dtype=np.int64)
     near_d = np.full(len(k), np.nan)
     near[q] = mains[t]
