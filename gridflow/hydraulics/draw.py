@@ -242,13 +242,22 @@ class DrawSolver:
         # plain sums, not BLAS dot products: those can stall on a busy machine (thread sync)
         work = float(np.sum(dfs * (hn[fr[sel]] - hn[to[sel]])))
         a = 1.0
+        # far from the base flows the head losses along the step grow as a power n of a
+        # (the friction law's exponent), so Newton's method runs on T(a)^(1/n) = work^(1/n)
+        # with T(a) = phi(a) + work: exact in one step for a pure power (on phi itself it
+        # only halves a per step when the linear step overshoots by orders of magnitude)
+        inv_n = 1.0 / float(self.sys.laws.flow_exponent)
         for _ in range(8):
             hl, g = self._headloss_sel(qs + a * dfs, sel)
-            phi = float(np.sum(dfs * hl)) - work
+            total = float(np.sum(dfs * hl))
+            phi = total - work
             dphi = float(np.sum(dfs * dfs * g))
             if not dphi > 0:
                 return 1.0
-            step = phi / dphi
+            if total > 0 and work > 0:
+                step = (total ** inv_n - work ** inv_n) / (inv_n * total ** (inv_n - 1.0) * dphi)
+            else:
+                step = phi / dphi
             a_new = min(1.0, max(0.05 * a, a - step))
             if abs(a_new - a) <= 1e-3 * a:
                 a = a_new
