@@ -1,9 +1,10 @@
-"""Unit conversion at the edges.
+"""Unit conversion at the edges: every factor derived once from pint.
 
 Inside gridflow everything is SI: metres, cubic metres per second, metres of head. User units
-are converted once on read and once on write. The factors below are exact definitions
-(international foot and inch, US gallon) or derive from them with standard gravity and the
-density of water at 4 degC; ``tests/test_units.py`` checks every one against ``pint``.
+are converted once on read and once on write. Each factor below is computed once, when this
+module is imported, from pint's definitions (international foot and inch, US gallon, standard
+gravity) and kept as a plain float for the hot paths; :func:`ureg` is the one registry, shared
+with the config parser. No other module types a conversion factor.
 
 Pressure in metres of water column uses ``rho g`` of water at about 4 degC (9.80665 kPa per m),
 the usual convention in distribution-system modelling (common practice).
@@ -11,50 +12,80 @@ the usual convention in distribution-system modelling (common practice).
 
 from __future__ import annotations
 
+from functools import lru_cache
 from typing import Literal
 
 import numpy as np
 
 UnitSystem = Literal["US", "SI"]
 
-G = 9.80665  # standard gravity [m/s2]
-RHO_WATER = 1000.0  # [kg/m3], nominal
-NU_WATER_20C = 1.004e-6  # kinematic viscosity at 20 degC [m2/s]
 
-FT = 0.3048
-INCH = 0.0254
-US_GALLON = 3.785411784e-3  # m3
-PSI_PA = 6894.757293168361
+@lru_cache(maxsize=1)
+def ureg():
+    """gridflow's pint registry (with the trade's flow and speed abbreviations)."""
+    import pint
+
+    reg = pint.UnitRegistry()
+    reg.define("gpm = gallon / minute")
+    reg.define("gpd = gallon / day")
+    reg.define("mgd = 1e6 gallon / day")
+    reg.define("lps = liter / second")
+    reg.define("fps = foot / second")
+    reg.define("mps = meter / second")
+    reg.define("kft = 1000 foot")
+    return reg
+
+
+def factor(unit: str, to: str) -> float:
+    """How many ``to`` one ``unit`` is, from pint (e.g. ``factor('ft', 'm')`` = 0.3048)."""
+    return float(ureg().parse_expression(unit).to(to).magnitude)
+
+
+G = factor("standard_gravity", "m/s**2")  # 9.80665 [m/s2]
+RHO_WATER = 1000.0  # [kg/m3], nominal (common practice)
+NU_WATER_20C = 1.004e-6  # kinematic viscosity at 20 degC [m2/s] (from memory)
+
+FT = factor("ft", "m")
+INCH = factor("inch", "m")
+US_GALLON = factor("gallon", "m**3")
+GPM = factor("gpm", "m**3/s")  # m3/s per US gallon per minute
+PSI_PA = factor("psi", "Pa")
 KPA_PER_M_HEAD = RHO_WATER * G / 1000.0  # 9.80665
 M_HEAD_PER_PSI = PSI_PA / (RHO_WATER * G)  # 0.70307 m of water per psi
 
-# factor to SI for each unit name accepted in configs
-LENGTH = {"m": 1.0, "ft": FT, "km": 1000.0, "mi": 1609.344, "in": INCH, "mm": 1e-3, "cm": 1e-2}
-DIAMETER = {"mm": 1e-3, "in": INCH, "m": 1.0, "cm": 1e-2, "ft": FT}
-FLOW = {  # to m3/s
-    "m3/s": 1.0,
-    "l/s": 1e-3,
-    "lps": 1e-3,
-    "gpm": US_GALLON / 60.0,
-    "mgd": 1e6 * US_GALLON / 86400.0,
-    "gpd": US_GALLON / 86400.0,
-    "gal/day": US_GALLON / 86400.0,
-    "m3/h": 1.0 / 3600.0,
-    "m3/day": 1.0 / 86400.0,
-    "m3/d": 1.0 / 86400.0,
-    "l/day": 1e-3 / 86400.0,
-    "ml/day": 1e3 / 86400.0,  # megalitres per day
-    "m3/month": 1.0 / (86400.0 * 365.25 / 12.0),
-    "gal/month": US_GALLON / (86400.0 * 365.25 / 12.0),
-    "m3/year": 1.0 / (86400.0 * 365.25),
-    "gal/year": US_GALLON / (86400.0 * 365.25),
-    "kgal/month": 1000.0 * US_GALLON / (86400.0 * 365.25 / 12.0),
-}
+
+def _table(units: dict[str, str], to: str) -> dict[str, float]:
+    return {name: factor(expr, to) for name, expr in units.items()}
+
+
+# factor to SI for each unit name accepted in configs (name -> pint expression)
+LENGTH = _table({"m": "m", "ft": "ft", "km": "km", "mi": "mile", "in": "inch", "mm": "mm",
+                 "cm": "cm"}, "m")
+DIAMETER = _table({"mm": "mm", "in": "inch", "m": "m", "cm": "cm", "ft": "ft"}, "m")
+FLOW = _table({  # to m3/s; a month is a twelfth of a Julian year (365.25 days)
+    "m3/s": "m**3/s",
+    "l/s": "l/s",
+    "lps": "l/s",
+    "gpm": "gallon/minute",
+    "mgd": "1e6 gallon/day",
+    "gpd": "gallon/day",
+    "gal/day": "gallon/day",
+    "m3/h": "m**3/hour",
+    "m3/day": "m**3/day",
+    "m3/d": "m**3/day",
+    "l/day": "l/day",
+    "ml/day": "megaliter/day",
+    "m3/month": "m**3/month",
+    "gal/month": "gallon/month",
+    "m3/year": "m**3/julian_year",
+    "gal/year": "gallon/julian_year",
+    "kgal/month": "1000 gallon/month",
+}, "m**3/s")
 PRESSURE = {  # to metres of water head
     "m": 1.0,
     "psi": M_HEAD_PER_PSI,
-    "kpa": 1.0 / KPA_PER_M_HEAD,
-    "bar": 100.0 / KPA_PER_M_HEAD,
+    "kpa": factor("kPa", "Pa") / (RHO_WATER * G),
+    "bar": factor("bar", "Pa") / (RHO_WATER * G),
     "ft": FT,
 }
 HEAD = {"m": 1.0, "ft": FT}

@@ -6,7 +6,7 @@ import pyogrio
 import pytest
 from click.testing import CliRunner
 
-from gridflow.cli.main import _register, cli
+from gridflow.cli.main import cli
 from gridflow.errors import OutputError
 from gridflow.io.write import write_geopackage
 
@@ -47,7 +47,6 @@ def project(tmp_path):
 
 
 def _run(*args):
-    _register()
     return CliRunner().invoke(cli, list(map(str, args)))
 
 

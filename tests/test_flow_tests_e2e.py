@@ -17,7 +17,7 @@ import pyogrio
 import pytest
 from click.testing import CliRunner
 
-from gridflow.cli.main import _register, cli
+from gridflow.cli.main import cli
 
 ROOT = Path(__file__).resolve().parents[1]
 SAMPLE = ROOT / "sample_gis"
@@ -39,7 +39,6 @@ def _config(tmp_path: Path, *, table_c: float | None = None) -> Path:
 
 
 def _run(*args):
-    _register()
     return CliRunner().invoke(cli, list(args), catch_exceptions=False)
 
 

@@ -15,7 +15,7 @@ import pyogrio
 import pytest
 from click.testing import CliRunner
 
-from gridflow.cli.main import _register, cli
+from gridflow.cli.main import cli
 from tests import pg_server
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -33,7 +33,6 @@ def server():
 
 
 def _run(*args):
-    _register()
     return CliRunner().invoke(cli, list(args), catch_exceptions=False)
 
 

@@ -13,7 +13,7 @@ import pyogrio
 import pytest
 from click.testing import CliRunner
 
-from gridflow.cli.main import _register, cli
+from gridflow.cli.main import cli
 from gridflow.units import FT, US_GALLON
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -36,7 +36,6 @@ def _config(tmp_path: Path, *, fireflow: bool) -> Path:
 
 
 def _run(*args):
-    _register()
     return CliRunner().invoke(cli, list(args), catch_exceptions=False)
 
 
@@ -271,8 +270,8 @@ def test_nonconvergence_exits_3_with_diagnostics(tmp_path):
     assert res.exit_code == 3, res.output
     assert "did not converge" in res.output
     assert out.read_bytes() == b"last night's results"  # never written over
-    diag = tmp_path / "diag.diagnostics.gpkg"
-    assert str(diag) in res.output
+    diag = out.with_name("diag.diagnostics.gpkg")
+    assert "diag.diagnostics.gpkg" in res.output
     f = pyogrio.read_dataframe(diag, layer="findings", read_geometry=False)
     worst = f[f["kind"] == "not_converged"]
     assert len(worst) == 10 and (worst["severity"] == "error").all()

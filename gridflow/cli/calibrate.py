@@ -4,10 +4,11 @@ from __future__ import annotations
 
 import click
 
-from gridflow.cli.main import cli, config_arg, run_guarded
+from gridflow.cli.guard import run_guarded
+from gridflow.cli.options import config_arg
 
 
-@cli.command()
+@click.command()
 @config_arg
 @click.option("--out", "out", type=click.Path(dir_okay=False), default=None,
               help="TOML snippet to write (default: beside [run] output, *_roughness.toml)")

@@ -4,10 +4,11 @@ from __future__ import annotations
 
 import click
 
-from gridflow.cli.main import cli, config_arg, out_opt, run_guarded
+from gridflow.cli.guard import run_guarded
+from gridflow.cli.options import config_arg, out_opt
 
 
-@cli.command()
+@click.command()
 @config_arg
 @out_opt
 @click.pass_context

@@ -1,56 +1,31 @@
 """The ``gridflow`` command: a click group over library functions.
 
-Errors are mapped to the contract's exit codes here and only here (:func:`exit_code_for`):
-0 done (flags and findings are results), 2 unusable config or input, 3 a scenario did not
-converge, 1 anything unexpected. Messages go to stderr as ``error: ...`` without a traceback
-(``-v`` adds it).
+Every command is added here, explicitly, in :data:`COMMANDS`; command modules define plain
+click commands and import only :mod:`gridflow.cli.options` (shared options) and
+:mod:`gridflow.cli.guard` (errors to exit codes, logging), never this module. To add a
+command: write ``gridflow/cli/<name>.py`` with ``@click.command()``, import it below and list
+it in :data:`COMMANDS`.
 """
 
 from __future__ import annotations
 
-import logging
-import sys
-
 import click
 
 from gridflow import __version__
-from gridflow.errors import GridflowError
+from gridflow.cli.calibrate import calibrate
+from gridflow.cli.check import check
+from gridflow.cli.guard import exit_code_for, run_guarded, setup_logging
+from gridflow.cli.init import init
+from gridflow.cli.options import config_arg, out_opt, quiet_opt, verbose_opt
+from gridflow.cli.run import run
 
-log = logging.getLogger("gridflow")
-
-
-def exit_code_for(exc: BaseException) -> int:
-    """The contract's exit code for an exception."""
-    if isinstance(exc, GridflowError):
-        return exc.exit_code
-    return 1
-
-
-def setup_logging(verbose: int, quiet: int) -> None:
-    level = logging.INFO - 10 * verbose + 10 * quiet
-    root = logging.getLogger("gridflow")
-    root.setLevel(min(level, logging.DEBUG))
-    if not any(getattr(h, "_gridflow_stderr", False) for h in root.handlers):
-        h: logging.Handler = logging.StreamHandler(sys.stderr)
-        h._gridflow_stderr = True  # type: ignore[attr-defined]
-        h.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(message)s", "%H:%M:%S"))
-        root.addHandler(h)
-    for h in root.handlers:
-        if getattr(h, "_gridflow_stderr", False):
-            h.setLevel(max(level, logging.DEBUG))
-
-
-# one registry of shared options
-config_arg = click.argument("config", type=click.Path(dir_okay=False))
-out_opt = click.option("--out", "out", type=click.Path(dir_okay=False), default=None,
-                       help="output GeoPackage, or a PostgreSQL database and schema "
-                            "('service=NAME schema=NAME'; default: [run] output)")
+__all__ = ["cli", "main", "COMMANDS", "exit_code_for", "run_guarded", "config_arg", "out_opt"]
 
 
 @click.group()
 @click.version_option(__version__, prog_name="gridflow")
-@click.option("-v", "--verbose", count=True, help="more log output (repeat for more)")
-@click.option("-q", "--quiet", count=True, help="less log output")
+@verbose_opt
+@quiet_opt
 @click.pass_context
 def cli(ctx: click.Context, verbose: int, quiet: int) -> None:
     """Nightly hydraulic and fire-flow analysis of a water utility's GIS."""
@@ -58,32 +33,14 @@ def cli(ctx: click.Context, verbose: int, quiet: int) -> None:
     ctx.obj = {"verbose": verbose}
 
 
-def run_guarded(ctx: click.Context, fn, *args, **kwargs):
-    """Call ``fn``; map errors to exit codes with a one-line message on stderr."""
-    try:
-        return fn(*args, **kwargs)
-    except GridflowError as exc:
-        click.echo(f"error: {exc}", err=True)
-        if ctx.obj and ctx.obj.get("verbose"):
-            log.exception("details")
-        ctx.exit(exit_code_for(exc))
-    except KeyboardInterrupt:
-        click.echo("error: interrupted", err=True)
-        ctx.exit(1)
-    except Exception as exc:  # anything unexpected: exit 1, traceback in the log file
-        click.echo(f"error: unexpected {type(exc).__name__}: {exc}", err=True)
-        log.debug("unexpected error", exc_info=True)
-        if ctx.obj and ctx.obj.get("verbose"):
-            log.exception("details")
-        ctx.exit(1)
+#: the commands of ``gridflow``, in help order
+COMMANDS: tuple[click.Command, ...] = (run, check, init, calibrate)
+for _command in COMMANDS:
+    cli.add_command(_command)
 
 
-def _register() -> None:
-    from gridflow.cli import commands  # noqa: F401  (commands attach themselves to the group)
-
-
-def main(argv=None) -> None:
-    _register()
+def main(argv: list[str] | None = None) -> None:
+    """Entry point of the ``gridflow`` program."""
     cli.main(args=argv, prog_name="gridflow")
 
 

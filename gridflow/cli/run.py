@@ -4,19 +4,16 @@ from __future__ import annotations
 
 import click
 
-from gridflow.cli.main import cli, config_arg, out_opt, run_guarded
+from gridflow.cli.guard import run_guarded
+from gridflow.cli.options import config_arg, out_opt, previous_opt, scheduler_opt, workers_opt
 
 
-@cli.command()
+@click.command()
 @config_arg
 @out_opt
-@click.option("--previous", type=click.Path(dir_okay=False), default=None,
-              help="last night's output GeoPackage (or database schema, as for --out), for "
-                   "the changes layer")
-@click.option("--workers", type=int, default=None,
-              help="local worker processes for the fire-flow sweep (default: the machine's cores)")
-@click.option("--scheduler", default=None,
-              help="address of a running Dask distributed scheduler for the fire-flow sweep")
+@previous_opt
+@workers_opt
+@scheduler_opt
 @click.pass_context
 def run(ctx: click.Context, config: str, out: str | None, previous: str | None,
         workers: int | None, scheduler: str | None) -> None:

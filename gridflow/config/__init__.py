@@ -22,6 +22,7 @@ from gridflow.config.layers import (
     check_layer_roles,
     parse_inputs,
 )
+from gridflow.config.ranges import check_ranges, check_relations
 from gridflow.config.schema import opt, parse_section, section, table_of
 from gridflow.config.sections import CriteriaSection, RunSection, SolverSection
 from gridflow.config.segments import SegmentsSection
@@ -85,6 +86,8 @@ def parse_config(table: dict, *, base_dir: Path = Path("."), path: Path | None =
     cfg = parse_section(Config, table, "")
     check_layer_roles(cfg.layers, cfg.inputs)
     check_flow_test_layers(cfg.layers, cfg.inputs, cfg.flow_tests)
+    check_ranges(cfg)
+    check_relations(cfg)
     import re
 
     for name in cfg.scenarios:
@@ -122,6 +125,9 @@ def load_config(path: str | Path) -> Config:
         If the file is missing or not valid TOML, or a key is unknown, mistyped or missing.
     """
     path = Path(path)
+    from gridflow.io.paths import require_regular_file
+
+    require_regular_file(path, "config", error=ConfigError)
     try:
         data = path.read_bytes()
     except OSError as exc:

@@ -14,11 +14,12 @@ from gridflow.config.schema import (
     quantity,
     table_of,
 )
-from gridflow.units import INCH, M_HEAD_PER_PSI, US_GALLON
+from gridflow.units import GPM as _GPM
+from gridflow.units import INCH, M_HEAD_PER_PSI
 
 __all__ = ["FireflowSection", "ReportSection"]
 
-GPM = US_GALLON / 60.0
+GPM = _GPM
 
 #: hydrant body minor-loss K on a 6 in inlet: 2.5 psi at 500 gpm, the largest friction loss
 #: AWWA C502 allows through a dry-barrel hydrant's pumper nozzle (from memory), as

@@ -60,7 +60,7 @@ from gridflow.config.schema import (
     table_of,
 )
 from gridflow.errors import ConfigError
-from gridflow.units import DIAMETER, FLOW, HEAD, LENGTH, PRESSURE
+from gridflow.units import DIAMETER, FLOW, HEAD, INCH, LENGTH, PRESSURE
 
 __all__ = ["LayerSection", "LayersSection", "ElevationSection", "RoughnessSection",
            "RoughnessRule", "ROLE_FIELDS", "ROLES", "NUMERIC_FIELDS", "TEXT_FIELDS",
@@ -327,7 +327,7 @@ def _check_section(role: str, sec: LayerSection, where: str, inputs: dict[str, s
     if sec.default_diameter is not None and role != "pipes":
         raise ConfigError(f"config key {where}.default_diameter applies only to pipes",
                           key=f"{where}.default_diameter")
-    if sec.default_diameter is not None and not 0 < sec.default_diameter <= 120 * 0.0254:
+    if sec.default_diameter is not None and not 0 < sec.default_diameter <= 120 * INCH:
         raise ConfigError(f"config key {where}.default_diameter must be above 0 and at most "
                           "120 in", key=f"{where}.default_diameter")
     for r, table in sec.codes.items():

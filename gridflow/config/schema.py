@@ -15,11 +15,10 @@ from __future__ import annotations
 import dataclasses
 import difflib
 from collections.abc import Callable, Iterable
-from functools import lru_cache
 from typing import Any
 
 from gridflow.errors import ConfigError
-from gridflow.units import RHO_WATER, G
+from gridflow.units import FT, GPM, INCH, KPA_PER_M_HEAD, M_HEAD_PER_PSI, RHO_WATER, G
 
 __all__ = [
     "opt",
@@ -115,18 +114,10 @@ def one_of(*choices: str) -> Parser:
     return parse
 
 
-@lru_cache(maxsize=1)
 def _ureg():
-    import pint
+    from gridflow.units import ureg
 
-    reg = pint.UnitRegistry()
-    reg.define("gpm = gallon / minute")
-    reg.define("mgd = 1e6 gallon / day")
-    reg.define("lps = liter / second")
-    reg.define("fps = foot / second")
-    reg.define("mps = meter / second")
-    reg.define("kft = 1000 foot")
-    return reg
+    return ureg()
 
 
 _DIMS = {
@@ -246,10 +237,10 @@ def reference_rows(cls: type, where: str = "") -> Iterable[tuple[str, str, str]]
 
 
 # how each unit system's users write a quantity: (US unit, factor from SI, SI unit, factor)
-_SHOW_UNITS = {"length": ("ft", 1 / 0.3048, "m", 1.0),
-               "pressure": ("psi", 1 / 0.70307, "kPa", 9.80665),  # from m of water head
-               "flow": ("gpm", 15850.32, "L/s", 1000.0),
-               "velocity": ("ft/s", 1 / 0.3048, "m/s", 1.0),
+_SHOW_UNITS = {"length": ("ft", 1 / FT, "m", 1.0),
+               "pressure": ("psi", 1 / M_HEAD_PER_PSI, "kPa", KPA_PER_M_HEAD),  # from m head
+               "flow": ("gpm", 1 / GPM, "L/s", 1000.0),
+               "velocity": ("ft/s", 1 / FT, "m/s", 1.0),
                "ratio": ("ft/kft", 1000.0, "m/km", 1000.0)}
 
 
@@ -259,7 +250,7 @@ def _show_default(value: Any, parser: Parser) -> str:
     if isinstance(value, float) and doc in _SHOW_UNITS:
         us, f_us, si, f_si = _SHOW_UNITS[doc]
         if doc == "length" and 0 < value < 0.3:  # diameters, roughness: inches and mm
-            us, f_us, si, f_si = "in", 1 / 0.0254, "mm", 1000.0
+            us, f_us, si, f_si = "in", 1 / INCH, "mm", 1000.0
         return f"'{_nice(value * f_us, 3)} {us}' / '{_nice(value * f_si, 3)} {si}'"
     return repr(value)
 

@@ -9,12 +9,11 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from gridflow.config.schema import P_BOOL, P_FLOAT, P_INT, P_STR, one_of, opt, quantity
-from gridflow.units import M_HEAD_PER_PSI
+from gridflow.units import FT, M_HEAD_PER_PSI
 
 __all__ = ["RunSection", "CriteriaSection", "SolverSection"]
 
 PSI = M_HEAD_PER_PSI
-FT = 0.3048
 
 
 @dataclass(frozen=True, kw_only=True)

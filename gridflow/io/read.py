@@ -33,6 +33,7 @@ from gridflow.errors import ConfigError, InputError
 from gridflow.findings import Findings
 from gridflow.io.codes import coded_texts
 from gridflow.io.layerinfo import LayerInfo
+from gridflow.io.paths import require_regular_file
 
 __all__ = ["LayerInfo", "ReadResult", "ID_COLUMN", "LAYER_COLUMN", "inspect_inputs",
            "working_crs", "read_inputs", "shared_locks"]
@@ -99,9 +100,7 @@ def _inspect_one(cfg, role: str, sec, i: int) -> LayerInfo:
         return dataclasses.replace(postgis.inspect_layer(cfg, role, sec), key=where, index=i)
     pyogrio = _pyogrio()
     path = cfg.resolve(cfg.inputs[sec.input])
-    if not path.exists():
-        raise InputError(f"input file {path} (inputs.{sec.input}) does not exist",
-                         file=str(path))
+    require_regular_file(path, "input file", key=f"inputs.{sec.input}")
     try:
         names = [str(n) for n in pyogrio.list_layers(path)[:, 0]]
     except Exception as exc:
@@ -128,10 +127,26 @@ def _inspect_one(cfg, role: str, sec, i: int) -> LayerInfo:
         raise InputError(f"{path}: layer {sec.layer!r} has no coordinate reference system; "
                          "assign one in the GIS (e.g. EPSG:26916) and export again",
                          file=str(path), layer=sec.layer)
+    _usable_crs(crs, path, sec.layer)
     bounds = info.get("total_bounds")
     return LayerInfo(role, path, sec.layer, crs, fields, str(geom),
                      int(info.get("features", -1)),
                      None if bounds is None else _bounds4(bounds), key=where, index=i)
+
+
+def _usable_crs(crs: str, path: Path, layer: str) -> None:
+    """Stop on a CRS PROJ cannot build (a GeoPackage's srs_id 0 or -1, "undefined")."""
+    from pyproj import CRS
+
+    try:
+        ok = "undefined" not in CRS.from_user_input(crs).name.lower()
+    except Exception:
+        ok = False
+    if not ok:
+        raise InputError(f"{path}: layer {layer!r} has an undefined or unknown coordinate "
+                         f"reference system ({crs}; a GeoPackage srs_id of 0 or -1 means "
+                         "undefined); assign one in the GIS (e.g. EPSG:26916) and export again",
+                         file=str(path), layer=layer)
 
 
 def working_crs(cfg, infos: dict[str, LayerInfo], findings: Findings):
@@ -170,6 +185,11 @@ def working_crs(cfg, infos: dict[str, LayerInfo], findings: Findings):
         x0, y0 = t.transform(b[0], b[1])
         x1, y1 = t.transform(b[2], b[3])
         b = (min(x0, x1), min(y0, y1), max(x0, x1), max(y0, y1))
+    if not (-180.0 <= b[0] <= b[2] <= 180.0 and -90.0 <= b[1] <= b[3] <= 90.0):
+        raise InputError(f"{pipes.file}: layer {pipes.layer!r} is in the geographic CRS "
+                         f"{crs.name} but its extent {tuple(round(v, 3) for v in b)} is not "
+                         "longitude and latitude; assign the layer's real CRS in the GIS",
+                         file=str(pipes.file), layer=pipes.layer)
     centre = ((b[0] + b[2]) / 2, (b[1] + b[3]) / 2)
     zone = int((centre[0] + 180) // 6) + 1
     code = (32600 if centre[1] >= 0 else 32700) + zone
@@ -417,8 +437,15 @@ def _read_role(cfg, role: str, sec, info: LayerInfo, crs, findings: Findings):
         fac = unit_factor("valves", "setting", sec.units.get("setting"),
                           f"{info.key}.units.setting") if prv.any() else 1.0
         data["setting"] = np.where(prv, data["setting"] * fac, data["setting"])
+    from gridflow.io.validate import check_layer
+
+    geoms = np.asarray(gdf.geometry.values, dtype=object)
+    keep = ~check_layer(cfg, role, sec, info, data, ids, geoms, findings)
     data[LAYER_COLUMN] = np.full(len(ids), info.layer, dtype=object)
     frame = gpd.GeoDataFrame(data, geometry=gdf.geometry.values, crs=gdf.crs)
+    if not keep.all():
+        frame = frame[keep].reset_index(drop=True)
+        ids = ids[keep]
     if frame.crs is None:  # inspected already; a layer can still lose it through a view
         raise InputError(f"{info.file}: layer {info.layer!r} has no coordinate reference system",
                          file=str(info.file), layer=info.layer)

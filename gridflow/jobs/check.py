@@ -81,6 +81,10 @@ def check_job(config_path, out=None) -> int:
     start = _dt.datetime.now(_dt.UTC)
     cfg = load_config(config_path)
     out_path = Path(out) if out else cfg.resolve(cfg.run.output)
+    from gridflow.io.paths import check_outputs, input_paths
+
+    # before anything is read: inputs are regular files, the output is none of them
+    check_outputs({"output GeoPackage": out_path}, input_paths(cfg))
     findings = Findings()
     clean = build_network(cfg, findings)
     nodes, links = network_layers(clean, cfg.run.units)

@@ -10,6 +10,7 @@ from __future__ import annotations
 import datetime as _dt
 import logging
 import os
+import sys
 import time
 from pathlib import Path
 
@@ -18,10 +19,12 @@ import pandas as pd
 
 from gridflow import __version__
 from gridflow.config import Config, load_config
-from gridflow.errors import ConvergenceError, InputError, OutputError, TopologyError
+from gridflow.errors import ConfigError, ConvergenceError, InputError, OutputError, TopologyError
 from gridflow.findings import Findings
 from gridflow.hydraulics import HydraulicResult, HydraulicSystem, SolveOptions
+from gridflow.io.atomic import OutputSet
 from gridflow.jobs.check import file_sha256
+from gridflow.jobs.signals import stop_on_signals
 from gridflow.network import NODE_JUNCTION, Network
 
 __all__ = ["run_job", "solve_options", "verify_solution", "require_solvable",
@@ -89,8 +92,7 @@ def shut_zone_findings(name: str, system: HydraulicSystem, r: HydraulicResult, f
     return n_nodes, undelivered
 
 
-def _attach_log_file(out_path: Path) -> logging.Handler | None:
-    log_path = out_path.with_suffix(".log")
+def _attach_log_file(log_path: Path) -> logging.Handler | None:
     try:
         handler = logging.FileHandler(log_path, mode="w", encoding="utf-8")
     except OSError:
@@ -99,6 +101,16 @@ def _attach_log_file(out_path: Path) -> logging.Handler | None:
     handler.setLevel(logging.DEBUG)
     logging.getLogger("gridflow").addHandler(handler)
     return handler
+
+
+def output_paths(out_path: Path) -> dict[str, Path]:
+    """Every file a run may write for the target ``out_path``, by what it is."""
+    stem = out_path.stem
+    return {"output GeoPackage": out_path,
+            "report": out_path.with_suffix(".html"),
+            "log file": out_path.with_suffix(".log"),
+            "log of a failed run": out_path.with_name(f"{stem}.failed.log"),
+            "diagnostics file": out_path.with_name(f"{stem}.diagnostics.gpkg")}
 
 
 def _input_sha256(cfg: Config, name: str, p: str) -> str:
@@ -147,41 +159,32 @@ def require_solvable(cfg: Config, clean) -> None:
                          "digitise mains with Z, or give a DEM", key="elevation.source")
 
 
-def check_output_path(out_path: Path, cfg: Config) -> None:
-    """Refuse an output that is an input or the config, or a folder that cannot be written."""
-    out_abs = out_path.resolve()
-    for name, p in cfg.inputs.items():
-        if cfg.resolve(p).resolve() == out_abs:
-            raise OutputError(f"output {out_path} is the input file {name!r}: gridflow never "
-                              "writes to an input; choose another --out", file=str(out_path))
-    if cfg.path is not None and Path(cfg.path).resolve() == out_abs:
-        raise OutputError(f"output {out_path} is the config file: gridflow never writes to an "
-                          "input; choose another --out", file=str(out_path))
-    folder = out_abs.parent
-    if not folder.is_dir():
-        raise OutputError(f"output folder {folder} does not exist", file=str(out_path))
-    if not os.access(folder, os.W_OK):
-        raise OutputError(f"output folder {folder} is not writable", file=str(out_path))
+def check_output_path(out_path: Path, cfg: Config, previous: str | Path | None = None,
+                      extra: dict[str, Path] | None = None) -> dict[str, Path]:
+    """Check every output of the run against every input before anything is read or written.
+
+    Inputs (config, input files, DEM, ``--previous``) must be regular files; no output (nor
+    ``extra`` ones, e.g. temporaries) may be an input by path, symlink or hard link, nor a
+    folder, nor sit in a folder that cannot be written. ``--previous`` may be the output
+    GeoPackage itself (it is read before anything is written). Returns the outputs.
+    """
+    from gridflow.io.paths import check_outputs, input_paths
+
+    outputs = output_paths(out_path)
+    inputs = input_paths(cfg, previous)
+    gpkg_inputs = {k: v for k, v in inputs.items() if not k.startswith("previous")}
+    check_outputs({"output GeoPackage": out_path}, gpkg_inputs)
+    rest = {k: v for k, v in outputs.items() if k != "output GeoPackage"}
+    check_outputs({**rest, **(extra or {})}, inputs)
+    check_outputs(outputs, {})
+    return outputs
 
 
 def run_job(config_path: str | Path, *, out: str | Path | None = None,
             previous: str | Path | None = None, workers: int | None = None,
             scheduler: str | None = None) -> int:
     """Run the nightly job; returns 0 or raises a :class:`GridflowError` (see exit codes)."""
-    from gridflow.analysis.changes import compare_flags, flag_set, read_previous_flags
-    from gridflow.config.database import is_database, parse_database
-    from gridflow.demand import allocate, run_info_rows, scenario_network
-    from gridflow.io.postgis import last_snapshots
-    from gridflow.io.postgis import read_previous_flags as pg_previous_flags
-    from gridflow.io.publish import (
-        check_database_output,
-        local_output_path,
-        output_database,
-        publish_postgis,
-    )
-    from gridflow.io.write import write_geopackage
-    from gridflow.jobs.layers import nodes_layer, pipes_layer
-    from gridflow.topology import build_network
+    from gridflow.io.publish import check_database_output, local_output_path, output_database
 
     t_start = time.perf_counter()
     started = _dt.datetime.now(_dt.UTC)
@@ -197,13 +200,37 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
         except OSError as exc:
             raise OutputError(f"cannot make the output folder {out_path.parent}: "
                               f"{exc.strerror}", file=str(out_path)) from None
-    check_output_path(out_path, cfg)
+    outputs = check_output_path(out_path, cfg, previous)
+    if workers is not None and not 1 <= workers <= 1024:
+        raise ConfigError(f"--workers {workers} is out of range; valid: 1 to 1024",
+                          key="--workers")
     if scheduler and cfg.fireflow.enabled:
         # fail in seconds, not after the scenarios: is the cluster there and runnable?
         from gridflow.analysis.fireflow import connect_scheduler
 
         connect_scheduler(scheduler).close()
-    handler = _attach_log_file(out_path)
+    with OutputSet(outputs.values()) as outs, stop_on_signals():
+        check_output_path(out_path, cfg, previous, extra={
+            f"temporary file for the {k}": outs.temp(v) for k, v in outputs.items()})
+        return _run(cfg, out_path, outputs, outs, previous, workers, scheduler, t_start,
+                    started, db_out)
+
+
+def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
+         previous, workers, scheduler, t_start: float, started, db_out) -> int:
+    from gridflow.analysis.changes import compare_flags, flag_set, read_previous_flags
+    from gridflow.config.database import is_database, parse_database
+    from gridflow.demand import allocate, run_info_rows, scenario_network
+    from gridflow.io.postgis import last_snapshots
+    from gridflow.io.postgis import read_previous_flags as pg_previous_flags
+    from gridflow.io.publish import publish_postgis
+    from gridflow.io.write import write_layers
+    from gridflow.jobs.stages import scenario_layers
+    from gridflow.topology import build_network
+
+    log_path = outputs["log file"]
+    handler = _attach_log_file(outs.temp(log_path))
+    done = False
     try:
         prev_flags = (None if not previous else pg_previous_flags(previous)
                       if is_database(previous) else read_previous_flags(previous))
@@ -284,10 +311,7 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
                              msg, clean.links.geometry.values[wl])
                 failure = ConvergenceError(msg, node_id=net.node_id[wn], link_id=net.link_id[wl])
                 break
-            nodes = nodes_layer(net, r, clean.nodes.geometry.values, clean.crs, cfg.criteria,
-                                system_units)
-            pipes = pipes_layer(net, r, clean.links.geometry.values, clean.crs, cfg.criteria,
-                                system_units, rating)
+            nodes, pipes = scenario_layers(cfg, clean, net, r)
             for flag in ("low_pressure", "high_pressure", "negative_pressure"):
                 info.append((f"{name}:{flag}", str(int(nodes[flag].sum()))))
             info.append((f"{name}:unsupplied", str(int((nodes["supplied"] == 0).sum()))))
@@ -338,29 +362,48 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
                  ("ended_utc", _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds")),
                  ("seconds_total", f"{time.perf_counter() - t_start:.2f}")]
         layers["run_info"] = pd.DataFrame(info, columns=["key", "value"])
-        inputs = [cfg.resolve(p) for p in cfg.inputs.values()]
-        published = None
         if failure is not None:
-            # last night's output (file or published schema) stays as it was
-            target = diagnostics_path(out_path)
-            write_geopackage(target, layers, inputs=inputs, styles=True)
-            log.info("wrote %s", target)
-            raise ConvergenceError(f"{failure.message}; diagnostics written to {target} "
-                                   f"(the output {db_out or out_path} left as it was)",
-                                   **failure.fields)
-        if db_out is not None:
-            published = publish_postgis(db_out, layers, crs=clean.crs)
-        else:
-            write_geopackage(out_path, layers, inputs=inputs, styles=True)
-            log.info("wrote %s", out_path)
+            # last night's outputs stay as they are; what went wrong goes beside them
+            diag = outputs["diagnostics file"]
+            outs.write(diag, lambda tmp: write_layers(tmp, layers, styles=True))
+            outs.commit([diag])
+            log.info("wrote %s", diag)
+            failure.message += f"; diagnostics in {diag} (the previous output is kept)"
+            failure.args = (failure.message,)
+            raise failure
+        published = None
+        if db_out is None:
+            gpkg = outputs["output GeoPackage"]
+            outs.write(gpkg, lambda tmp: write_layers(tmp, layers, styles=True))
+            log.info("wrote %s", gpkg)
         if cfg.report.enabled:
-            _report(cfg, out_path, clean, results, layers, info, routine, rating)
+            html = outputs["report"]
+            outs.write(html, lambda tmp: _report(cfg, tmp, clean, results, layers, info,
+                                                  routine, rating))
+            log.info("wrote %s", html)
+        if handler is not None:
+            logging.getLogger("gridflow").removeHandler(handler)
+            handler.close()
+            handler = None
+            outs.adopt(log_path)
+        if db_out is not None:  # one transaction; the local report and log follow it
+            published = publish_postgis(db_out, layers, crs=clean.crs)
+        outs.commit()
+        done = True
         _print_summary(out_path, layers, findings, cfg.report.enabled, published)
         return 0
     finally:
         if handler is not None:
             logging.getLogger("gridflow").removeHandler(handler)
             handler.close()
+        tmp_log = outs.temp(log_path)
+        if not done and tmp_log.exists():
+            failed = outputs["log of a failed run"]
+            try:
+                os.replace(tmp_log, failed)
+                print(f"log of the failed run: {failed}", file=sys.stderr)
+            except OSError:
+                pass
 
 
 def _print_summary(out_path: Path, layers: dict, findings: Findings, report: bool,
@@ -430,16 +473,13 @@ def terminal_progress(label: str):
 
 
 def _fireflow(cfg, clean, results, opts, workers, scheduler, findings, info):
-    from gridflow.analysis.fireflow import sweep
-    from gridflow.jobs.layers import hydrants_layer
+    from gridflow.jobs.stages import fireflow_layer
 
     name = cfg.fireflow.scenario
     net, base, _ = results[name]
     t0 = time.perf_counter()
-    hyd = clean.hydrants
-    ff = sweep(net, base, pd.DataFrame(hyd.drop(columns="geometry")), cfg.fireflow,
-               cfg.criteria, options=opts, workers=workers, scheduler=scheduler,
-               progress=terminal_progress("fire flow"))
+    ff, layer = fireflow_layer(cfg, clean, net, base, opts, workers=workers,
+                               scheduler=scheduler, progress=terminal_progress("fire flow"))
     below = ff.attrs.get("base_below_minimum", [])
     if len(below):
         idx = net.node_index(below)
@@ -447,9 +487,6 @@ def _fireflow(cfg, clean, results, opts, workers, scheduler, findings, info):
                           f"pressure is below the fire-flow system minimum in scenario {name} "
                           "before any fire draw; not counted as limiting each hydrant",
                           list(clean.nodes.geometry.values[idx]))
-    order = pd.Index(ff["hydrant_id"].astype(str))
-    geo = hyd.set_index(hyd["hydrant_id"].astype(str)).geometry.reindex(order).values
-    layer = hydrants_layer(ff, geo, clean.crs, cfg.run.units)
     summary = ff.attrs["summary"]
     info += [("fireflow:scenario", name), ("fireflow:hydrants", str(summary["hydrants"])),
              ("fireflow:out_of_service", str(summary["out_of_service"])),
@@ -462,7 +499,7 @@ def _fireflow(cfg, clean, results, opts, workers, scheduler, findings, info):
     return layer
 
 
-def _report(cfg, out_path, clean, results, layers, info, routine, rating):
+def _report(cfg, html, clean, results, layers, info, routine, rating):
     """The HTML report, from the results in memory (SI arrays, typed criteria)."""
     import shapely
 
@@ -471,7 +508,6 @@ def _report(cfg, out_path, clean, results, layers, info, routine, rating):
     from gridflow.report.flowtests import flow_tests_table
     from gridflow.report.segments import segments_table
 
-    html = out_path.with_suffix(".html")
     scenarios = [ScenarioData.solved(name, net, r, cfg.criteria)
                  for name, (net, r, _) in results.items()]
     geoms = clean.nodes.geometry.values

@@ -13,8 +13,6 @@ Adding a table: write a function ``f(data) -> DataFrame`` in ``sections.py`` and
 from __future__ import annotations
 
 import logging
-import os
-import tempfile
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -23,7 +21,7 @@ import numpy as np
 import pandas as pd
 from jinja2 import Environment, PackageLoader, StrictUndefined, select_autoescape
 
-from gridflow.errors import GridflowError, OutputError
+from gridflow.errors import GridflowError
 from gridflow.report import figures, sections
 from gridflow.report.data import ReportData
 from gridflow.report.interactive import assets, map_payload, payload_json, points_xy
@@ -372,21 +370,7 @@ def write_report(html_path: Path, data: ReportData, *,
 
 
 def _write_atomic(path: Path, text: str) -> None:
-    folder = path.parent if str(path.parent) else Path(".")
-    try:
-        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=folder)
-    except OSError as exc:
-        raise OutputError(f"cannot write the report in {folder}: {exc.strerror}",
-                          file=str(path)) from None
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
-            fh.write(text)
-        os.chmod(tmp, 0o644)  # readable like the GeoPackage beside it
-        os.replace(tmp, path)
-    except OSError as exc:
-        Path(tmp).unlink(missing_ok=True)
-        raise OutputError(f"cannot write the report {path}: {exc.strerror}",
-                          file=str(path)) from None
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    """The page, written through the one atomic-write helper (:mod:`gridflow.io.atomic`)."""
+    from gridflow.io.atomic import write_text
+
+    write_text(path, text, what="the report")

@@ -22,12 +22,13 @@ import shapely
 from gridflow.config.layers import unit_factor
 from gridflow.errors import InputError, TopologyError
 from gridflow.topology.records import Context, Pipes
+from gridflow.units import INCH
 
 __all__ = ["prepare_pipes", "z_factor", "MAX_DIAMETER_M", "MIN_DIAMETER_M", "C_RANGE", "INCH_M"]
 
-INCH_M = 0.0254  # one inch [m] (definition)
-MAX_DIAMETER_M = 120 * 0.0254  # above this a diameter is taken as a unit error
-MIN_DIAMETER_M = 2 * 0.0254  # below this a main's diameter is implausible (common practice)
+INCH_M = INCH  # one inch [m]
+MAX_DIAMETER_M = 120 * INCH  # above this a diameter is taken as a unit error
+MIN_DIAMETER_M = 2 * INCH  # below this a main's diameter is implausible (common practice)
 C_RANGE = (40.0, 160.0)  # plausible Hazen-Williams C (common practice)
 _EPS = 1e-3  # [m] positions closer than this along a line are the same place
 
@@ -115,7 +116,7 @@ def _check_diameter(ctx: Context, df: pd.DataFrame, layer: str) -> pd.DataFrame:
     _check_diameter_unit(ctx, d)
     small = np.isfinite(d) & (d > 0) & (d < MIN_DIAMETER_M)
     f.add_many("diameter_implausible", "warning", layer, df["pipe_id"].to_numpy()[small],
-               [f"diameter {x / 0.0254:.3g} in is below {MIN_DIAMETER_M / 0.0254:g} in, "
+               [f"diameter {x / INCH:.3g} in is below {MIN_DIAMETER_M / INCH:g} in, "
                 "implausible for a main; kept (check the value and "
                 "layers.pipes.units.diameter)" for x in d[small]],
                df["geom"].to_numpy()[small])
@@ -127,7 +128,7 @@ def _check_diameter(ctx: Context, df: pd.DataFrame, layer: str) -> pd.DataFrame:
     default = ctx.cfg.layers.pipes.default_diameter
     ids = df["pipe_id"].to_numpy()
     geoms = df["geom"].to_numpy()
-    what = np.where(big, [f"diameter {x / 0.0254:.6g} in is above 120 in" for x in
+    what = np.where(big, [f"diameter {x / INCH:.6g} in is above 120 in" for x in
                           np.where(big, d, 0)], np.where(np.isfinite(d), "diameter is zero",
                                                          "diameter is missing"))
     if default is None:
@@ -136,7 +137,7 @@ def _check_diameter(ctx: Context, df: pd.DataFrame, layer: str) -> pd.DataFrame:
                     "default instead)" for w in what[bad]], geoms[bad])
         return df[~bad].reset_index(drop=True)
     f.add_many("diameter_missing", "warning", layer, ids[bad],
-               [f"{w}: default {default / 0.0254:.4g} in used" for w in what[bad]],
+               [f"{w}: default {default / INCH:.4g} in used" for w in what[bad]],
                geoms[bad])
     df = df.copy()
     df.loc[bad, "diameter"] = default
@@ -160,8 +161,8 @@ def _check_diameter_unit(ctx: Context, d: np.ndarray) -> None:
     unit = sec.units.get("diameter")
     raise InputError(
         f"{info.file}: layer {info.layer!r}, field {fname!r}: the median diameter is "
-        f"{med * 1000:.4g} mm ({med / 0.0254:.4g} in), outside the {MIN_DIAMETER_M / 0.0254:g}"
-        f"-{MAX_DIAMETER_M / 0.0254:g} in of water mains; check "
+        f"{med * 1000:.4g} mm ({med / INCH:.4g} in), outside the {MIN_DIAMETER_M / INCH:g}"
+        f"-{MAX_DIAMETER_M / INCH:g} in of water mains; check "
         f"layers.pipes.units.diameter (now {unit!r})", file=str(info.file),
         layer=info.layer, field=fname, key="layers.pipes.units.diameter")
 

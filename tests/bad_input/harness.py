@@ -17,7 +17,7 @@ from pathlib import Path
 import pyogrio
 from click.testing import CliRunner
 
-from gridflow.cli.main import _register, cli
+from gridflow.cli.main import cli
 from tests.bad_input.town import P, Town, write_layer
 
 
@@ -76,7 +76,6 @@ def run_case(case: Case, folder: Path) -> Outcome:
             prev = previous_output(target)
         inputs = {p: _digest(p) for p in folder.iterdir() if p.is_file()}
         listing = set(out_dir.iterdir()) if out_dir.is_dir() else set()
-        _register()
         args = [case.command, str(cfg), *case.args]
         if case.out:
             args += ["--out", str(target)]

@@ -674,15 +674,15 @@ def output_folder_unwritable():
 
 @case
 def output_folder_readonly_mount():
-    """The folder is writable by permission bits but a write fails (as on a full disk)."""
+    """The folder is writable by permission bits but a write fails (as on a read-only mount)."""
     def prepare(folder, gpkg, cfg):
         import gridflow.io.write as w
-        orig = w.tempfile.mkstemp
+        orig = w._write_layer
 
         def fail(*a, **k):
             raise OSError(30, "Read-only file system")
-        w.tempfile.mkstemp = fail
-        return lambda: setattr(w.tempfile, "mkstemp", orig)
+        w._write_layer = fail
+        return lambda: setattr(w, "_write_layer", orig)
     return Case(None, 2, ("Read-only file system", "result.gpkg"), prepare=prepare)
 
 

@@ -19,7 +19,7 @@ import pyogrio
 import pytest
 from click.testing import CliRunner
 
-from gridflow.cli.main import _register, cli
+from gridflow.cli.main import cli
 from gridflow.io.write import remove_stale_temporaries
 from tests.bad_input.harness import previous_output
 from tests.bad_input.town import Town
@@ -34,7 +34,6 @@ def _many_scenarios(t: Town, n: int) -> Town:
 
 
 def _cli(*args):
-    _register()
     return CliRunner().invoke(cli, list(args))
 
 
@@ -101,18 +100,21 @@ def test_exception_while_writing_keeps_previous_output(tmp_path, monkeypatch):
 
 def test_stale_temporaries_of_other_targets_and_live_runs_are_kept(tmp_path):
     target = tmp_path / "result.gpkg"
-    old = time.time() - 3600
-    stale = [tmp_path / ".result.tmp-abc123.gpkg", tmp_path / ".result.tmp-abc123.gpkg-journal"]
-    other = tmp_path / ".other.tmp-def456.gpkg"  # another target's: not ours to remove
+    gone = subprocess.Popen([sys.executable, "-c", "pass"])
+    gone.wait()  # a process that has ended: its pid names its temporaries
+    dead = gone.pid
+    stale = [tmp_path / f".result.tmp-{dead}-0badf00d.gpkg",
+             tmp_path / f".result.tmp-{dead}-0badf00d.gpkg-journal",
+             tmp_path / f".result.tmp-{dead}-1badf00d.html"]
+    other = tmp_path / f".other.tmp-{dead}-2badf00d.gpkg"  # another target's: not ours
     unrelated = tmp_path / ".result.tmp-notes.txt"
-    for p in (*stale, other, unrelated):
+    live = tmp_path / f".result.tmp-{os.getppid()}-3badf00d.gpkg"  # a live process's
+    mine = tmp_path / f".result.tmp-{os.getpid()}-4badf00d.gpkg"  # this process's
+    for p in (*stale, other, unrelated, live, mine):
         p.write_bytes(b"x")
-        os.utime(p, (old, old))
-    live = tmp_path / ".result.tmp-live99.gpkg"  # changed after this process started
-    live.write_bytes(b"x")
     removed = remove_stale_temporaries(target)
     assert sorted(removed) == sorted(stale)
-    assert other.exists() and unrelated.exists() and live.exists()
+    assert other.exists() and unrelated.exists() and live.exists() and mine.exists()
 
 
 def test_two_runs_writing_different_outputs_at_once(tmp_path):
@@ -165,9 +167,15 @@ def _link(net, lid):
 def test_solution_failing_its_check_stops_with_exit_3(tmp_path, monkeypatch, spoil, node, link):
     gpkg, cfg = Town().write(tmp_path)
     target = tmp_path / "out" / "result.gpkg"
+    before = previous_output(target)
     _spoil(monkeypatch, spoil)
     res = _cli("run", str(cfg), "--out", str(target))
     assert res.exit_code == 3, res.output
+    assert target.read_bytes() == before  # last night's output is kept
+    diag = target.with_name("result.diagnostics.gpkg")
+    assert str(diag) in " ".join(res.stderr.split()).replace(" ", "") or \
+        "result.diagnostics.gpkg" in res.stderr
+    assert not _temporaries(target.parent)
     msg = res.stderr
     assert "average_day" in msg and "failed its check" in msg
     m_node = msg.split("at node ")[1].split(",")[0]
@@ -176,8 +184,6 @@ def test_solution_failing_its_check_stops_with_exit_3(tmp_path, monkeypatch, spo
         assert m_node in node, msg
     if link:
         assert m_link in link, msg
-    assert not target.exists()  # the output is not written; diagnostics go beside it
-    diag = target.with_name("result.diagnostics.gpkg")
     f = pyogrio.read_dataframe(diag, layer="findings", read_geometry=False)
     bad = f[f["kind"] == "solution_check_failed"]
     assert set(bad["feature_id"]) == {m_node, m_link}
