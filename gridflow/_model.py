@@ -62,7 +62,7 @@ def open_model(config: str | Path) -> Model:
     >>> gridflow.open_model("no/such.toml")
     Traceback (most recent call last):
     ...
-    gridflow.errors.ConfigError: cannot read config no/such.toml: No such file or directory...
+    gridflow.errors.ConfigError: config no/such.toml does not exist
     """
     from gridflow.demand import allocate
     from gridflow.topology import build_network

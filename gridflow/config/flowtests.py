@@ -93,8 +93,8 @@ def check_flow_test_layers(layers, inputs: dict, sec: FlowTestsSection) -> None:
             if isinstance(known[r], dict):
                 unit_of(role, r, m.units.get(r), f"{where}.units.{r}")
     if sec.min_factor <= 0 or sec.max_factor <= sec.min_factor:
-        raise ConfigError("config keys flow_tests.min_factor and max_factor must satisfy "
-                          "0 < min_factor < max_factor", key="flow_tests.min_factor")
+        raise ConfigError("config keys flow_tests.min_factor and flow_tests.max_factor must "
+                          "satisfy 0 < min_factor < max_factor", key="flow_tests.min_factor")
     if layers.flow_test_outlets is not None and layers.flow_tests is None:
         raise ConfigError("config key layers.flow_test_outlets needs layers.flow_tests",
                           key="layers.flow_test_outlets")
