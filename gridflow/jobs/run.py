@@ -390,7 +390,8 @@ def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
             published = publish_postgis(db_out, layers, crs=clean.crs)
         outs.commit()
         done = True
-        _print_summary(out_path, layers, findings, cfg.report.enabled, published)
+        _print_summary(out_path, layers, findings, cfg.report.enabled, published,
+                       units=cfg.run.units)
         return 0
     finally:
         if handler is not None:
@@ -407,8 +408,12 @@ def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
 
 
 def _print_summary(out_path: Path, layers: dict, findings: Findings, report: bool,
-                   published: str | None = None) -> None:
+                   published: str | None = None, *, units: str = "US") -> None:
     """A few lines on stdout for whoever ran the command: what was flagged, where it went."""
+    from gridflow.units import out_field
+
+    q_unit, q_factor = out_field("demand", units)
+    q_word = {"gpm": "gpm", "lps": "L/s"}.get(q_unit, q_unit)
     print(f"gridflow run: {len(layers['findings'])} finding(s) "
           f"({findings.count(severity='error')} error, {findings.count(severity='warning')} "
           "warning)")
@@ -424,8 +429,8 @@ def _print_summary(out_path: Path, layers: dict, findings: Findings, report: boo
                   f"{int((df['supplied'] == 0).sum())} unsupplied node(s); "
                   f"{int(pipes['high_velocity'].sum())} fast, "
                   f"{int(pipes['high_headloss'].sum())} high-loss pipe(s); "
-                  f"{cut} node(s) cut off by shut devices, {short * 1000:.3g} L/s of demand not "
-                  "delivered")
+                  f"{cut} node(s) cut off by shut devices, {short * q_factor:.3g} {q_word} of "
+                  "demand not delivered")
     if "hydrants_fireflow" in layers:
         h = layers["hydrants_fireflow"]
         ins = h[h["in_service"] == 1]
@@ -526,4 +531,3 @@ def _report(cfg, html, clean, results, layers, info, routine, rating):
                       hgl_path=cfg.report.hgl_path or None, worst_rows=cfg.report.worst_rows)
     write_report(html, data, extra_tables=[limiting_nodes_table, flow_tests_table,
                                            segments_table])
-    log.info("wrote %s", html)
