@@ -1,130 +1,99 @@
-"""Benchmark: read + clean synthetic street-grid mains against a bare pyogrio read.
+"""Benchmark: read + clean the synthetic utility against a bare read of the same layers.
 
-Mains along a jittered 100 m street grid with a quarter of the edges removed and ends
-jittered 0.02 m, with ground elevation as Z, written to a GeoPackage. Prints the time of
-read + clean, the time of a bare
-``pyogrio.read_dataframe(use_arrow=True)`` of the same layer in the same run, their ratio, and
-peak memory (ru_maxrss, and tracemalloc of the clean step when --trace is given).
+The utility of ``synthetic_utility.py`` (street grid with loops and arterials, cul-de-sacs, Z
+ground, valves, hydrants, two meters per main, sources) is written to a GeoPackage once per
+size; a fresh process then measures, in the same run:
+
+- the floor: a bare ``pyogrio.read_dataframe(use_arrow=True)`` of every mapped layer (median
+  of ``--repeat``);
+- ``read_inputs`` (the mapped layers read, checked, renamed, converted) and
+  ``build_network`` on what it read (the topology stages);
+- their ratio to the floor, and peak memory (ru_maxrss).
 
     python scripts/bench_gis.py 100000 500000
 
-Targets: read + clean <= 3x the bare read; 500k mains under 60 s and 4 GB.
+Target: read + clean <= 3x the bare read.
 """
 
 from __future__ import annotations
 
 import argparse
+import json
 import resource
+import subprocess
+import sys
 import tempfile
 import time
 from pathlib import Path
 
 import numpy as np
 
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE.parent))
+sys.path.insert(0, str(HERE))
 
-def make_grid(n_lines: int, seed: int = 1):
-    import shapely
-
-    rng = np.random.default_rng(seed)
-    side = int(np.ceil(np.sqrt(n_lines / 1.5))) + 1  # 2 side^2 edges, 3/4 kept
-    ii, jj = np.meshgrid(np.arange(side), np.arange(side), indexing="ij")
-    ii, jj = ii.ravel(), jj.ravel()
-    px = ii * 100.0 + rng.normal(0, 5, ii.size)  # jittered street grid
-    py = jj * 100.0 + rng.normal(0, 5, jj.size)
-    node = lambda i, j: i * side + j  # noqa: E731
-    h = (ii < side - 1)
-    v = (jj < side - 1)
-    a = np.r_[node(ii[h], jj[h]), node(ii[v], jj[v])]
-    b = np.r_[node(ii[h] + 1, jj[h]), node(ii[v], jj[v] + 1)]
-    keep = rng.random(a.size) >= 0.25
-    a, b = a[keep][:n_lines], b[keep][:n_lines]
-    m = len(a)
-    start = np.column_stack([px[a], py[a]]) + rng.uniform(-0.02, 0.02, (m, 2))
-    end = np.column_stack([px[b], py[b]]) + rng.uniform(-0.02, 0.02, (m, 2))
-    mid = (start + end) / 2 + rng.normal(0, 1, (m, 2))
-    coords = np.stack([start, mid, end], axis=1).reshape(-1, 2) + [500000.0, 4600000.0]
-    lines = shapely.linestrings(coords, indices=np.repeat(np.arange(m), 3))
-    return lines
+LAYERS = ("mains", "valves", "hydrants", "meters", "sources")
 
 
-def write_gis(path: Path, lines) -> None:
-    import geopandas as gpd
+def bare_read(gis: Path) -> float:
     import pyogrio
-    import shapely
 
-    n = len(lines)
-    # ground elevation as the lines' Z, as a utility's export carries it
-    xy = shapely.get_coordinates(lines)
-    z = 100.0 + 0.002 * (xy[:, 0] - xy[:, 0].min())
-    lines = shapely.linestrings(np.column_stack([xy, z]), indices=np.repeat(np.arange(n), 3))
-    gdf = gpd.GeoDataFrame({"MAIN_ID": np.char.add("M", np.arange(n).astype(str)),
-                            "DIAM_IN": np.full(n, 8.0), "MATL": "DI", "STATUS": "ACT"},
-                           geometry=lines, crs="EPSG:32616")
-    pyogrio.write_dataframe(gdf, path, layer="mains", driver="GPKG", use_arrow=True)
-    src = gpd.GeoDataFrame({"SRC_ID": ["S1"], "HGL_FT": [900.0]},
-                           geometry=gpd.points_from_xy([lines[0].coords[0][0]],
-                                                       [lines[0].coords[0][1]]),
-                           crs="EPSG:32616")
-    pyogrio.write_dataframe(src, path, layer="sources", driver="GPKG")
+    t0 = time.perf_counter()
+    for layer in LAYERS:
+        pyogrio.read_dataframe(gis, layer=layer, use_arrow=True)
+    return time.perf_counter() - t0
 
 
-def config(path: Path):
-    from gridflow.config import parse_config
+def one(gis: Path, repeat: int) -> dict:
+    from synthetic_utility import config_text
 
-    return parse_config({
-        "run": {"snap_tolerance": "0.5 m"},
-        "elevation": {"source": "z", "unit": "m"},
-        "inputs": {"gis": str(path)},
-        "layers": {
-            "pipes": {"input": "gis", "layer": "mains", "id": "MAIN_ID",
-                      "fields": {"diameter": "DIAM_IN", "material": "MATL",
-                                 "status": "STATUS"},
-                      "units": {"diameter": "in"},
-                      "codes": {"status": {"ACT": "open"}}},
-            "sources": {"input": "gis", "layer": "sources", "id": "SRC_ID",
-                        "fields": {"head": "HGL_FT"}, "units": {"head": "ft"}},
-        }}, base_dir=path.parent)
+    from gridflow.config import load_config
+    from gridflow.findings import Findings
+    from gridflow.io.read import read_inputs
+    from gridflow.topology import build_network
+
+    cfg_path = gis.with_suffix(".toml")
+    cfg_path.write_text(config_text(gis, fireflow=False, report=False))
+    cfg = load_config(cfg_path)
+    bare = float(np.median([bare_read(gis) for _ in range(repeat)]))
+    f = Findings()
+    t0 = time.perf_counter()
+    rr = read_inputs(cfg, f)
+    t1 = time.perf_counter()
+    clean = build_network(cfg, f, read=rr)
+    t2 = time.perf_counter()
+    rss = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+    return {"links": clean.network.n_links, "nodes": clean.network.n_nodes, "bare_s": bare,
+            "read_s": t1 - t0, "clean_s": t2 - t1, "findings": len(f), "peak_mb": rss}
 
 
 def main() -> None:
     ap = argparse.ArgumentParser()
     ap.add_argument("sizes", nargs="*", type=int, default=[100_000])
-    ap.add_argument("--repeat", type=int, default=3)
-    ap.add_argument("--trace", action="store_true", help="tracemalloc peak of read + clean")
+    ap.add_argument("--repeat", type=int, default=3, help="bare reads (median)")
+    ap.add_argument("--one", type=Path, help=argparse.SUPPRESS)
     args = ap.parse_args()
-    import pyogrio
+    if args.one:
+        print(json.dumps(one(args.one, args.repeat)))
+        return
+    from synthetic_utility import write_utility
 
-    from gridflow.findings import Findings
-    from gridflow.topology import build_network
-
-    print(f"{'lines':>8} {'bare read s':>12} {'read+clean s':>13} {'ratio':>6} "
-          f"{'nodes':>8} {'findings':>9} {'maxrss MB':>10} {'traced MB':>10}")
-    with tempfile.TemporaryDirectory() as d:
-        for n in args.sizes:
-            path = Path(d) / f"grid_{n}.gpkg"
-            write_gis(path, make_grid(n))
-            cfg = config(path)
-            bare, full = [], []
-            for _ in range(args.repeat):
-                t0 = time.perf_counter()
-                pyogrio.read_dataframe(path, layer="mains", use_arrow=True)
-                bare.append(time.perf_counter() - t0)
-                t0 = time.perf_counter()
-                f = Findings()
-                cn = build_network(cfg, f)
-                full.append(time.perf_counter() - t0)
-            traced = float("nan")
-            if args.trace:
-                import tracemalloc
-
-                tracemalloc.start()
-                build_network(cfg, Findings())
-                traced = tracemalloc.get_traced_memory()[1] / 2**20
-                tracemalloc.stop()
-            rss = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
-            b, c = float(np.median(bare)), float(np.median(full))
-            print(f"{cn.network.n_links:>8} {b:>12.2f} {c:>13.2f} {c / b:>6.2f} "
-                  f"{cn.network.n_nodes:>8} {len(f):>9} {rss:>10.0f} {traced:>10.0f}",
+    print(f"{'mains':>8} {'nodes':>8} {'links':>8} {'bare read s':>11} {'read s':>7} "
+          f"{'clean s':>8} {'read+clean':>10} {'ratio':>6} {'findings':>9} {'peak MB':>8}")
+    for n in args.sizes:
+        with tempfile.TemporaryDirectory() as d:
+            gis = Path(d) / "utility.gpkg"
+            write_utility(gis, n)
+            out = subprocess.run([sys.executable, __file__, "--one", str(gis), "--repeat",
+                                  str(args.repeat)], capture_output=True, text=True)
+            if out.returncode:
+                print(out.stderr[-2000:])
+                continue
+            r = json.loads(out.stdout.strip().splitlines()[-1])
+            rc = r["read_s"] + r["clean_s"]
+            print(f"{n:>8} {r['nodes']:>8} {r['links']:>8} {r['bare_s']:>11.2f} "
+                  f"{r['read_s']:>7.2f} {r['clean_s']:>8.2f} {rc:>10.2f} "
+                  f"{rc / r['bare_s']:>6.2f} {r['findings']:>9} {r['peak_mb']:>8.0f}",
                   flush=True)
 
 

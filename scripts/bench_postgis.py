@@ -44,7 +44,8 @@ def _median(fn, repeat: int = 3) -> float:
 def main(sizes: list[int]) -> None:
     import geopandas as gpd
     import pyogrio
-    from bench_gis import make_grid
+    import shapely
+    from synthetic_utility import make_utility
 
     from gridflow.config import load_config
     from gridflow.findings import Findings
@@ -58,7 +59,7 @@ def main(sizes: list[int]) -> None:
     try:
         for n in sizes:
             rng = np.random.default_rng(7)
-            lines = make_grid(n, 7)
+            lines = shapely.force_2d(np.asarray(make_utility(n)["mains"].geometry.values))
             m = len(lines)
             gdf = gpd.GeoDataFrame({"MAIN_ID": np.char.add("M", np.arange(m).astype(str)),
                                     "DIAM_IN": rng.choice([6.0, 8.0, 12.0], m),

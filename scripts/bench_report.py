@@ -1,4 +1,4 @@
-"""Benchmark the HTML report inside a default run, on the synthetic utility of bench_run.py.
+"""Benchmark the HTML report inside a default run, on the synthetic utility of synthetic_utility.py.
 
 For each size, two runs in fresh processes on the same GeoPackage: the default run (report on)
 and the same run with the report off. Printed per size: the whole run, the report's own time
@@ -43,7 +43,7 @@ class _Stamps(logging.Handler):
 
 
 def one(gis: Path, n: int, report: bool) -> dict:
-    from bench_run import CONFIG
+    from synthetic_utility import config_text
 
     from gridflow.jobs.run import run_job
 
@@ -52,7 +52,7 @@ def one(gis: Path, n: int, report: bool) -> dict:
     logging.getLogger("gridflow").setLevel(logging.INFO)
     d = Path(tempfile.mkdtemp(dir=gis.parent))
     cfg = d / "utility.toml"
-    cfg.write_text(CONFIG.format(gis=gis.as_posix(), report=str(report).lower()))
+    cfg.write_text(config_text(gis, fireflow=False, report=report))
     out = d / "out.gpkg"
     t0 = time.perf_counter()
     run_job(cfg, out=out)
@@ -94,7 +94,7 @@ def main() -> None:
         gis, n, rep = Path(sys.argv[2]), int(sys.argv[3]), sys.argv[4] == "on"
         print(json.dumps(one(gis, n, rep)))
         return
-    from bench_run import write_utility
+    from synthetic_utility import write_utility
 
     sizes = [int(a) for a in sys.argv[1:]] or [100_000, 500_000]
     print(f"{'mains':>7} {'run s':>7} {'report s':>8} {'share':>6} | {'run off s':>9} | "

@@ -1,8 +1,8 @@
-"""Benchmark: valve segments and the shutdown-criticality sweep on street-grid networks.
+"""Benchmark: valve segments and the shutdown-criticality sweep on the synthetic utility.
 
-Isolation valves are placed the way utilities place them: on most legs of most intersections,
-one valve per leg near the intersection, about 70 % of the mains carrying one (common
-practice: "n - 1 valves per intersection"). Prints, per network size:
+The utility of ``synthetic_utility.py``, read and cleaned once: its isolation valves are placed
+the way utilities place them, on every leg of an intersection but one, about 6 m from it
+(common practice: "n - 1 valves per intersection"). Prints, per size (mains):
 
 - segments: time of :func:`gridflow.analysis.segments.find_segments` (segments, valves, and
   the dominator tree for unintended isolation) and its ratio to a bare
@@ -29,44 +29,17 @@ from scipy.sparse.csgraph import connected_components
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-from synthetic import grid_network, numeric_factorization_seconds  # noqa: E402
+from synthetic import numeric_factorization_seconds  # noqa: E402
+from utility_network import utility_network  # noqa: E402
 
 from gridflow.analysis.criticality import ClosureProblem, closure_sweep  # noqa: E402
 from gridflow.analysis.segments import find_segments  # noqa: E402
 from gridflow.hydraulics import HydraulicSystem, SolveOptions  # noqa: E402
-from gridflow.network import LINK_PIPE, LINK_VALVE, VALVE_ISOLATION, Network  # noqa: E402
+from gridflow.network import LINK_VALVE  # noqa: E402
 
 
-def with_valves(net: Network, share: float = 0.7, seed: int = 3) -> Network:
-    """Insert an isolation valve at the start of a share of the mains (vectorised)."""
-    rng = np.random.default_rng(seed)
-    pick = np.flatnonzero(rng.random(net.n_links) < share)
-    k = pick.size
-    new_nodes = net.n_nodes + np.arange(k)
-    fr = net.from_idx.copy()
-    fr[pick] = new_nodes  # the main now starts at the valve's downstream node
-    nl = net.n_links
-
-    def cat(a, b):
-        return np.concatenate([np.asarray(a), np.asarray(b)])
-
-    return Network.from_arrays(
-        node_id=cat(net.node_id, [f"v{i}" for i in range(k)]),
-        elevation_m=cat(net.elevation_m, net.elevation_m[net.from_idx[pick]]),
-        demand_m3s=cat(net.demand_m3s, np.zeros(k)),
-        fixed_head_m=cat(net.fixed_head_m, np.full(k, np.nan)),
-        link_id=cat(net.link_id, [f"V{i}" for i in range(k)]),
-        from_idx=cat(fr, net.from_idx[pick]), to_idx=cat(net.to_idx, new_nodes),
-        link_kind=cat(np.full(nl, LINK_PIPE), np.full(k, LINK_VALVE)),
-        length_m=cat(net.length_m, np.zeros(k)),
-        diameter_m=cat(net.diameter_m, net.diameter_m[pick]),
-        roughness=cat(net.roughness, net.roughness[pick]),
-        minor_k=cat(net.minor_k, np.full(k, 0.2)),  # open gate valve, K about 8 f_T (Crane)
-        valve_type=cat(np.zeros(nl), np.full(k, VALVE_ISOLATION)))
-
-
-def one(n_pipes: int, sample: int) -> dict:
-    net = with_valves(grid_network(n_pipes, seed=1)[0])
+def one(n_mains: int, sample: int) -> dict:
+    net, _, _ = utility_network(n_mains)
     t0 = time.perf_counter()
     seg = find_segments(net)
     t_seg = time.perf_counter() - t0
@@ -86,7 +59,7 @@ def one(n_pipes: int, sample: int) -> dict:
     sub = ClosureProblem(net=net, base=base, options=opts, min_pressure_m=14.06,
                          meters_per_node=np.ones(net.n_nodes),
                          hydrants_per_node=np.zeros(net.n_nodes), segments=seg)
-    out = {"pipes": n_pipes, "links": net.n_links, "segments": seg.n, "seg_s": t_seg,
+    out = {"mains": n_mains, "links": net.n_links, "segments": seg.n, "seg_s": t_seg,
            "cc_s": t_cc, "factor_ms": t_fact * 1e3, "cut": int((np.diff(seg.cut_ptr) > 0).sum())}
     for workers in (1, 2):
         t0 = time.perf_counter()
@@ -118,12 +91,12 @@ def main() -> None:
     ap.add_argument("--sizes", type=int, nargs="+", default=[10_000, 100_000])
     ap.add_argument("--sample", type=int, default=200)
     a = ap.parse_args()
-    print(f"{'pipes':>8} {'links':>8} {'segments':>8} {'cut':>5} {'seg s':>7} {'cc s':>7} "
+    print(f"{'mains':>8} {'links':>8} {'segments':>8} {'cut':>5} {'seg s':>7} {'cc s':>7} "
           f"{'ratio':>6} {'fact ms':>8} {'s/seg 1w':>9} {'facts 1w':>9} {'s/seg 2w':>9} "
           f"{'facts 2w':>9} {'x2':>5}")
     for n in a.sizes:
         d = one(n, a.sample)
-        print(f"{d['pipes']:>8} {d['links']:>8} {d['segments']:>8} {d['cut']:>5} "
+        print(f"{d['mains']:>8} {d['links']:>8} {d['segments']:>8} {d['cut']:>5} "
               f"{d['seg_s']:>7.3f} {d['cc_s']:>7.3f} {d['seg_s'] / d['cc_s']:>6.1f} "
               f"{d['factor_ms']:>8.2f} {d['per_seg_1']:>9.4f} {d['facts_1']:>9.1f} "
               f"{d['per_seg_2']:>9.4f} {d['facts_2']:>9.1f} "

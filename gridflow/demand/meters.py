@@ -16,6 +16,7 @@ from gridflow.demand.categories import as_codes, meter_categories, meter_field
 from gridflow.demand.records import Context, MeterResult
 from gridflow.errors import ConfigError, InputError
 from gridflow.network.model import LINK_PIPE, NODE_JUNCTION, STATUS_CLOSED, Network
+from gridflow.topology.nearest import nearest_lines
 from gridflow.units import FLOW, to_si
 
 __all__ = ["accumulate", "allocate_meters", "split_to_nodes"]
@@ -110,8 +111,7 @@ def allocate_meters(ctx: Context, clean, meters, replaced: set[str]) -> MeterRes
         if len(cand) == 0:
             continue
         tree = shapely.STRtree(lines[cand])
-        (q, t), d = tree.query_nearest(pts[sel], max_distance=max_distance,
-                                       return_distance=True, all_matches=False)
+        q, t, d = nearest_lines(tree, lines[cand], pts[sel], max_distance)
         link_idx[sel[q]] = cand[t]
         dist[sel[q]] = d
 
@@ -163,7 +163,7 @@ def report_unallocated(ctx, k, ids, pts, lines, any_main, eligible, link_zone, z
                                for i in ids[k]], pts[k].tolist())
         return
     tree = shapely.STRtree(lines[mains])
-    (q, t), d = tree.query_nearest(pts[k], return_distance=True, all_matches=False)
+    q, t, d = nearest_lines(tree, lines[mains], pts[k])
     near = np.full(len(k), -1, dtype=np.int64)
     near_d = np.full(len(k), np.nan)
     near[q] = mains[t]

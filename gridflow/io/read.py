@@ -369,8 +369,11 @@ def _outside_crs_area(geoms: np.ndarray, crs) -> np.ndarray:
     if area is None:
         out = ~finite
     else:
-        xs = np.r_[b[:, 0], b[:, 2], b[:, 0], b[:, 2]]
-        ys = np.r_[b[:, 1], b[:, 1], b[:, 3], b[:, 3]]
+        # the corners of each box; a point's (or a flat box's) repeated corners once only
+        wide, tall = b[:, 2] != b[:, 0], b[:, 3] != b[:, 1]
+        both = wide | tall
+        xs = np.r_[b[:, 0], b[wide, 2], b[tall, 0], b[both, 2]]
+        ys = np.r_[b[:, 1], b[wide, 1], b[tall, 3], b[both, 3]]
         if crs.is_geographic:
             lon, lat = xs, ys  # GeoPackage stores longitude first
         else:
@@ -388,7 +391,14 @@ def _outside_crs_area(geoms: np.ndarray, crs) -> np.ndarray:
             e = area.east + 360.0 + m
         inside = np.isfinite(lon) & np.isfinite(lat) & (lon >= w) & (lon <= e) & \
             (lat >= max(s_, -90.0)) & (lat <= min(nth, 90.0))
-        out = ~finite | ~inside.reshape(4, -1).all(axis=0)
+        m_ = len(b)
+        ok = inside[:m_].copy()
+        at = m_
+        for sel in (wide, tall, both):
+            k = int(sel.sum())
+            ok[sel] &= inside[at:at + k]
+            at += k
+        out = ~finite | ~ok
     bad[np.flatnonzero(present)[out]] = True
     return bad
 
@@ -475,7 +485,12 @@ def _ids(col: pd.Series, role: str, info: LayerInfo, findings: Findings) -> np.n
         missing = ~finite
     else:
         missing = pd.isna(col).to_numpy().copy()
-        txt = np.array([str(t).strip() for t in col.to_numpy(dtype=object)], dtype=object)
+        if isinstance(col.dtype, pd.StringDtype):  # text as read through Arrow: trimmed there
+            txt = col.str.strip().to_numpy(dtype=object, na_value="")
+        elif col.dtype.kind in "iu":
+            txt = vals.astype(str).astype(object)
+        else:
+            txt = np.array([str(t).strip() for t in col.to_numpy(dtype=object)], dtype=object)
         missing |= txt == ""
     if missing.any():
         rows = np.flatnonzero(missing)

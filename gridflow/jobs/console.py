@@ -11,8 +11,12 @@ __all__ = ["print_summary", "terminal_progress"]
 
 
 def print_summary(out_path: Path, layers: dict, findings: Findings, report: bool,
-                  published: str | None = None) -> None:
+                  published: str | None = None, *, units: str = "US") -> None:
     """A few lines on stdout for whoever ran the command: what was flagged, where it went."""
+    from gridflow.units import out_field
+
+    q_unit, q_factor = out_field("demand", units)
+    q_word = {"gpm": "gpm", "lps": "L/s"}.get(q_unit, q_unit)
     print(f"gridflow run: {len(layers['findings'])} finding(s) "
           f"({findings.count(severity='error')} error, {findings.count(severity='warning')} "
           "warning)")
@@ -28,8 +32,8 @@ def print_summary(out_path: Path, layers: dict, findings: Findings, report: bool
                   f"{int((df['supplied'] == 0).sum())} unsupplied node(s); "
                   f"{int(pipes['high_velocity'].sum())} fast, "
                   f"{int(pipes['high_headloss'].sum())} high-loss pipe(s); "
-                  f"{cut} node(s) cut off by shut devices, {short * 1000:.3g} L/s of demand not "
-                  "delivered")
+                  f"{cut} node(s) cut off by shut devices, {short * q_factor:.3g} {q_word} of "
+                  "demand not delivered")
     if "hydrants_fireflow" in layers:
         h = layers["hydrants_fireflow"]
         ins = h[h["in_service"] == 1]

@@ -391,7 +391,8 @@ def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
             published = publish_postgis(db_out, layers, crs=clean.crs)
         outs.commit()
         done = True
-        print_summary(out_path, layers, findings, cfg.report.enabled, published)
+        print_summary(out_path, layers, findings, cfg.report.enabled, published,
+                      units=cfg.run.units)
         return 0
     finally:
         if handler is not None:
@@ -428,6 +429,8 @@ def _fireflow(cfg, clean, results, opts, workers, scheduler, findings, info):
              ("fireflow:failing", str(summary["hydrants"] - summary["meets_required"])),
              ("fireflow:required_not_achievable", str(summary["required_not_achievable"])),
              ("fireflow:high_velocity", str(summary["high_velocity"])),
+             ("fireflow:full_newton_fallback", str(summary["fallback"])),
+             ("fireflow:factorizations", str(summary["factorizations"])),
              ("fireflow:seconds", f"{time.perf_counter() - t0:.2f}")]
     return layer
 
@@ -459,4 +462,3 @@ def _report(cfg, html, clean, results, layers, info, routine, rating):
                       hgl_path=cfg.report.hgl_path or None, worst_rows=cfg.report.worst_rows)
     write_report(html, data, extra_tables=[limiting_nodes_table, flow_tests_table,
                                            segments_table])
-    log.info("wrote %s", html)

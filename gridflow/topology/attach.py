@@ -24,6 +24,7 @@ from __future__ import annotations
 import numpy as np
 import shapely
 
+from gridflow.topology.nearest import nearest_lines
 from gridflow.topology.points import column, point_layer
 from gridflow.topology.records import Attached, Context, Device, PointLayer, Snapped
 
@@ -91,7 +92,7 @@ def attach_points(ctx: Context, sn: Snapped) -> Attached:
             up[e1], down[e1] = k, sn.lab_e[li[e1]]
             end_key[li[e1]] = k
         devices.append(Device(points=pl, line=li, up=up, down=down,
-                              reversed=_against(ctx, pl, sn.geoms[li], s, glen[li])))
+                              reversed=_against(ctx, pl, sn.geoms[li], s, glen[li]), xy=pxy))
     order = np.lexsort((ev_s, ev_line))
     return Attached(key_xy=np.vstack(keys.xy), n_clusters=len(sn.cxy),
                     ev_line=ev_line[order].astype(np.int64), ev_s=ev_s[order],
@@ -151,12 +152,15 @@ def _nearest(tree, geoms, pts, sd):
     """(point idx, line idx, distance) of the nearest main within ``sd``; and all distances."""
     if len(pts) == 0 or len(geoms) == 0:
         return (np.zeros(0, int),) * 2 + (np.zeros(0),), np.full(len(pts), np.inf)
-    (pi, li), dist = tree.query_nearest(shapely.force_2d(pts), return_distance=True,
-                                        all_matches=False)
+    pts = shapely.force_2d(pts) if shapely.has_z(pts).any() else pts
+    pi, li, dist = nearest_lines(tree, geoms, pts, sd)
     full = np.full(len(pts), np.inf)
     full[pi] = dist
-    ok = dist <= sd
-    return (pi[ok], li[ok], dist[ok]), full
+    un = np.flatnonzero(~np.isfinite(full))
+    if un.size:  # the nearest beyond the search distance, for the findings
+        (q, _), d = tree.query_nearest(pts[un], return_distance=True, all_matches=False)
+        full[un[q]] = d
+    return (pi, li, dist), full
 
 
 def _hydrant_events(ctx, sn, tree, glen, keys, hyd, t_line, t_key, t_s):

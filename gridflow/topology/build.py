@@ -27,7 +27,7 @@ nodes; a missing layer or field, a layer without CRS, text where a number belong
 
 from __future__ import annotations
 
-import shapely
+import numpy as np
 
 from gridflow.findings import Findings
 from gridflow.io.dem import sample_dem
@@ -86,7 +86,7 @@ def build_network(cfg, findings: Findings, *, read: ReadResult | None = None) ->
     elev, guessed = fill_elevations(ctx, nodes, links, dem)
     clean = assemble(ctx, attached, nodes, links, elev, guessed)
     connectivity_findings(findings, clean.network, links.cols["geom"],
-                          shapely.points(nodes.xy), pipes.layer)
+                          np.asarray(clean.nodes.geometry.values, dtype=object), pipes.layer)
     isolation_findings(ctx, clean)
     pump_grade_findings(ctx, clean.network)
     return clean

@@ -11,6 +11,7 @@ says how it is modelled instead.
 from __future__ import annotations
 
 import numpy as np
+import pandas as pd
 import shapely
 
 from gridflow.network import (
@@ -148,8 +149,9 @@ def _device_columns(ctx: Context, sn: Snapped, dev: Device, nt: NodeTable) -> di
                       pts[r])
                 kind[r], vt[r], status[r], d[r] = LINK_VALVE, VALVE_ISOLATION, STATUS_CLOSED, \
                     main_d[r]
-    xy = shapely.get_coordinates(shapely.line_interpolate_point(
-        sn.geoms[li], shapely.line_locate_point(sn.geoms[li], pts)))
+    xy = dev.xy if dev.xy is not None else shapely.get_coordinates(
+        shapely.line_interpolate_point(sn.geoms[li], shapely.line_locate_point(sn.geoms[li],
+                                                                                pts)))
     up, down = nt.idx_of_key[dev.up], nt.idx_of_key[dev.down]
     fi = np.where(dev.reversed, down, up)
     ti = np.where(dev.reversed, up, down)
@@ -168,8 +170,9 @@ def _prefix_collisions(ids: np.ndarray, kind: np.ndarray) -> np.ndarray:
     if (kind == LINK_PIPE).all():
         return ids.astype(object)
     ids = ids.astype(object).copy()
-    pipe_ids = set(ids[kind == LINK_PIPE].tolist())
+    text = pd.Index(ids.astype(str), dtype=object)
+    is_pipe_id = text.isin(pd.Index(text[kind == LINK_PIPE]).unique())
     for k, name in ((LINK_VALVE, "valve"), (LINK_PUMP, "pump")):
-        m = (kind == k) & np.isin(ids.astype(str), list(pipe_ids))
+        m = (kind == k) & is_pipe_id
         ids[m] = [f"{name}:{x}" for x in ids[m]]
     return ids

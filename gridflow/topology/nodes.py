@@ -72,17 +72,31 @@ def number_nodes(ctx: Context, sn: Snapped, at: Attached, sp: Split) -> NodeTabl
         kind[i], fixed_head[i], node_id[i] = fk, head, fid
         if np.isfinite(el):
             elev[i] = el
-    taken = set(node_id[node_id != None].tolist())  # noqa: E711
     gen = node_id == None  # noqa: E711
-    prefix = "N"
-    while any(f"{prefix}{i + 1}" in taken for i in range(int(gen.sum()))):
-        prefix += "N"
-    node_id[gen] = [f"{prefix}{i + 1}" for i in range(int(gen.sum()))]
+    node_id[gen] = _generated_ids(node_id[~gen], int(gen.sum()))
     standin = np.zeros(nn, bool)
     standin[idx_of_key[sorted(standin_keys)]] = True
     return NodeTable(keys=keys, idx_of_key=idx_of_key, xy=node_xy,
                      node_id=unique_ids(node_id), kind=kind, fixed_head_m=fixed_head,
                      elevation_m=elev, standin=standin, zone=zone)
+
+
+def _generated_ids(taken: np.ndarray, n: int) -> np.ndarray:
+    """``N1`` ... ``Nn``, the prefix lengthened (``NN1`` ...) until no id is taken."""
+    import pandas as pd
+
+    # a taken id collides with N...Nk (k in 1..n) when it is L letters N then k
+    m = pd.Series(np.asarray(taken, dtype=object).astype(str), dtype=object).str.extract(
+        r"^(N+)([1-9][0-9]*)\Z")
+    m = m[m[0].notna()]
+    clash = m[0].str.len().to_numpy()[m[1].str.len().to_numpy() <= len(str(n))]
+    num = m[1].to_numpy()[m[1].str.len().to_numpy() <= len(str(n))]
+    clash = clash[np.array([int(x) <= n for x in num], dtype=bool)] if len(num) else clash
+    width = 1
+    while width in set(clash.tolist()):
+        width += 1
+    prefix = "N" * width
+    return np.array([f"{prefix}{i}" for i in range(1, n + 1)], dtype=object)
 
 
 def _levels_are_elevations(ctx: Context, role: str, frame) -> np.ndarray:
@@ -205,7 +219,12 @@ def unique_ids(ids: np.ndarray) -> np.ndarray:
     """Ids made unique with a '#k' suffix on repeats (repeats across layers)."""
     import pandas as pd
 
-    s = pd.Series(ids.astype(str))
+    ids = np.asarray(ids)
+    text = (ids if ids.dtype == object and pd.api.types.infer_dtype(ids, skipna=False)
+            == "string" else ids.astype(str).astype(object))
+    if pd.Index(text, dtype=object).is_unique:  # the usual case: one hash pass
+        return ids.astype(object)
+    s = pd.Series(text, dtype=object)
     k = s.groupby(s, sort=False).cumcount().to_numpy()
     if (k > 0).any():
         out = s.to_numpy(dtype=object)

@@ -94,6 +94,7 @@ class Device:
     up: np.ndarray
     down: np.ndarray
     reversed: np.ndarray  # bool: acts against the main's digitised direction
+    xy: np.ndarray | None = None  # where each device sits on its main [m] (None: recompute)
 
 
 @dataclass(frozen=True)

@@ -16,6 +16,7 @@ from gridflow.network import (
     VALVE_PRESSURE_REDUCING,
 )
 from gridflow.topology.clean import CleanNetwork
+from gridflow.topology.nearest import nearest_lines
 from gridflow.topology.records import Context
 from gridflow.topology.zones import components
 
@@ -93,7 +94,7 @@ def _meter_nodes(ctx: Context, clean: CleanNetwork) -> tuple[np.ndarray, np.ndar
     ok = ~(shapely.is_missing(pts) | shapely.is_empty(pts))
     node = np.full(len(pts), -1, dtype=np.int64)
     if len(pipes) and ok.any():
-        pi, li = shapely.STRtree(geoms).query_nearest(pts[ok], all_matches=False)
+        pi, li, _ = nearest_lines(shapely.STRtree(geoms), geoms, pts[ok])
         link = pipes[li]
         s = shapely.line_locate_point(geoms[li], pts[ok][pi])
         near_from = s <= shapely.length(geoms[li]) / 2

@@ -172,3 +172,69 @@ def test_mode_is_explicit():
         ds.solve(1, "head", 60.0, limit_node=0)
     with pytest.raises(ValueError, match="limit_node"):
         ds.solve(1, "limit", 60.0)
+
+
+# ---------------------------------------------------------------------- the fused law
+def test_fused_law_matches_the_published_formulas():
+    """The draw solver's one-pass law for Hazen-Williams pipes with minor losses against the
+    plain published formulas: Hazen-Williams in SI, h = 10.67 L Q^1.852 / (C^1.852 D^4.87)
+    (any hydraulics handbook; from memory), and the minor loss h = K v^2 / (2 g)."""
+    from gridflow.hydraulics.headloss import EPS_FLOW
+
+    rng = np.random.default_rng(3)
+    n = 200
+    length = 10 + 500 * rng.random(n)
+    d = rng.choice([0.1016, 0.1524, 0.2032, 0.3048], n)
+    c = rng.uniform(80, 150, n)
+    k = np.where(rng.random(n) < 0.5, rng.uniform(0.5, 6.0, n), 0.0)
+    q = rng.normal(0, 0.05, n)
+    q[np.abs(q) < 1e-3] = 2e-3  # far above the regularisation flow
+    r = 10.67 * length / (c**1.852 * d**4.87)
+    area = np.pi * d * d / 4
+    m = k / (2 * 9.80665 * area**2)
+    h, g = DrawSolver._fused_law(q, r, m)
+    want = r * np.sign(q) * np.abs(q) ** 1.852 + k * (q / area) * np.abs(q / area) / (2 * 9.80665)
+    # the regularisation (eps^2 / q^2 <= 1e-8 here) is the only difference
+    np.testing.assert_allclose(h, want, rtol=1e-7)
+    # derivative: d/dq (r q|q|^0.852 + m q|q|) = 1.852 r |q|^0.852 + 2 m |q|
+    dwant = 1.852 * r * np.abs(q) ** 0.852 + 2 * m * np.abs(q)
+    np.testing.assert_allclose(g, dwant, rtol=1e-7)
+    # without minor losses, and at zero flow the regularised slope (floored, finite)
+    h0, g0 = DrawSolver._fused_law(np.zeros(n), r, None)
+    assert np.all(h0 == 0) and np.all(np.isfinite(g0)) and np.all(g0 > 0)
+    assert EPS_FLOW < 1e-5
+
+
+@settings(max_examples=20, deadline=None, derandomize=True, database=None)
+@given(seed=st.integers(0, 10**6), n=st.integers(3, 35), pick=st.integers(0, 10**6),
+       frac=st.floats(0.05, 0.8))
+def test_pinned_draw_with_minor_losses_matches_full_newton(seed, n, pick, frac):
+    """Random seeded networks with minor losses on about half the pipes (the fused law's
+    second term): the pinned draw equals full Newton, with mass and head-loss checks by the
+    plain formulas."""
+    network = random_network(seed, n)
+    rng = np.random.default_rng(seed + 1)
+    kk = np.where(rng.random(network.n_links) < 0.5, rng.uniform(0.2, 10.0, network.n_links),
+                  0.0)
+    kk[0] = 2.0
+    network = network.replace(minor_k=kk)
+    system = HydraulicSystem(network, TIGHT)
+    base = system.solve(raise_on_failure=False)
+    assume(base.converged)
+    ds = DrawSolver(system, base)
+    assert ds._fused and ds._m is not None
+    free = np.flatnonzero(~network.is_fixed)
+    k = int(free[pick % len(free)])
+    head = base.head_m[k] - frac * (base.head_m[k] - network.elevation_m[k] + 5.0)
+    full = system.solve(pin_idx=np.array([k]), pin_head_m=np.array([head]), warm=base,
+                        raise_on_failure=False)
+    assume(full.converged)
+    out = ds.solve(k, "head", head)
+    assert out.success, out.message
+    r = out.result
+    np.testing.assert_allclose(r.head_m, full.head_m, atol=1e-6)
+    np.testing.assert_allclose(r.flow_m3s, full.flow_m3s, atol=1e-7)
+    draw = r.extra["draw_m3s"]
+    assert_physics(network, with_draw(r, k, draw), mass_tol=1e-8, head_tol=1e-6)
+    supply = -r.node_inflow_m3s[network.is_fixed].sum()
+    assert supply == pytest.approx(network.demand_m3s.sum() + draw, rel=1e-7, abs=1e-10)

@@ -290,6 +290,7 @@ def test_run_prints_a_summary_with_the_caution(tmp_path):
     lines = [ln for ln in res.output.splitlines() if ln.startswith("  ") and "low-pressure" in ln]
     assert len(lines) == 3
     assert all("demand not delivered" in ln and "cut off by shut devices" in ln for ln in lines)
+    assert all(" gpm of demand" in ln for ln in lines)  # a US run speaks gpm
     assert "model estimates" in res.output and "licensed engineers decide" in res.output
 
 

@@ -1,0 +1,67 @@
+"""The nearest main per point from bounded queries answers exactly as shapely's
+``STRtree.query_nearest`` (the reference: shapely 2, a general-purpose library), ties included."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import shapely
+
+from gridflow.topology.nearest import nearest_lines
+
+
+def _grid(seed: int = 3):
+    """A jittered 100 m street grid (40 x 40 nodes), mains with a bent middle vertex."""
+    rng = np.random.default_rng(seed)
+    side = 40
+    ii, jj = np.meshgrid(np.arange(side), np.arange(side), indexing="ij")
+    ii, jj = ii.ravel(), jj.ravel()
+    xy = np.column_stack([ii * 100.0, jj * 100.0]) + rng.normal(0, 4, (ii.size, 2))
+    h, v = ii < side - 1, jj < side - 1
+    a = np.r_[ii[h] * side + jj[h], ii[v] * side + jj[v]]
+    b = np.r_[(ii[h] + 1) * side + jj[h], ii[v] * side + jj[v] + 1]
+    keep = rng.random(a.size) > 0.25
+    a, b = a[keep], b[keep]
+    mid = (xy[a] + xy[b]) / 2 + rng.normal(0, 1, (a.size, 2))
+    coords = np.stack([xy[a], mid, xy[b]], axis=1).reshape(-1, 2)
+    return shapely.linestrings(coords, indices=np.repeat(np.arange(a.size), 3)), xy, rng
+
+
+@pytest.mark.parametrize("max_distance", [None, 0.0, 5.0, 30.0, 150.0, 1000.0])
+def test_same_answer_as_query_nearest(max_distance):
+    lines, xy, rng = _grid()
+    tree = shapely.STRtree(lines)
+    near = shapely.points(xy[rng.integers(0, len(xy), 800)] + rng.normal(0, 15, (800, 2)))
+    far = shapely.points(rng.uniform(-3000, 7000, (300, 2)))  # many beyond every main
+    at_nodes = shapely.get_point(lines[:300], 0)  # equally near to every main there: ties
+    on_lines = shapely.line_interpolate_point(lines[:200], 0.3, normalized=True)
+    pts = np.concatenate([near, far, at_nodes, on_lines])
+    rng.shuffle(pts)
+    (q, t), d = tree.query_nearest(pts, max_distance=max_distance or None,
+                                   return_distance=True, all_matches=False)
+    if max_distance == 0.0:  # a zero search distance: only points on a main
+        q, t, d = q[d <= 0], t[d <= 0], d[d <= 0]
+    p2, l2, d2 = nearest_lines(tree, lines, pts, max_distance)
+    assert np.array_equal(q, p2)
+    assert np.array_equal(t, l2)
+    assert np.array_equal(d, d2)
+    if max_distance is not None:
+        assert (d2 <= max_distance).all()
+
+
+def test_ties_exist_and_fall_as_query_nearest_lets_them():
+    lines, _, _ = _grid()
+    tree = shapely.STRtree(lines)
+    pts = shapely.get_point(lines[:300], 0)
+    (q, t), _ = tree.query_nearest(pts, return_distance=True, all_matches=True)
+    assert len(q) > len(np.unique(q))  # the case is really there: several mains at 0 m
+    (q1, t1), _ = tree.query_nearest(pts, return_distance=True, all_matches=False)
+    p2, l2, _ = nearest_lines(tree, lines, pts)
+    assert np.array_equal(q1, p2) and np.array_equal(t1, l2)
+
+
+def test_empty_inputs():
+    lines, _, _ = _grid()
+    tree = shapely.STRtree(lines)
+    p, l_, d = nearest_lines(tree, lines, np.array([], dtype=object), 10.0)
+    assert p.size == l_.size == d.size == 0
