@@ -29,9 +29,10 @@ def write_geopackage(path: str | Path, layers: Mapping[str, object], *,
     ----------
     path : path
         The output GeoPackage; replaced only when every layer is written.
-    layers : mapping of str to GeoDataFrame or DataFrame
+    layers : mapping of str to GeoDataFrame, DataFrame or DeferredLayer
         Layer name to data, written in order. A DataFrame without geometry becomes an
-        attribute-only table (e.g. ``run_info``).
+        attribute-only table (e.g. ``run_info``); a :class:`gridflow.io.deferred.DeferredLayer`
+        is built just before it is written and let go after.
     inputs : sequence of paths
         The run's input files: writing over one of them is refused.
     styles : bool, optional
@@ -61,9 +62,11 @@ def write_layers(path: str | Path, layers: Mapping[str, object], *,
     """Write layers into a new GeoPackage at ``path`` (not atomic: see :func:`write_geopackage`)."""
     import pyogrio
 
+    from gridflow.io.deferred import materialize
+
     tmp = str(path)
-    for name, df in layers.items():
-        _write_layer(pyogrio, tmp, name, df)
+    for name, layer in layers.items():
+        _write_layer(pyogrio, tmp, name, materialize(layer))
     if styles:
         from gridflow.io.styles import store_styles
 

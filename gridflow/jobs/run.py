@@ -220,10 +220,12 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
 def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
          previous, workers, scheduler, t_start: float, started, db_out) -> int:
     from gridflow.analysis.changes import compare_flags, flag_set, read_previous_flags
+    from gridflow.analysis.flags import node_flags, pipe_flags
     from gridflow.config.database import is_database, parse_database
     from gridflow.demand import allocate, run_info_rows, scenario_network
     from gridflow.io.postgis import last_snapshots
     from gridflow.io.postgis import read_previous_flags as pg_previous_flags
+    from gridflow.io.deferred import DeferredLayer
     from gridflow.io.publish import publish_postgis
     from gridflow.io.write import write_layers
     from gridflow.jobs.stages import scenario_layers
@@ -312,14 +314,23 @@ def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
                              msg, clean.links.geometry.values[wl])
                 failure = ConvergenceError(msg, node_id=net.node_id[wn], link_id=net.link_id[wl])
                 break
-            nodes, pipes = scenario_layers(cfg, clean, net, r)
+            # the flags the layers carry, counted on the same arrays; the layers themselves
+            # are built one at a time when written (a GeoDataFrame per scenario held to the
+            # end costs several times the arrays at the scale of a large utility)
+            nflags = node_flags(net, r, cfg.criteria)
+            pflags = pipe_flags(net, r, cfg.criteria)
             for flag in ("low_pressure", "high_pressure", "negative_pressure"):
-                info.append((f"{name}:{flag}", str(int(nodes[flag].sum()))))
-            info.append((f"{name}:unsupplied", str(int((nodes["supplied"] == 0).sum()))))
+                info.append((f"{name}:{flag}", str(int(nflags[flag].sum()))))
+            info.append((f"{name}:unsupplied", str(int((nflags["supplied"] == 0).sum()))))
             for flag in ("high_velocity", "high_headloss"):
-                info.append((f"{name}:{flag}", str(int(pipes[flag].sum()))))
-            layers[f"nodes_{name}"] = nodes
-            layers[f"pipes_{name}"] = pipes
+                info.append((f"{name}:{flag}", str(int(pflags[flag].sum()))))
+            del nflags, pflags
+            layers[f"nodes_{name}"] = DeferredLayer(
+                lambda net=net, r=r: scenario_layers(cfg, clean, net, r, which="nodes"),
+                net.n_nodes)
+            layers[f"pipes_{name}"] = DeferredLayer(
+                lambda net=net, r=r: scenario_layers(cfg, clean, net, r, which="pipes"),
+                net.n_links)
             results[name] = (net, r, system)
             log.info("scenario %s: %s", name, r.message)
 
