@@ -62,11 +62,14 @@ def write_layers(path: str | Path, layers: Mapping[str, object], *,
     """Write layers into a new GeoPackage at ``path`` (not atomic: see :func:`write_geopackage`)."""
     import pyogrio
 
-    from gridflow.io.deferred import materialize
+    from gridflow.io.deferred import DeferredLayer, materialize
+    from gridflow.memory import release_memory
 
     tmp = str(path)
     for name, layer in layers.items():
         _write_layer(pyogrio, tmp, name, materialize(layer))
+        if isinstance(layer, DeferredLayer):  # its frame and Arrow buffers are free now
+            release_memory()
     if styles:
         from gridflow.io.styles import store_styles
 

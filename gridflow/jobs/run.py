@@ -26,6 +26,7 @@ from gridflow.io.atomic import OutputSet
 from gridflow.jobs.check import file_sha256
 from gridflow.jobs.console import print_summary, terminal_progress
 from gridflow.jobs.signals import stop_on_signals
+from gridflow.memory import release_memory, resident_mb
 from gridflow.network import NODE_JUNCTION, Network
 
 __all__ = ["run_job", "solve_options", "verify_solution", "require_solvable",
@@ -91,6 +92,12 @@ def shut_zone_findings(name: str, system: HydraulicSystem, r: HydraulicResult, f
         n_nodes += len(z.nodes)
         undelivered += z.required_m3s
     return n_nodes, undelivered
+
+
+def _released(stage: str) -> None:
+    """Free memory back to the system after a large stage; the resident size to the log."""
+    release_memory()
+    log.debug("memory after %s: %.0f MB resident", stage, resident_mb())
 
 
 def _attach_log_file(log_path: Path) -> logging.Handler | None:
@@ -255,11 +262,13 @@ def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
         clean = build_network(cfg, findings)
         require_solvable(cfg, clean)
         info += [(f"input_snapshot:{k}", v) for k, v in last_snapshots().items()]
+        _released("reading and cleaning")
         info.append(("seconds_read_clean", f"{time.perf_counter() - t0:.2f}"))
         log.info("network: %d nodes, %d links", clean.network.n_nodes, clean.network.n_links)
         t0 = time.perf_counter()
         alloc = allocate(cfg, clean, findings)
         info += run_info_rows(alloc, cfg.run.units)
+        _released("demand allocation")
         info.append(("seconds_demand", f"{time.perf_counter() - t0:.2f}"))
 
         opts = solve_options(cfg)
@@ -287,6 +296,7 @@ def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
                                            link_id=exc.fields.get("link_id"))
                 info.append((f"{name}:converged", "0"))
                 break
+            _released(f"scenario {name}")
             mass, headres, wn, wl = verify_solution(system, r)
             cut_nodes, cut_m3s = shut_zone_findings(
                 name, system, r, findings, clean.links.geometry.values,
@@ -355,6 +365,7 @@ def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
             layers["segments"] = segments_step(
                 cfg, clean, alloc, s_net, s_base, opts, workers=workers, scheduler=scheduler,
                 findings=findings, info=info, progress=terminal_progress("segment closures"))
+            _released("valve segments")
             info.append(("seconds_segments", f"{time.perf_counter() - t0:.2f}"))
 
         # the layer holds what someone should look at; routine facts become counts
@@ -384,6 +395,7 @@ def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
             failure.args = (failure.message,)
             raise failure
         published = None
+        _released("the analyses")
         if db_out is None:
             gpkg = outputs["output GeoPackage"]
             outs.write(gpkg, lambda tmp: write_layers(tmp, layers, styles=True))
@@ -393,6 +405,7 @@ def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
             outs.write(html, lambda tmp: _report(cfg, tmp, clean, results, layers, info,
                                                   routine, rating))
             log.info("wrote %s", html)
+            _released("the report")
         if handler is not None:
             logging.getLogger("gridflow").removeHandler(handler)
             handler.close()

@@ -32,6 +32,7 @@ import numpy as np
 from gridflow.findings import Findings
 from gridflow.io.dem import sample_dem
 from gridflow.io.read import ReadResult, read_inputs
+from gridflow.memory import release_memory
 from gridflow.topology.assemble import assemble
 from gridflow.topology.attach import attach_points
 from gridflow.topology.clean import CleanNetwork
@@ -71,6 +72,7 @@ def build_network(cfg, findings: Findings, *, read: ReadResult | None = None) ->
         No usable main left.
     """
     rr = read if read is not None else read_inputs(cfg, findings)
+    release_memory()  # the reader's Arrow buffers
     ctx = Context(cfg=cfg, read=rr, findings=findings, tol=float(cfg.run.snap_tolerance),
                   crs=rr.crs)
     pipes = prepare_pipes(ctx)
@@ -79,6 +81,8 @@ def build_network(cfg, findings: Findings, *, read: ReadResult | None = None) ->
     split = split_mains(snapped, attached)
     nodes = number_nodes(ctx, snapped, attached, split)
     links = link_table(ctx, snapped, attached, split, nodes)
+    del split
+    release_memory()
     dem = None
     if cfg.elevation.source == "dem":
         dem = sample_dem(cfg.resolve(cfg.elevation.dem), nodes.xy[:, 0], nodes.xy[:, 1],
