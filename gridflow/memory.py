@@ -25,10 +25,9 @@ def _libc():
         return None
     try:
         libc = ctypes.CDLL(ctypes.util.find_library("c") or "libc.so.6")
-        libc.malloc_trim  # glibc only (musl has none)
-    except (OSError, AttributeError):
+    except OSError:
         return None
-    return libc
+    return libc if hasattr(libc, "malloc_trim") else None  # glibc only (musl has none)
 
 
 def release_memory() -> None:

@@ -8,6 +8,7 @@ previous version is left as it was: findings name the worst node and link); 1 un
 from __future__ import annotations
 
 import datetime as _dt
+import functools
 import logging
 import os
 import sys
@@ -230,9 +231,9 @@ def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
     from gridflow.analysis.flags import node_flags, pipe_flags
     from gridflow.config.database import is_database, parse_database
     from gridflow.demand import allocate, run_info_rows, scenario_network
+    from gridflow.io.deferred import DeferredLayer
     from gridflow.io.postgis import last_snapshots
     from gridflow.io.postgis import read_previous_flags as pg_previous_flags
-    from gridflow.io.deferred import DeferredLayer
     from gridflow.io.publish import publish_postgis
     from gridflow.io.write import write_layers
     from gridflow.jobs.stages import scenario_layers
@@ -273,7 +274,9 @@ def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
 
         opts = solve_options(cfg)
         layers: dict[str, object] = {}
-        results: dict[str, tuple[Network, HydraulicResult, HydraulicSystem]] = {}
+        # per scenario, its network and result; not its system (link laws, components): only
+        # the last one is kept, for its shared factorization pattern
+        results: dict[str, tuple[Network, HydraulicResult]] = {}
         rating = getattr(clean.links, "pressure_rating_m", None)
         rating = None if rating is None else np.asarray(rating, dtype=float)
         failure: ConvergenceError | None = None
@@ -336,12 +339,13 @@ def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
                 info.append((f"{name}:{flag}", str(int(pflags[flag].sum()))))
             del nflags, pflags
             layers[f"nodes_{name}"] = DeferredLayer(
-                lambda net=net, r=r: scenario_layers(cfg, clean, net, r, which="nodes"),
+                functools.partial(scenario_layers, cfg, clean, net, r, which="nodes"),
                 net.n_nodes)
             layers[f"pipes_{name}"] = DeferredLayer(
-                lambda net=net, r=r: scenario_layers(cfg, clean, net, r, which="pipes"),
+                functools.partial(scenario_layers, cfg, clean, net, r, which="pipes"),
                 net.n_links)
-            results[name] = (net, r, system)
+            results[name] = (net, r)
+            del system
             log.info("scenario %s: %s", name, r.message)
 
         if failure is None and cfg.fireflow.enabled and len(clean.hydrants):
@@ -361,7 +365,7 @@ def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
             t0 = time.perf_counter()
             seg_name = cfg.segments.scenario if cfg.segments.scenario in results else \
                 next(iter(results))
-            s_net, s_base, _ = results[seg_name]
+            s_net, s_base = results[seg_name]
             layers["segments"] = segments_step(
                 cfg, clean, alloc, s_net, s_base, opts, workers=workers, scheduler=scheduler,
                 findings=findings, info=info, progress=terminal_progress("segment closures"))
@@ -436,7 +440,7 @@ def _fireflow(cfg, clean, results, opts, workers, scheduler, findings, info):
     from gridflow.jobs.stages import fireflow_layer
 
     name = cfg.fireflow.scenario
-    net, base, _ = results[name]
+    net, base = results[name]
     t0 = time.perf_counter()
     ff, layer = fireflow_layer(cfg, clean, net, base, opts, workers=workers,
                                scheduler=scheduler, progress=terminal_progress("fire flow"))
@@ -469,7 +473,7 @@ def _report(cfg, html, clean, results, layers, info, routine, rating):
     from gridflow.report.segments import segments_table
 
     scenarios = [ScenarioData.solved(name, net, r, cfg.criteria)
-                 for name, (net, r, _) in results.items()]
+                 for name, (net, r) in results.items()]
     geoms = clean.nodes.geometry.values
     xy = None
     if len(geoms) == scenarios[0].network.n_nodes:
