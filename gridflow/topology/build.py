@@ -76,12 +76,16 @@ def build_network(cfg, findings: Findings, *, read: ReadResult | None = None) ->
     ctx = Context(cfg=cfg, read=rr, findings=findings, tol=float(cfg.run.snap_tolerance),
                   crs=rr.crs)
     pipes = prepare_pipes(ctx)
+    if read is None:  # the mains as read are not needed again (prepared: ``pipes``)
+        rr.layers.pop("pipes", None)
+    pipes_layer = pipes.layer
     snapped = snap_ends(ctx, pipes)
+    del pipes
     attached = attach_points(ctx, snapped)
     split = split_mains(snapped, attached)
     nodes = number_nodes(ctx, snapped, attached, split)
     links = link_table(ctx, snapped, attached, split, nodes)
-    del split
+    del split, snapped  # large intermediates go before the network's arrays are made
     release_memory()
     dem = None
     if cfg.elevation.source == "dem":
@@ -89,8 +93,9 @@ def build_network(cfg, findings: Findings, *, read: ReadResult | None = None) ->
                          rr.crs, z_factor(cfg))
     elev, guessed = fill_elevations(ctx, nodes, links, dem)
     clean = assemble(ctx, attached, nodes, links, elev, guessed)
+    del attached, nodes
     connectivity_findings(findings, clean.network, links.cols["geom"],
-                          np.asarray(clean.nodes.geometry.values, dtype=object), pipes.layer)
+                          np.asarray(clean.nodes.geometry.values, dtype=object), pipes_layer)
     isolation_findings(ctx, clean)
     pump_grade_findings(ctx, clean.network)
     return clean
