@@ -246,7 +246,7 @@ def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
         prev_flags = (None if not previous else pg_previous_flags(previous)
                       if is_database(previous) else read_previous_flags(previous))
         system_units = cfg.run.units
-        findings = Findings()
+        findings = Findings(keep_routine=False)  # routine facts: counts only (run_info)
         info: list[tuple[str, str]] = [
             ("name", cfg.run.name), ("tool_version", __version__), ("config", str(cfg.path)),
             ("config_sha256", cfg.sha256), ("unit_system", system_units),
