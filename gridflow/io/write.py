@@ -77,18 +77,28 @@ def write_layers(path: str | Path, layers: Mapping[str, object], *,
     return Path(path)
 
 
+#: rows per call when writing a large layer: its Arrow copy is made a part at a time
+#: (the file is the same as from one call)
+WRITE_CHUNK_ROWS = 1_000_000
+
+
 def _write_layer(pyogrio, tmp: str, name: str, df) -> None:
     import geopandas as gpd
+    import numpy as np
     import pandas as pd
+    import shapely
 
     if isinstance(df, gpd.GeoDataFrame) and df.geometry.name in df:
-        geom = df.geometry
-        types = set(geom.geom_type.dropna().unique())
+        ids = shapely.get_type_id(df.geometry.values)  # -1: missing (no geometry)
+        types = np.unique(ids[ids >= 0])
         kw = {}
         if len(types) != 1:
             kw["geometry_type"] = "Unknown"  # mixed or all empty (findings)
-        pyogrio.write_dataframe(df, tmp, layer=name, driver="GPKG", use_arrow=True,
-                                promote_to_multi=False, **kw)
+        step = max(1, WRITE_CHUNK_ROWS)
+        for start in range(0, max(len(df), 1), step):
+            part = df if len(df) <= step else df.iloc[start:start + step]
+            pyogrio.write_dataframe(part, tmp, layer=name, driver="GPKG", use_arrow=True,
+                                    promote_to_multi=False, append=start > 0, **kw)
     else:
         frame = pd.DataFrame(df)
         pyogrio.write_dataframe(frame, tmp, layer=name, driver="GPKG")
