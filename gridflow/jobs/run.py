@@ -268,6 +268,9 @@ def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
         log.info("network: %d nodes, %d links", clean.network.n_nodes, clean.network.n_links)
         t0 = time.perf_counter()
         alloc = allocate(cfg, clean, findings)
+        # the meters' points served the allocation (kept per meter in ``alloc``); a
+        # utility's million meters as points are not carried through the rest of the run
+        clean.meters = clean.meters.iloc[:0]
         info += run_info_rows(alloc, cfg.run.units)
         _released("demand allocation")
         info.append(("seconds_demand", f"{time.perf_counter() - t0:.2f}"))
