@@ -12,7 +12,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 
-__all__ = ["DeferredLayer", "materialize"]
+__all__ = ["DeferredLayer", "materialize", "attributes"]
 
 
 class DeferredLayer:
@@ -25,13 +25,17 @@ class DeferredLayer:
         comparison with the previous run): nothing is cached.
     rows : int
         The layer's row count, known without building it.
+    attributes : DataFrame, optional
+        The layer's fields without its geometry, where they are small enough to hold: what
+        summaries and the report read, without building the layer.
     """
 
-    __slots__ = ("_build", "rows")
+    __slots__ = ("_build", "rows", "attributes")
 
-    def __init__(self, build: Callable[[], object], rows: int) -> None:
+    def __init__(self, build: Callable[[], object], rows: int, attributes=None) -> None:
         self._build = build
         self.rows = int(rows)
+        self.attributes = attributes
 
     def build(self):
         """The layer's frame, built now."""
@@ -47,3 +51,11 @@ class DeferredLayer:
 def materialize(layer):
     """``layer`` itself, or the frame of a :class:`DeferredLayer` built now."""
     return layer.build() if isinstance(layer, DeferredLayer) else layer
+
+
+def attributes(layer):
+    """A layer's fields: the held ``attributes`` of a :class:`DeferredLayer` (built when it
+    has none), else the layer itself."""
+    if isinstance(layer, DeferredLayer):
+        return layer.attributes if layer.attributes is not None else layer.build()
+    return layer

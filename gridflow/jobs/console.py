@@ -48,7 +48,9 @@ def print_summary(out_path: Path, layers: dict, findings: Findings, report: bool
               f"{err.mean():.1f} {unit}, worst {err.max():.1f} {unit}; "
               f"{int(ft['out_of_tolerance'].sum())} out of tolerance")
     if "segments" in layers:
-        g = layers["segments"]
+        from gridflow.io.deferred import attributes
+
+        g = attributes(layers["segments"])
         print(f"  valve segments: {len(g)}, {int(g['oversized'].sum())} oversized, "
               f"{int((g['cut_off_segments'] > 0).sum())} whose closure cuts off others")
     if "changes" in layers:

@@ -470,6 +470,7 @@ def _report(cfg, html, clean, results, layers, info, routine, rating):
     """The HTML report, from the results in memory (SI arrays, typed criteria)."""
     import shapely
 
+    from gridflow.io.deferred import materialize
     from gridflow.report import ReportData, ScenarioData, write_report
     from gridflow.report.fireflow import in_service, limiting_nodes_table
     from gridflow.report.flowtests import flow_tests_table
@@ -488,7 +489,8 @@ def _report(cfg, html, clean, results, layers, info, routine, rating):
                       pressure_rating_m=rating,
                       hydrants=in_service(layers.get("hydrants_fireflow")),
                       findings=layers.get("findings"), changes=layers.get("changes"),
-                      flow_tests=layers.get("flow_tests"), segments=layers.get("segments"),
+                      flow_tests=layers.get("flow_tests"),
+                      segments=materialize(layers.get("segments")),  # its map draws them
                       routine=routine, run_info=list(info),
                       hgl_path=cfg.report.hgl_path or None, worst_rows=cfg.report.worst_rows)
     write_report(html, data, extra_tables=[limiting_nodes_table, flow_tests_table,
