@@ -77,11 +77,6 @@ def write_layers(path: str | Path, layers: Mapping[str, object], *,
     return Path(path)
 
 
-#: rows per call when writing a large layer: its Arrow copy is made a part at a time
-#: (the file is the same as from one call)
-WRITE_CHUNK_ROWS = 1_000_000
-
-
 def _write_layer(pyogrio, tmp: str, name: str, df) -> None:
     import geopandas as gpd
     import numpy as np
@@ -94,11 +89,10 @@ def _write_layer(pyogrio, tmp: str, name: str, df) -> None:
         kw = {}
         if len(types) != 1:
             kw["geometry_type"] = "Unknown"  # mixed or all empty (findings)
-        step = max(1, WRITE_CHUNK_ROWS)
-        for start in range(0, max(len(df), 1), step):
-            part = df if len(df) <= step else df.iloc[start:start + step]
-            pyogrio.write_dataframe(part, tmp, layer=name, driver="GPKG", use_arrow=True,
-                                    promote_to_multi=False, append=start > 0, **kw)
+        # one call per layer: appending parts to a GeoPackage layer updates its spatial index
+        # row by row (measured: twice the time of one call at 420k pipes)
+        pyogrio.write_dataframe(df, tmp, layer=name, driver="GPKG", use_arrow=True,
+                                promote_to_multi=False, **kw)
     else:
         frame = pd.DataFrame(df)
         pyogrio.write_dataframe(frame, tmp, layer=name, driver="GPKG")

@@ -68,18 +68,3 @@ def test_release_memory_returns_freed_heap_pages():
     assert before - after > 100, (before, after)  # about 150 MB freed
     assert all(b is None or b[0] == 1.0 for b in blocks)  # live data untouched
 
-
-def test_a_large_layer_written_in_parts_is_the_same_layer(tmp_path, monkeypatch):
-    import gridflow.io.write as w
-
-    gdf = _frame(1001)
-    write_layers(tmp_path / "whole.gpkg", {"pipes_x": gdf})
-    monkeypatch.setattr(w, "WRITE_CHUNK_ROWS", 300)  # 4 parts: 300, 300, 300, 101 rows
-    write_layers(tmp_path / "parts.gpkg", {"pipes_x": gdf})
-    a = pyogrio.read_dataframe(tmp_path / "whole.gpkg", layer="pipes_x", fid_as_index=True)
-    b = pyogrio.read_dataframe(tmp_path / "parts.gpkg", layer="pipes_x", fid_as_index=True)
-    assert len(b) == 1001
-    pd.testing.assert_frame_equal(a.drop(columns="geometry"), b.drop(columns="geometry"))
-    assert shapely.equals_exact(a.geometry.values, b.geometry.values, tolerance=0).all()
-    assert pyogrio.read_info(tmp_path / "parts.gpkg", layer="pipes_x")["geometry_type"] == \
-        pyogrio.read_info(tmp_path / "whole.gpkg", layer="pipes_x")["geometry_type"]
