@@ -26,7 +26,8 @@ from gridflow.analysis.fireflow.search import run_rows
 from gridflow.config.fireflow import FireflowSection
 from gridflow.config.sections import CriteriaSection
 from gridflow.errors import InputError
-from gridflow.hydraulics import DrawSolver, HydraulicResult, HydraulicSystem, SolveOptions
+from gridflow.hydraulics import HydraulicResult, HydraulicSystem, SolveOptions
+from gridflow.hydraulics.reduced import ReducedDrawSolver
 from gridflow.network.model import (
     LINK_PIPE,
     LINK_VALVE,
@@ -167,13 +168,20 @@ class FireflowProblem:
                    main_pipe=main_pipe, in_service=in_service_mask(hydrants),
                    exponent=2.0 if net.headloss_model == "darcy-weisbach" else 1.852)
 
-    def draw_solver(self) -> DrawSolver:
-        """The base-state draw solver for this problem in this process and thread (built once:
-        one factorization at the base flows, kept for every hydrant)."""
+    def draw_solver(self) -> ReducedDrawSolver:
+        """The base-state draw solver for this problem in this process and thread (built once
+        per batch): solves on the network reduced to its looped core, the whole-network
+        :class:`DrawSolver` where that does not apply. The reduction itself (trees, chains,
+        core) is made once per process and shared."""
         key = (self.token, threading.get_ident(), "draw")
         ds = _SYSTEMS.get(key)
         if ds is None:
-            ds = _SYSTEMS[key] = DrawSolver(self.system(), self.warm)
+            rkey = (self.token, threading.get_ident(), "reduction")
+            ds = ReducedDrawSolver(self.system(), self.warm, reduction=_SYSTEMS.get(rkey),
+                                   keep=np.concatenate([self.outlet_idx, self.main_idx]))
+            if ds.usable:
+                _SYSTEMS[rkey] = ds.red
+            _SYSTEMS[key] = ds
         return ds
 
     def system(self) -> HydraulicSystem:

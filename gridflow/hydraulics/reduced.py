@@ -1,0 +1,638 @@
+"""Draw solves on the network reduced to its looped core: the fast route of fire flow.
+
+A street network is mostly series: of the nodes a GIS export gives (main ends, valves, tees,
+hydrant tees, outlets), most have two links. :class:`Reduction` eliminates them once per base
+state, exactly:
+
+- *trees* (dead-end branches, hydrant laterals) are pruned from their leaves: the flow in a
+  tree link is the demand beyond it, known without solving (plus the draw on the path from a
+  drawn outlet);
+- *chains* (runs of two-link nodes between core nodes) carry one unknown flow each; the flow
+  in a chain's ``i``-th link is the chain flow minus the loads (demand, trees) of the nodes
+  before it, and consecutive links with no load between them are one *group* whose
+  Hazen-Williams law is exact with the summed resistances (``h = (r1 + r2) q s^a + (m1 + m2) q
+  s^(1/2)``, one regularised flow ``q`` through both);
+- the *core* (nodes with three or more links, fixed heads) keeps its heads as unknowns.
+
+:class:`ReducedDrawSolver` runs Newton's method on those equations: chain residuals (group head
+losses along the chain minus the head difference of its ends), mass balance at free core
+nodes, and the draw's condition. Each step factorizes the core matrix ``sum_c w_c v_c v_c'``
+(``w_c`` the chain's conductance ``1 / sum dh/dq``), a small fraction of the whole network's,
+and touches arrays over groups and chains only. The draw enters at the node its outlet's tree
+hangs on: a core node, or a node inside a chain, which then splits the chain's groups into the
+part before it and the part after (that part carries the draw too); the head condition at the
+outlet is solved with the step by a bordered solve (``dH = x - dd u``).
+
+The equations are those of the whole network (every link's law, every node's balance): a
+converged reduced state rebuilt onto the network has zero mass residual at chain and tree
+nodes, zero head residual on every link but a chain's last (which carries the chain residual),
+and the same tolerances as :meth:`HydraulicSystem.solve` (the tests check the rebuilt state
+with :func:`gridflow.hydraulics.assembly.residuals`).
+
+Scope: Hazen-Williams networks without running pumps or regulating valves, modes ``"head"``
+and ``"draw"``. Anything else (and any solve that does not converge) goes to
+:class:`gridflow.hydraulics.DrawSolver`, which this class holds and builds when first needed.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import time
+
+import numpy as np
+import scipy.sparse as sp
+from scipy.sparse import csgraph
+
+from gridflow.hydraulics.draw import DrawSolver
+from gridflow.hydraulics.results import DRAW_MODES, DrawOutcome, HydraulicResult
+from gridflow.hydraulics.sparse import FixedPatternSPD
+from gridflow.hydraulics.system import HydraulicSystem
+
+__all__ = ["Reduction", "ReducedDrawSolver"]
+
+
+class Reduction:
+    """Trees, chains, groups and core of the links ``links`` (a boolean mask) of a network.
+
+    Parameters
+    ----------
+    fr, to : ndarray of int
+        Link ends.
+    links : ndarray of bool
+        The links taking part (open and conducting).
+    dirichlet : ndarray of bool
+        Nodes of known head (never eliminated).
+    load : ndarray of float
+        Demand per node (counted at free nodes only).
+    keep : ndarray of bool
+        Nodes that must stay visible (a group boundary where they lie inside a chain): the
+        nodes draws may be made at.
+    """
+
+    def __init__(self, fr: np.ndarray, to: np.ndarray, links: np.ndarray, dirichlet: np.ndarray,
+                 load: np.ndarray, keep: np.ndarray) -> None:
+        nn = len(dirichlet)
+        self.nn = nn
+        fr = np.asarray(fr, dtype=np.int64)
+        to = np.asarray(to, dtype=np.int64)
+        E = np.flatnonzero(links)
+        deg = (np.bincount(fr[E], minlength=nn) + np.bincount(to[E], minlength=nn)).astype(
+            np.int64)
+        xr = np.zeros(nn, dtype=np.int64)
+        np.bitwise_xor.at(xr, fr[E], E)
+        np.bitwise_xor.at(xr, to[E], E)
+        gone = np.zeros(nn, dtype=bool)
+        acc = np.where(dirichlet, 0.0, np.asarray(load, dtype=float))
+        rounds: list[tuple[np.ndarray, np.ndarray, np.ndarray]] = []
+        leaves = np.flatnonzero((deg == 1) & ~dirichlet)
+        while leaves.size:
+            lk = xr[leaves]
+            other = np.where(fr[lk] == leaves, to[lk], fr[lk])
+            if gone[other].any() or np.isin(other, leaves).any():
+                raise ValueError("a tree without a node of known head")
+            rounds.append((lk, leaves, other))
+            gone[leaves] = True
+            deg[leaves] = 0
+            np.subtract.at(deg, other, 1)
+            np.bitwise_xor.at(xr, other, lk)
+            np.add.at(acc, other, acc[leaves])
+            cand = np.unique(other)
+            leaves = cand[(deg[cand] == 1) & ~dirichlet[cand]]
+        self.gone = gone
+        self.acc = acc
+        #: tree links per pruning round: (links, child nodes, parent nodes)
+        self.rounds = rounds
+        tl = np.concatenate([r[0] for r in rounds]) if rounds else np.zeros(0, np.int64)
+        tc = np.concatenate([r[1] for r in rounds]) if rounds else np.zeros(0, np.int64)
+        tp = np.concatenate([r[2] for r in rounds]) if rounds else np.zeros(0, np.int64)
+        self.tree_links = tl
+        #: position in the tree arrays of each link (-1 for links not in a tree)
+        self.tree_index = np.full(len(fr), -1, dtype=np.int64)
+        self.tree_index[tl] = np.arange(len(tl))
+        #: per pruning round, +1 where the link points from parent to child
+        self.round_sign = [np.where(fr[r[0]] == r[2], 1.0, -1.0) for r in rounds]
+        #: +1 where a tree link points from parent to child
+        self.tree_sign = np.where(fr[tl] == tp, 1.0, -1.0)
+        #: flow from parent to child in each tree link: the demand beyond it
+        self.tree_flow = acc[tc]
+        self.parent = np.full(nn, -1, dtype=np.int64)
+        self.parent[tc] = tp
+        self.parent_link = np.full(nn, -1, dtype=np.int64)
+        self.parent_link[tc] = tl
+        has_tree = np.zeros(nn, dtype=bool)
+        has_tree[tp] = True
+
+        alive = np.zeros(len(fr), dtype=bool)
+        alive[E] = True
+        alive[tl] = False
+        internal = ~gone & ~dirichlet & (deg == 2)
+        # a ring of two-link nodes with no core node: its smallest node is made core
+        while True:
+            core = ~gone & ~internal
+            AL = np.flatnonzero(alive)
+            a_int, b_int = internal[fr[AL]], internal[to[AL]]
+            inner = AL[a_int & b_int]
+            g = sp.coo_matrix((np.ones(len(inner)), (fr[inner], to[inner])), shape=(nn, nn))
+            _, comp = csgraph.connected_components(g, directed=False)
+            ends = AL[a_int ^ b_int]
+            end_int = np.where(internal[fr[ends]], fr[ends], to[ends])
+            has_end = np.zeros(nn, dtype=bool)
+            has_end[comp[end_int]] = True
+            ring = internal & ~has_end[comp]
+            if not ring.any():
+                break
+            first = np.unique(comp[ring], return_index=True)[1]
+            internal[np.flatnonzero(ring)[first]] = False
+        end_core = np.where(internal[fr[ends]], to[ends], fr[ends])
+        # each chain's start: its end incidence with the smaller link position
+        o = np.lexsort((ends, comp[end_int]))
+        ends, end_int, end_core = ends[o], end_int[o], end_core[o]
+        ec = comp[end_int]
+        is_start = np.ones(len(ends), dtype=bool)
+        is_start[1:] = ec[1:] != ec[:-1]
+        # distance of each internal node from its chain's start core node
+        root = nn
+        s_int = end_int[is_start]
+        g2 = sp.coo_matrix(
+            (np.ones(len(inner) + len(s_int)),
+             (np.concatenate([fr[inner], np.full(len(s_int), root)]),
+              np.concatenate([to[inner], s_int]))), shape=(nn + 1, nn + 1)).tocsr()
+        dist = csgraph.dijkstra(g2, directed=False, indices=root, unweighted=True)[:nn]
+        # chain numbering: internal components first (by component label), then core-core
+        comps = np.unique(ec)
+        cpos = np.full(nn, -1, dtype=np.int64)
+        cpos[comps] = np.arange(len(comps))
+        cc = AL[~a_int & ~b_int]
+        n_int_chains = len(comps)
+        n_chains = n_int_chains + len(cc)
+        a = np.empty(n_chains, dtype=np.int64)
+        b = np.empty(n_chains, dtype=np.int64)
+        a[:n_int_chains] = end_core[is_start]
+        b[:n_int_chains] = end_core[~is_start]
+        a[n_int_chains:] = fr[cc]
+        b[n_int_chains:] = to[cc]
+        # every alive link: (chain, index along the chain, sign, exit node)
+        lk = np.concatenate([inner, ends, cc])
+        chain = np.concatenate([cpos[comp[fr[inner]]], cpos[ec],
+                                n_int_chains + np.arange(len(cc))])
+        di_fr, di_to = dist[fr[inner]], dist[to[inner]]
+        idx = np.concatenate([np.minimum(di_fr, di_to),
+                              np.where(is_start, 0.0, dist[end_int]),
+                              np.zeros(len(cc))]).astype(np.int64)
+        sign = np.concatenate([np.where(di_fr < di_to, 1.0, -1.0),
+                               np.where(is_start, np.where(fr[ends] == end_core, 1.0, -1.0),
+                                        np.where(fr[ends] == end_int, 1.0, -1.0)),
+                               np.ones(len(cc))])
+        o = np.lexsort((idx, chain))
+        lk, chain, idx, sign = lk[o], chain[o], idx[o], sign[o]
+        exit_ = np.where(sign > 0, to[lk], fr[lk])
+        last = np.ones(len(lk), dtype=bool)
+        last[:-1] = chain[1:] != chain[:-1]
+        first = np.ones(len(lk), dtype=bool)
+        first[1:] = chain[1:] != chain[:-1]
+        exit_load = np.where(last, 0.0, acc[exit_])
+        cs = np.cumsum(exit_load)
+        lstart = np.flatnonzero(first)
+        before = np.repeat(cs[lstart] - exit_load[lstart], np.diff(np.append(lstart, len(lk))))
+        off = cs - exit_load - before  # loads of the nodes before each link
+        self.tot = np.add.reduceat(exit_load, lstart) if len(lk) else np.zeros(0)
+        mark = ~last & ((acc[exit_] != 0) | has_tree[exit_] | keep[exit_])
+        gbreak = first.copy()
+        gbreak[1:] |= mark[:-1]
+        gstart = np.flatnonzero(gbreak)
+        self.chain_links, self.chain_of_link, self.link_sign = lk, chain, sign
+        self.link_index, self.link_off, self.link_exit, self.link_last = idx, off, exit_, last
+        self.chain_first_link = lk[lstart]
+        self.chain_first_sign = sign[lstart]
+        self.chain_link_start = lstart
+        self.group_link_start = gstart
+        self.group_chain = chain[gstart]
+        self.group_off = off[gstart]
+        self.group_index = idx[gstart]
+        self.chain_group_start = np.flatnonzero(
+            np.r_[True, self.group_chain[1:] != self.group_chain[:-1]]) if len(gstart) \
+            else np.zeros(0, np.int64)
+        self.a, self.b = a, b
+        self.n_chains = n_chains
+        #: chain and position of every node inside a chain (-1 elsewhere)
+        self.node_chain = np.full(nn, -1, dtype=np.int64)
+        self.node_chain[exit_[~last]] = chain[~last]
+        self.node_pos = np.full(nn, -1, dtype=np.int64)
+        self.node_pos[exit_[~last]] = idx[~last] + 1
+        core_nodes = np.flatnonzero(core)
+        self.core_nodes = core_nodes
+        self.core_pos = np.full(nn, -1, dtype=np.int64)
+        self.core_pos[core_nodes] = np.arange(len(core_nodes))
+        self.ca, self.cb = self.core_pos[a], self.core_pos[b]
+
+    def sums(self, per_link: np.ndarray) -> np.ndarray:
+        """Per group: the sum of a per-link quantity over the group's links (chain order)."""
+        return np.add.reduceat(per_link[self.chain_links], self.group_link_start)
+
+    def entry(self, k: int) -> tuple[int, list[int]]:
+        """``(node, path)``: the non-tree node a draw at ``k`` enters by, and the tree links
+        from it down to ``k``."""
+        path: list[int] = []
+        while self.gone[k]:
+            path.append(int(self.parent_link[k]))
+            k = int(self.parent[k])
+        return k, path
+
+
+@dataclasses.dataclass
+class _Entry:
+    k: int
+    node: int
+    core: int            # core position of the entry node, -1 when inside a chain
+    chain: int           # its chain, -1 at a core node
+    g0: int              # the chain's groups: [g0, g1); from gs on they carry the draw
+    gs: int
+    g1: int
+    path: np.ndarray     # tree links from the entry node to k
+    path_flow: np.ndarray  # their flows from the entry side toward k, without the draw
+    path_r: np.ndarray
+    path_m: np.ndarray | None
+
+
+class ReducedDrawSolver:
+    """A :class:`DrawSolver` replacement on the reduced network (see the module notes), with
+    the same :meth:`solve` and :meth:`blend`; falls back to :class:`DrawSolver` where it does
+    not apply.
+
+    Parameters
+    ----------
+    system : HydraulicSystem
+    base : HydraulicResult
+    keep : ndarray of int, optional
+        Nodes draws will be made at (each a group boundary); default every node may be
+        (no groups merged across any node with a tree).
+    reduction : Reduction, optional
+        Made before for the same system, base state and ``keep`` (it depends on nothing
+        else): many solvers may share one.
+    """
+
+    def __init__(self, system: HydraulicSystem, base: HydraulicResult, *,
+                 keep: np.ndarray | None = None, reduction: Reduction | None = None) -> None:
+        self.sys, self.base = system, base
+        self._full: DrawSolver | None = None
+        self.red: Reduction
+        self.fallbacks = 0
+        #: factorizations of the core matrix made so far
+        self.factorizations = 0
+        opt, laws = system.opt, system.laws
+        self.usable = False
+        self.why_not = ""
+        if opt.pressure_driven or not base.converged:
+            self.why_not = "pressure-driven demand or no base solution"
+            return
+        if laws.dw or bool(laws.pump_on.any()):
+            self.why_not = "Darcy-Weisbach or running pumps"
+            return
+        full = self.full()
+        if full.any_regulating:
+            self.why_not = "regulating valves"
+            return
+        keep_mask = np.zeros(system.nn, dtype=bool)
+        if keep is None:
+            keep_mask[:] = True
+        else:
+            keep_mask[np.asarray(keep, dtype=np.int64)] = True
+        if reduction is None:
+            try:
+                reduction = Reduction(system.fr, system.to, full.conducting, full.dirichlet,
+                                      full.demand, keep_mask)
+            except ValueError as exc:
+                self.why_not = str(exc)
+                return
+        self.red = reduction
+        red = self.red
+        self.r_link = np.asarray(laws.r_hw, dtype=float)
+        m = np.asarray(laws.m_minor, dtype=float)
+        self.m_link = m if bool((m > 0).any()) else None
+        self.rg = red.sums(self.r_link)
+        self.mg = red.sums(self.m_link) if self.m_link is not None else None
+        self.free_core = full.free[red.core_nodes]
+        self.free_core_f = self.free_core.astype(float)
+        self.load_core = np.where(self.free_core, red.acc[red.core_nodes], 0.0)
+        K = len(red.core_nodes)
+        self.K = K
+        ca, cb = red.ca, red.cb
+        self.links2 = np.flatnonzero(ca != cb)
+        self.pattern = FixedPatternSPD(K, ca[self.links2], cb[self.links2],
+                                       backend=opt.backend)
+        fa, fb = self.free_core[ca], self.free_core[cb]
+        # a chain from a node back to itself adds nothing to the matrix (v_c = 0)
+        self._fa = (fa & (ca != cb)).astype(float)
+        self._fb = (fb & (ca != cb)).astype(float)
+        self._both = (fa & fb)[self.links2].astype(float)
+        self._known = np.flatnonzero(~self.free_core)
+        self.h_core0 = full.h0[red.core_nodes]
+        self.Q0 = red.chain_first_sign * full.q0[red.chain_first_link]
+        self.usable = True
+
+    # ------------------------------------------------------------------ pieces
+    def full(self) -> DrawSolver:
+        """The whole-network draw solver (built when first needed)."""
+        if self._full is None:
+            self._full = DrawSolver(self.sys, self.base, factor=False)
+        return self._full
+
+    @property
+    def refactor_ratio(self) -> float:
+        return 0.0
+
+    def blend(self, result: HydraulicResult, t: float) -> HydraulicResult:
+        return self.full().blend(result, t)
+
+    def _entry(self, k: int) -> _Entry | None:
+        red = self.red
+        node, path = red.entry(k)
+        if not self.full().free[node] and not len(path):
+            return None  # a node of known head
+        p = np.asarray(path[::-1], dtype=np.int64)
+        # flows toward k in each path link without the draw: the demand beyond it
+        flow = red.tree_flow[red.tree_index[p]]
+        if red.core_pos[node] >= 0:
+            return _Entry(k, node, int(red.core_pos[node]), -1, 0, 0, 0, p, flow,
+                          self.r_link[p], None if self.m_link is None else self.m_link[p])
+        c = int(red.node_chain[node])
+        if c < 0:
+            return None
+        pos_in = int(red.node_pos[node])
+        g0 = int(red.chain_group_start[c])
+        g1 = int(red.chain_group_start[c + 1]) if c + 1 < len(red.chain_group_start) \
+            else len(red.group_chain)
+        gs = g0 + int(np.searchsorted(red.group_index[g0:g1], pos_in))
+        if gs >= g1 or red.group_index[gs] != pos_in:
+            return None  # not a group boundary: cannot split here
+        return _Entry(k, node, -1, c, g0, gs, g1, p, flow, self.r_link[p],
+                      None if self.m_link is None else self.m_link[p])
+
+    def _factor(self, w: np.ndarray) -> None:
+        red, pat = self.red, self.pattern
+        diag = np.bincount(red.ca, weights=w * self._fa, minlength=self.K)
+        diag += np.bincount(red.cb, weights=w * self._fb, minlength=self.K)
+        off = -w[self.links2] * self._both
+        data: np.ndarray
+        if pat.unique_off:
+            data = np.zeros(pat.nnz)
+            data[pat.off_pos] = off
+        else:
+            data = np.bincount(pat.off_pos, weights=off, minlength=pat.nnz)
+        diag[self._known] = 1.0
+        data[pat.diag_pos] = diag
+        pat.factor(data, "red")
+        self.factorizations += 1
+
+    # ------------------------------------------------------------------ the solve
+    def solve(self, node: int, mode: str, value: float, *, limit_node: int | None = None,
+              start: HydraulicResult | None = None) -> DrawOutcome:
+        """As :meth:`DrawSolver.solve`."""
+        if mode not in DRAW_MODES:
+            raise ValueError(f"draw-solve mode {mode!r}: expected one of {DRAW_MODES}")
+        ent = None
+        if self.usable and mode != "limit":
+            ent = self._entry(int(node))
+        if ent is None:
+            return self._fallback(node, mode, value, limit_node, start)
+        out = self._solve(ent, mode, float(value), start)
+        if out.success:
+            return out
+        return self._fallback(node, mode, value, limit_node, start)
+
+    def _fallback(self, node, mode, value, limit_node, start) -> DrawOutcome:
+        self.fallbacks += 1
+        full = self.full()
+        full.ensure_factor()
+        return full.solve(node, mode, value, limit_node=limit_node, start=start)
+
+    def _solve(self, ent: _Entry, mode: str, value: float,
+               start: HydraulicResult | None) -> DrawOutcome:
+        t0 = time.perf_counter()
+        red, s, opt = self.red, self.sys, self.sys.opt
+        f0 = self.factorizations
+        K = self.K
+        ca, cb = red.ca, red.cb
+        pin = mode == "head"
+        if start is None:
+            Q, H, d = self.Q0.copy(), self.h_core0.copy(), 0.0
+        else:
+            q = start.flow_m3s
+            Q = red.chain_first_sign * q[red.chain_first_link]
+            H = np.nan_to_num(start.head_m)[red.core_nodes]
+            d = float(start.extra.get("draw_m3s", 0.0))
+        if mode == "draw":
+            d = value
+        target = value if pin else np.nan
+        gc, goff, rg, mg = red.group_chain, red.group_off, self.rg, self.mg
+        cgs = red.chain_group_start
+        tot = red.tot
+        free_f = self.free_core_f
+        ftol, htol = opt.flow_tolerance, opt.head_tolerance
+        c = ent.chain
+        inside = c >= 0
+        converged = False
+        it = 0
+        bvec = np.zeros(K)
+        e: np.ndarray = np.zeros(0)
+        m: np.ndarray = np.zeros(0)
+        for it in range(opt.max_iter + 1):
+            phi = Q[gc] - goff
+            if inside:
+                phi[ent.gs:ent.g1] -= d
+            hg, gg = DrawSolver._fused_law(phi, rg, mg)
+            F = np.add.reduceat(hg, cgs)
+            G = np.add.reduceat(gg, cgs)
+            e = F - (H[ca] - H[cb])
+            out: np.ndarray = np.bincount(ca, weights=Q, minlength=K)
+            out -= np.bincount(cb, weights=Q - tot, minlength=K)
+            if inside:
+                out[cb[c]] += d
+                D = float(np.sum(gg[ent.gs:ent.g1]))
+                Fb = float(np.sum(hg[ent.g0:ent.gs]))
+                hx = H[ca[c]] - Fb
+            else:
+                out[ent.core] += d
+                D = Fb = 0.0
+                hx = H[ent.core]
+            out += self.load_core
+            out *= free_f
+            m = out
+            if len(ent.path):
+                hp, gp = DrawSolver._fused_law(ent.path_flow + d, ent.path_r, ent.path_m)
+                P, dP = float(np.sum(hp)), float(np.sum(gp))
+            else:
+                P = dP = 0.0
+            hk = hx - P
+            mass = float(np.max(np.abs(m))) if K else 0.0
+            head = float(np.max(np.abs(e))) if len(e) else 0.0
+            if not (np.isfinite(mass) and np.isfinite(head) and np.isfinite(hk)):
+                break
+            offp = abs(hk - target) if pin else 0.0
+            if mass <= ftol and head <= htol and offp <= htol and it > 0:
+                converged = True
+                break
+            if it == opt.max_iter:
+                break
+            w = 1.0 / G
+            self._factor(w)
+            we = w * e
+            rhs: np.ndarray = np.bincount(ca, weights=we, minlength=K)
+            rhs -= np.bincount(cb, weights=we, minlength=K)
+            rhs -= m
+            rhs *= free_f
+            x = self.pattern.solve(rhs, "red")
+            dd = 0.0
+            if pin:
+                bvec[:] = 0.0
+                if inside:
+                    alpha = D / G[c]
+                    beta = 1.0 - alpha
+                    bvec[ca[c]] += alpha
+                    bvec[cb[c]] += beta
+                    bvec *= free_f
+                    u = self.pattern.solve(bvec, "red")
+                    num = alpha * x[ca[c]] + beta * x[cb[c]] + beta * e[c] - (target - hk)
+                    den = alpha * u[ca[c]] + beta * u[cb[c]] + beta * D + dP
+                elif self.free_core[ent.core]:
+                    bvec[ent.core] = 1.0
+                    u = self.pattern.solve(bvec, "red")
+                    num = x[ent.core] - (target - hk)
+                    den = u[ent.core] + dP
+                else:
+                    # a tree on a node of known head: the draw does not reach the core
+                    u = bvec
+                    num, den = -(target - hk), dP
+                dd = num / den
+                x -= dd * u
+            dQ = w * (x[ca] - x[cb] - e)
+            if inside and dd:
+                dQ[c] += w[c] * D * dd
+            if it == 0 and start is None and pin:
+                # from the base state the linear step overshoots the draw (head loss grows
+                # faster than flow): scale it so head losses along it balance the known work
+                a = self._energy_scale(Q, H, d, dQ, x, dd, ent, target)
+                dQ *= a
+                x *= a
+                dd *= a
+            Q += dQ
+            H += x
+            d += dd
+        if not converged:
+            return DrawOutcome(success=False, status=3, nit=it,
+                               message=f"no convergence in {it} iterations")
+        q, h = self._rebuild(Q, H, d, ent)
+        full = self.full()
+        if full.may_change_status and not s.statuses_hold(full.state, q, h, full.supplied,
+                                                          full.held_fixed):
+            return DrawOutcome(success=False, status=4, nit=it,
+                               message="a device would change status at this draw")
+        r = self._result(q, h, it, float(np.max(np.abs(m))) if len(m) else 0.0,
+                         float(np.max(np.abs(e))) if len(e) else 0.0)
+        r.seconds = time.perf_counter() - t0
+        r.factorizations = self.factorizations - f0
+        r.extra = {"draw_m3s": d, "factor_token": None}
+        return DrawOutcome(success=True, status=0, message=r.message, result=r,
+                           draw_m3s=float(d), nit=it)
+
+    def _energy_scale(self, Q, H, d, dQ, x, dd, ent: _Entry, target: float) -> float:
+        """Step length ``a`` in (0, 1] along a step from the base state (as
+        :meth:`DrawSolver._energy_scale`, on groups): the head losses along the step, weighted
+        by its flow changes, must add up to the work of the known heads, ``sum_i H_i
+        dout_i - H_k dd`` over fixed-head core nodes ``i`` (link outflow changes ``dout``)
+        and the pinned outlet ``k``."""
+        red = self.red
+        ca, cb, K = red.ca, red.cb, self.K
+        dout = np.bincount(ca, weights=dQ, minlength=K)
+        dout -= np.bincount(cb, weights=dQ, minlength=K)
+        if ent.chain >= 0:
+            dout[cb[ent.chain]] += dd
+        known = ~self.free_core
+        if ent.chain < 0:
+            dout[ent.core] += dd  # the draw path's outflow (counted where the head is known)
+        work = float(np.sum((H + x)[known] * dout[known])) - target * dd
+        phi = Q[red.group_chain] - red.group_off
+        dphi = dQ[red.group_chain]
+        if ent.chain >= 0:
+            phi[ent.gs:ent.g1] -= d
+            dphi[ent.gs:ent.g1] -= dd
+        sel = np.abs(dphi) > 1e-7 * max(float(np.max(np.abs(dphi))), 1e-300)
+        dfs, qs = dphi[sel], phi[sel]
+        rs = self.rg[sel]
+        ms = None if self.mg is None else self.mg[sel]
+        inv_n = 1.0 / float(self.sys.laws.flow_exponent)
+        a = 1.0
+        for _ in range(8):
+            hl, g = DrawSolver._fused_law(qs + a * dfs, rs, ms)
+            total = float(np.sum(dfs * hl))
+            dtot = float(np.sum(dfs * dfs * g))
+            if len(ent.path) and dd:
+                hp, gp = DrawSolver._fused_law(ent.path_flow + d + a * dd, ent.path_r,
+                                               ent.path_m)
+                total += dd * float(np.sum(hp))
+                dtot += dd * dd * float(np.sum(gp))
+            if not dtot > 0:
+                return 1.0
+            if total > 0 and work > 0:
+                step = (total ** inv_n - work ** inv_n) / (inv_n * total ** (inv_n - 1.0) * dtot)
+            else:
+                step = (total - work) / dtot
+            a_new = min(1.0, max(0.05 * a, a - step))
+            if abs(a_new - a) <= 1e-3 * a:
+                return a_new
+            a = a_new
+        return a
+
+    # ------------------------------------------------------------------ back to the network
+    def _rebuild(self, Q, H, d, ent: _Entry):
+        """Link flows and node heads of the whole network from a reduced state."""
+        red, s = self.red, self.sys
+        full = self.full()
+        q = np.zeros(s.nl)
+        phi = Q[red.chain_of_link] - red.link_off
+        if ent.chain >= 0:
+            ls = red.chain_link_start
+            lo = int(ls[ent.chain])
+            hi = int(ls[ent.chain + 1]) if ent.chain + 1 < len(ls) else len(phi)
+            phi[lo:hi][red.link_index[lo:hi] >= red.group_index[ent.gs]] -= d
+        q[red.chain_links] = red.link_sign * phi
+        tq = red.tree_flow.copy()
+        tl = red.tree_links
+        if len(ent.path):
+            tq[red.tree_index[ent.path]] += d
+        q[tl] = red.tree_sign * tq
+        hl, _ = DrawSolver._fused_law(q, self.r_link, self.m_link)
+        h = full.h0.copy()
+        h[red.core_nodes] = H
+        drop = red.link_sign * hl[red.chain_links]
+        cs = np.cumsum(drop)
+        ls = red.chain_link_start
+        start_cs = np.repeat(cs[ls] - drop[ls], np.diff(np.append(ls, len(cs))))
+        inner = ~red.link_last
+        ha = H[red.ca[red.chain_of_link]]
+        h[red.link_exit[inner]] = (ha - (cs - start_cs))[inner]
+        for (lk, child, parent), sign in zip(reversed(red.rounds), reversed(red.round_sign)):
+            h[child] = h[parent] - sign * hl[lk]
+        return q, h
+
+    def _result(self, q, h, it, mass, head) -> HydraulicResult:
+        s, net = self.sys, self.sys.net
+        full = self.full()
+        supplied = full.supplied
+        head_m = np.where(supplied, h, np.nan)
+        demand = full.demand
+        delivered = np.where(supplied, demand, 0.0)
+        inflow = np.bincount(s.to, weights=q, minlength=s.nn)
+        inflow -= np.bincount(s.fr, weights=q, minlength=s.nn)
+        velocity = q / s.laws.area
+        dh = np.where(full.conducting, head_m[s.fr] - head_m[s.to], np.nan)
+        msg = (f"converged in {it} iterations on the reduced network; mass residual "
+               f"{mass:.2e} m3/s, head residual {head:.2e} m")
+        return HydraulicResult(
+            head_m=head_m, pressure_m=head_m - net.elevation_m, demand_m3s=delivered,
+            required_demand_m3s=demand.copy(), node_inflow_m3s=inflow, supplied=supplied,
+            flow_m3s=q, velocity_ms=velocity, headloss_m=dh, unit_headloss=np.full(s.nl, np.nan),
+            link_state=full.state.copy(), iterations=it, status_rounds=1,
+            mass_residual_m3s=mass, head_residual_m=head, worst_node_idx=0, worst_link_idx=0,
+            converged=True, status="converged", mass_tolerance_m3s=s.opt.flow_tolerance,
+            message=msg)
