@@ -2,7 +2,8 @@
 
 Each size is written as a GeoPackage by ``synthetic_utility.write_utility``, read and cleaned
 once by gridflow's own topology (``gridflow.topology.build_network``, the hydrants attached
-as a run attaches them: about one every 150 m of main), solved at the base demand, and swept.
+as a run attaches them: about one every 150 m of main), its meters' demand allocated and the
+fire-flow scenario's demand applied (``gridflow.demand``, as a run does), solved, and swept.
 
 Per size: the mean cost of a hydrant in numeric factorizations of the same matrix (time per
 hydrant / time of one numeric factorization of the full system with the hydrants' outlets,
@@ -38,6 +39,8 @@ from synthetic_utility import config_text, write_utility
 
 from gridflow.analysis.fireflow import FireflowProblem, sweep
 from gridflow.config import load_config
+from gridflow.demand import allocate
+from gridflow.demand.scenarios import scenario_network
 from gridflow.findings import Findings
 from gridflow.hydraulics import HydraulicSystem, SolveOptions
 from gridflow.topology import build_network
@@ -50,9 +53,13 @@ def network(n_mains: int, d: Path):
     cfg_path = d / f"utility_{n_mains}.toml"
     cfg_path.write_text(config_text(gis, fireflow=True, report=False))
     cfg = load_config(cfg_path)
-    clean = build_network(cfg, Findings())
+    findings = Findings()
+    clean = build_network(cfg, findings)
+    # the base state a run sweeps from: the fire-flow scenario's demand on the meters
+    alloc = allocate(cfg, clean, findings)
+    net = scenario_network(cfg, clean, alloc, cfg.fireflow.scenario)
     hyd = pd.DataFrame(clean.hydrants.drop(columns="geometry"))
-    return clean.network, hyd, cfg
+    return net, hyd, cfg
 
 
 def one(n_mains: int, sample: int | None, parallel: bool, d: Path) -> dict:

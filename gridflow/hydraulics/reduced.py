@@ -51,6 +51,11 @@ from gridflow.hydraulics.system import HydraulicSystem
 __all__ = ["Reduction", "ReducedDrawSolver"]
 
 
+def _sum_at(idx: np.ndarray, weights: np.ndarray, n: int) -> np.ndarray:
+    """Sums of ``weights`` per position ``idx`` (``np.bincount``, float even when empty)."""
+    return np.bincount(idx, weights=weights, minlength=n).astype(float, copy=False)
+
+
 class Reduction:
     """Trees, chains, groups and core of the links ``links`` (a boolean mask) of a network.
 
@@ -239,6 +244,40 @@ class Reduction:
         return k, path
 
 
+#: the whole-network arrays of a result, made on first use by :class:`_LazyResult`
+_ARRAYS = ("head_m", "pressure_m", "demand_m3s", "required_demand_m3s", "node_inflow_m3s",
+           "supplied", "flow_m3s", "velocity_ms", "headloss_m", "unit_headloss", "link_state")
+
+
+class _LazyResult(HydraulicResult):
+    """A :class:`HydraulicResult` whose whole-network arrays are rebuilt from the reduced
+    state the first time one is read (a fire-flow search reads only the draw and the outlet's
+    head of most solves; those are in ``extra``)."""
+
+    def __getattr__(self, name: str):
+        # called only for attributes not set yet: the arrays before they are made
+        make = self.__dict__.pop("_make", None)
+        if name in _ARRAYS and make is not None:
+            for key, value in make().items():
+                object.__setattr__(self, key, value)
+            return object.__getattribute__(self, name)
+        raise AttributeError(name)
+
+    @classmethod
+    def of(cls, make, **scalars) -> _LazyResult:
+        r = object.__new__(cls)
+        r.__dict__.update(scalars)
+        r.__dict__["_make"] = make
+        return r
+
+    def with_extra(self, extra: dict) -> _LazyResult:
+        """A copy with ``extra`` replaced (arrays shared or still to be made)."""
+        r = object.__new__(type(self))
+        r.__dict__.update(self.__dict__)
+        r.__dict__["extra"] = extra
+        return r
+
+
 @dataclasses.dataclass
 class _Entry:
     k: int
@@ -269,16 +308,27 @@ class ReducedDrawSolver:
     reduction : Reduction, optional
         Made before for the same system, base state and ``keep`` (it depends on nothing
         else): many solvers may share one.
+    refactor_ratio : float
+        Keep the current factorization while each step shrinks the scaled residual at least
+        this many times over (a chord step), else refactor at the current point (0: plain
+        Newton, a factorization every step). The first step from the base state uses the
+        base state's factorization, made once.
     """
 
     def __init__(self, system: HydraulicSystem, base: HydraulicResult, *,
-                 keep: np.ndarray | None = None, reduction: Reduction | None = None) -> None:
+                 keep: np.ndarray | None = None, reduction: Reduction | None = None,
+                 refactor_ratio: float = 0.0) -> None:
         self.sys, self.base = system, base
         self._full: DrawSolver | None = None
         self.red: Reduction
         self.fallbacks = 0
         #: factorizations of the core matrix made so far
         self.factorizations = 0
+        self.refactor_ratio = float(refactor_ratio)
+        self._w: dict[str, np.ndarray] = {}
+        self._g: dict[str, np.ndarray] = {}
+        self._episode = 0
+        self._work_owner: tuple[int, int] = (-1, -1)
         opt, laws = system.opt, system.laws
         self.usable = False
         self.why_not = ""
@@ -310,7 +360,16 @@ class ReducedDrawSolver:
         m = np.asarray(laws.m_minor, dtype=float)
         self.m_link = m if bool((m > 0).any()) else None
         self.rg = red.sums(self.r_link)
-        self.mg = red.sums(self.m_link) if self.m_link is not None else None
+        mg = red.sums(self.m_link) if self.m_link is not None else None
+        self.mg = mg if mg is not None and bool((mg > 0).any()) else None
+        # each chain link's share of its group's head loss (the law is one power of the
+        # group's flow: h_l = r_l / r_g h_g), where the group has no minor loss
+        gl = np.repeat(np.arange(len(self.rg)), np.diff(np.append(red.group_link_start,
+                                                                  len(red.chain_links))))
+        self.link_group = gl
+        rl = self.r_link[red.chain_links]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            self.link_share = np.where(self.rg[gl] > 0, rl / self.rg[gl], 0.0)
         self.free_core = full.free[red.core_nodes]
         self.free_core_f = self.free_core.astype(float)
         self.load_core = np.where(self.free_core, red.acc[red.core_nodes], 0.0)
@@ -337,12 +396,23 @@ class ReducedDrawSolver:
             self._full = DrawSolver(self.sys, self.base, factor=False)
         return self._full
 
-    @property
-    def refactor_ratio(self) -> float:
-        return 0.0
 
     def blend(self, result: HydraulicResult, t: float) -> HydraulicResult:
-        return self.full().blend(result, t)
+        """As :meth:`DrawSolver.blend`. A result of this solver is blended in reduced form
+        (chain flows, core heads, draw); its whole-network arrays are those of ``result``
+        and the blend is made on them only if the whole-network solver takes the start."""
+        got = result.extra.get("reduced")
+        if got is None:
+            return self.full().blend(result, t)
+        t = float(t)
+        Q, H, d = got
+        n = self.sys.laws.flow_exponent
+        extra = {"draw_m3s": t * d, "factor_token": None, "blend": (result, t),
+                 "reduced": (self.Q0 + t * (Q - self.Q0),
+                             self.h_core0 + t ** n * (H - self.h_core0), t * d)}
+        if isinstance(result, _LazyResult):
+            return result.with_extra(extra)
+        return dataclasses.replace(result, extra=extra)
 
     def _entry(self, k: int) -> _Entry | None:
         red = self.red
@@ -368,20 +438,35 @@ class ReducedDrawSolver:
         return _Entry(k, node, -1, c, g0, gs, g1, p, flow, self.r_link[p],
                       None if self.m_link is None else self.m_link[p])
 
-    def _factor(self, w: np.ndarray) -> None:
+    def _ensure_base(self) -> None:
+        """The core matrix at the base flows, kept for the first step of every solve from
+        the base state (made once)."""
+        if "base" not in self._w:
+            red = self.red
+            _, gg = DrawSolver._fused_law(self.Q0[red.group_chain] - red.group_off, self.rg,
+                                          self.mg)
+            self._factor(_sum_at(red.group_chain, gg, red.n_chains), gg,
+                         "base")
+
+    def _factor(self, G: np.ndarray, gg: np.ndarray, slot: str) -> None:
+        """Factorize the core matrix of chain derivatives ``G`` (group derivatives ``gg``)
+        into ``slot``."""
         red, pat = self.red, self.pattern
-        diag = np.bincount(red.ca, weights=w * self._fa, minlength=self.K)
-        diag += np.bincount(red.cb, weights=w * self._fb, minlength=self.K)
+        w = 1.0 / G
+        diag = _sum_at(red.ca, w * self._fa, self.K)
+        diag += _sum_at(red.cb, w * self._fb, self.K)
         off = -w[self.links2] * self._both
         data: np.ndarray
         if pat.unique_off:
             data = np.zeros(pat.nnz)
             data[pat.off_pos] = off
         else:
-            data = np.bincount(pat.off_pos, weights=off, minlength=pat.nnz)
+            data = _sum_at(pat.off_pos, off, pat.nnz)
         diag[self._known] = 1.0
         data[pat.diag_pos] = diag
-        pat.factor(data, "red")
+        pat.factor(data, slot)
+        self._w[slot] = w
+        self._g[slot] = gg
         self.factorizations += 1
 
     # ------------------------------------------------------------------ the solve
@@ -404,6 +489,8 @@ class ReducedDrawSolver:
         self.fallbacks += 1
         full = self.full()
         full.ensure_factor()
+        if start is not None and "blend" in start.extra:
+            start = full.blend(*start.extra["blend"])
         return full.solve(node, mode, value, limit_node=limit_node, start=start)
 
     def _solve(self, ent: _Entry, mode: str, value: float,
@@ -416,16 +503,18 @@ class ReducedDrawSolver:
         pin = mode == "head"
         if start is None:
             Q, H, d = self.Q0.copy(), self.h_core0.copy(), 0.0
+            self._episode += 1
+            slot: str | None = "base"
+            self._ensure_base()
         else:
-            q = start.flow_m3s
-            Q = red.chain_first_sign * q[red.chain_first_link]
-            H = np.nan_to_num(start.head_m)[red.core_nodes]
-            d = float(start.extra.get("draw_m3s", 0.0))
+            Q, H, d = self._state_of(start)
+            # the working factorization, if this node's episode made it
+            slot = "work" if self._work_owner == (ent.k, self._episode) else None
         if mode == "draw":
             d = value
         target = value if pin else np.nan
         gc, goff, rg, mg = red.group_chain, red.group_off, self.rg, self.mg
-        cgs = red.chain_group_start
+        C = red.n_chains
         tot = red.tot
         free_f = self.free_core_f
         ftol, htol = opt.flow_tolerance, opt.head_tolerance
@@ -436,24 +525,23 @@ class ReducedDrawSolver:
         bvec = np.zeros(K)
         e: np.ndarray = np.zeros(0)
         m: np.ndarray = np.zeros(0)
+        hg: np.ndarray = np.zeros(0)
+        prev = np.inf
         for it in range(opt.max_iter + 1):
             phi = Q[gc] - goff
             if inside:
                 phi[ent.gs:ent.g1] -= d
             hg, gg = DrawSolver._fused_law(phi, rg, mg)
-            F = np.add.reduceat(hg, cgs)
-            G = np.add.reduceat(gg, cgs)
-            e = F - (H[ca] - H[cb])
-            out: np.ndarray = np.bincount(ca, weights=Q, minlength=K)
-            out -= np.bincount(cb, weights=Q - tot, minlength=K)
+            e = _sum_at(gc, hg, C)
+            e -= H[ca]
+            e += H[cb]
+            out: np.ndarray = _sum_at(ca, Q, K)
+            out -= _sum_at(cb, Q - tot, K)
             if inside:
                 out[cb[c]] += d
-                D = float(np.sum(gg[ent.gs:ent.g1]))
-                Fb = float(np.sum(hg[ent.g0:ent.gs]))
-                hx = H[ca[c]] - Fb
+                hx = H[ca[c]] - float(np.sum(hg[ent.g0:ent.gs]))
             else:
                 out[ent.core] += d
-                D = Fb = 0.0
                 hx = H[ent.core]
             out += self.load_core
             out *= free_f
@@ -474,29 +562,37 @@ class ReducedDrawSolver:
                 break
             if it == opt.max_iter:
                 break
-            w = 1.0 / G
-            self._factor(w)
+            score = max(mass / ftol, head / htol, offp / htol)
+            if slot is None or (it > 0 and score > self.refactor_ratio * prev):
+                # a fresh Jacobian at the current point (plain Newton); otherwise the kept
+                # one (a chord step: its fixed point is the same solution)
+                slot = "work"
+                self._factor(_sum_at(gc, gg, C), gg, "work")
+                self._work_owner = (ent.k, self._episode)
+            prev = score
+            w, gk = self._w[slot], self._g[slot]
             we = w * e
-            rhs: np.ndarray = np.bincount(ca, weights=we, minlength=K)
-            rhs -= np.bincount(cb, weights=we, minlength=K)
+            rhs: np.ndarray = _sum_at(ca, we, K)
+            rhs -= _sum_at(cb, we, K)
             rhs -= m
             rhs *= free_f
-            x = self.pattern.solve(rhs, "red")
+            x = self.pattern.solve(rhs, slot)
             dd = 0.0
+            D = float(np.sum(gk[ent.gs:ent.g1])) if inside else 0.0
             if pin:
                 bvec[:] = 0.0
                 if inside:
-                    alpha = D / G[c]
+                    alpha = D * w[c]
                     beta = 1.0 - alpha
                     bvec[ca[c]] += alpha
                     bvec[cb[c]] += beta
                     bvec *= free_f
-                    u = self.pattern.solve(bvec, "red")
+                    u = self.pattern.solve(bvec, slot)
                     num = alpha * x[ca[c]] + beta * x[cb[c]] + beta * e[c] - (target - hk)
                     den = alpha * u[ca[c]] + beta * u[cb[c]] + beta * D + dP
                 elif self.free_core[ent.core]:
                     bvec[ent.core] = 1.0
-                    u = self.pattern.solve(bvec, "red")
+                    u = self.pattern.solve(bvec, slot)
                     num = x[ent.core] - (target - hk)
                     den = u[ent.core] + dP
                 else:
@@ -521,19 +617,42 @@ class ReducedDrawSolver:
         if not converged:
             return DrawOutcome(success=False, status=3, nit=it,
                                message=f"no convergence in {it} iterations")
-        q, h = self._rebuild(Q, H, d, ent)
         full = self.full()
-        if full.may_change_status and not s.statuses_hold(full.state, q, h, full.supplied,
-                                                          full.held_fixed):
-            return DrawOutcome(success=False, status=4, nit=it,
-                               message="a device would change status at this draw")
-        r = self._result(q, h, it, float(np.max(np.abs(m))) if len(m) else 0.0,
-                         float(np.max(np.abs(e))) if len(e) else 0.0)
-        r.seconds = time.perf_counter() - t0
-        r.factorizations = self.factorizations - f0
-        r.extra = {"draw_m3s": d, "factor_token": None}
-        return DrawOutcome(success=True, status=0, message=r.message, result=r,
+        mass = float(np.max(np.abs(m))) if len(m) else 0.0
+        head = float(np.max(np.abs(e))) if len(e) else 0.0
+        if full.may_change_status:
+            q, h = self._rebuild(Q, H, d, ent, hg)
+            if not s.statuses_hold(full.state, q, h, full.supplied, full.held_fixed):
+                return DrawOutcome(success=False, status=4, nit=it,
+                                   message="a device would change status at this draw")
+            made = (q, h)
+
+            def make():
+                return self._arrays(*made)
+        else:
+            def make():
+                return self._arrays(*self._rebuild(Q, H, d, ent, hg))
+        msg = (f"converged in {it} iterations on the reduced network; mass residual "
+               f"{mass:.2e} m3/s, head residual {head:.2e} m")
+        r = _LazyResult.of(
+            make, iterations=it, status_rounds=1, mass_residual_m3s=mass, head_residual_m=head,
+            worst_node_idx=0, worst_link_idx=0, converged=True, status="converged",
+            mass_tolerance_m3s=opt.flow_tolerance, seconds=time.perf_counter() - t0,
+            factorizations=self.factorizations - f0, message=msg,
+            extra={"draw_m3s": d, "factor_token": None, "reduced": (Q, H, d),
+                   "node": ent.k, "node_head_m": hk})
+        return DrawOutcome(success=True, status=0, message=msg, result=r,
                            draw_m3s=float(d), nit=it)
+
+    def _state_of(self, start: HydraulicResult) -> tuple[np.ndarray, np.ndarray, float]:
+        """``(Q, H, d)``: chain flows, core heads and draw of a start."""
+        red = self.red
+        got = start.extra.get("reduced")
+        if got is not None:
+            return got[0].copy(), got[1].copy(), float(got[2])
+        Q = red.chain_first_sign * start.flow_m3s[red.chain_first_link]
+        H = np.nan_to_num(start.head_m)[red.core_nodes]
+        return Q, H, float(start.extra.get("draw_m3s", 0.0))
 
     def _energy_scale(self, Q, H, d, dQ, x, dd, ent: _Entry, target: float) -> float:
         """Step length ``a`` in (0, 1] along a step from the base state (as
@@ -543,8 +662,8 @@ class ReducedDrawSolver:
         and the pinned outlet ``k``."""
         red = self.red
         ca, cb, K = red.ca, red.cb, self.K
-        dout = np.bincount(ca, weights=dQ, minlength=K)
-        dout -= np.bincount(cb, weights=dQ, minlength=K)
+        dout = _sum_at(ca, dQ, K)
+        dout -= _sum_at(cb, dQ, K)
         if ent.chain >= 0:
             dout[cb[ent.chain]] += dd
         known = ~self.free_core
@@ -556,7 +675,8 @@ class ReducedDrawSolver:
         if ent.chain >= 0:
             phi[ent.gs:ent.g1] -= d
             dphi[ent.gs:ent.g1] -= dd
-        sel = np.abs(dphi) > 1e-7 * max(float(np.max(np.abs(dphi))), 1e-300)
+        big = float(np.max(np.abs(dphi))) if len(dphi) else 0.0
+        sel = np.abs(dphi) > 1e-7 * max(big, 1e-300)
         dfs, qs = dphi[sel], phi[sel]
         rs = self.rg[sel]
         ms = None if self.mg is None else self.mg[sel]
@@ -584,8 +704,9 @@ class ReducedDrawSolver:
         return a
 
     # ------------------------------------------------------------------ back to the network
-    def _rebuild(self, Q, H, d, ent: _Entry):
-        """Link flows and node heads of the whole network from a reduced state."""
+    def _rebuild(self, Q, H, d, ent: _Entry, hg: np.ndarray):
+        """Link flows and node heads of the whole network from a reduced state (``hg``: the
+        groups' head losses at that state)."""
         red, s = self.red, self.sys
         full = self.full()
         q = np.zeros(s.nl)
@@ -601,38 +722,46 @@ class ReducedDrawSolver:
         if len(ent.path):
             tq[red.tree_index[ent.path]] += d
         q[tl] = red.tree_sign * tq
-        hl, _ = DrawSolver._fused_law(q, self.r_link, self.m_link)
+        # head drops along the chains
+        if self.mg is None and (self.m_link is None or
+                                not bool((self.m_link[red.chain_links] > 0).any())):
+            drop = self.link_share * hg[self.link_group]
+        else:
+            drop = red.link_sign * DrawSolver._fused_law(
+                q[red.chain_links], self.r_link[red.chain_links],
+                None if self.m_link is None else self.m_link[red.chain_links])[0]
         h = full.h0.copy()
         h[red.core_nodes] = H
-        drop = red.link_sign * hl[red.chain_links]
         cs = np.cumsum(drop)
         ls = red.chain_link_start
         start_cs = np.repeat(cs[ls] - drop[ls], np.diff(np.append(ls, len(cs))))
+        cs -= start_cs
         inner = ~red.link_last
-        ha = H[red.ca[red.chain_of_link]]
-        h[red.link_exit[inner]] = (ha - (cs - start_cs))[inner]
+        h[red.link_exit[inner]] = H[red.ca[red.chain_of_link[inner]]] - cs[inner]
+        # down the trees, from the core outwards
+        hl_t = DrawSolver._fused_law(q[tl], self.r_link[tl],
+                                     None if self.m_link is None else self.m_link[tl])[0]
+        hl = np.zeros(s.nl)
+        hl[tl] = hl_t
         for (lk, child, parent), sign in zip(reversed(red.rounds), reversed(red.round_sign)):
             h[child] = h[parent] - sign * hl[lk]
         return q, h
 
-    def _result(self, q, h, it, mass, head) -> HydraulicResult:
+    def _arrays(self, q, h) -> dict:
+        """The whole-network arrays of a result with flows ``q`` and heads ``h``."""
         s, net = self.sys, self.sys.net
         full = self.full()
         supplied = full.supplied
         head_m = np.where(supplied, h, np.nan)
         demand = full.demand
-        delivered = np.where(supplied, demand, 0.0)
-        inflow = np.bincount(s.to, weights=q, minlength=s.nn)
-        inflow -= np.bincount(s.fr, weights=q, minlength=s.nn)
-        velocity = q / s.laws.area
+        inflow = _sum_at(s.to, q, s.nn)
+        inflow -= _sum_at(s.fr, q, s.nn)
         dh = np.where(full.conducting, head_m[s.fr] - head_m[s.to], np.nan)
-        msg = (f"converged in {it} iterations on the reduced network; mass residual "
-               f"{mass:.2e} m3/s, head residual {head:.2e} m")
-        return HydraulicResult(
-            head_m=head_m, pressure_m=head_m - net.elevation_m, demand_m3s=delivered,
-            required_demand_m3s=demand.copy(), node_inflow_m3s=inflow, supplied=supplied,
-            flow_m3s=q, velocity_ms=velocity, headloss_m=dh, unit_headloss=np.full(s.nl, np.nan),
-            link_state=full.state.copy(), iterations=it, status_rounds=1,
-            mass_residual_m3s=mass, head_residual_m=head, worst_node_idx=0, worst_link_idx=0,
-            converged=True, status="converged", mass_tolerance_m3s=s.opt.flow_tolerance,
-            message=msg)
+        length = net.length_m
+        with np.errstate(divide="ignore", invalid="ignore"):
+            unit = np.where(s.laws.is_pipe & (length > 0), np.abs(dh) / length, np.nan)
+        return {"head_m": head_m, "pressure_m": head_m - net.elevation_m,
+                "demand_m3s": np.where(supplied, demand, 0.0),
+                "required_demand_m3s": demand.copy(), "node_inflow_m3s": inflow,
+                "supplied": supplied, "flow_m3s": q, "velocity_ms": q / s.laws.area,
+                "headloss_m": dh, "unit_headloss": unit, "link_state": full.state.copy()}

@@ -203,9 +203,20 @@ class FireflowProblem:
                                    raise_on_failure=False)
 
     def draw(self, j: int, r: HydraulicResult) -> float:
-        """Flow drawn at hydrant ``j``'s pinned outlet [m3/s], its own base demand excluded."""
+        """Flow drawn at hydrant ``j``'s pinned outlet [m3/s], its own base demand excluded
+        (a draw solve's own figure where it has one)."""
         k = self.outlet_idx[j]
+        if r.extra.get("node") == k:
+            return float(r.extra["draw_m3s"])
         return float(r.node_inflow_m3s[k] - r.demand_m3s[k])
+
+    def outlet_pressure(self, j: int, r: HydraulicResult) -> float:
+        """Pressure at hydrant ``j``'s outlet [m] (a draw solve's own figure where it has
+        one)."""
+        k = self.outlet_idx[j]
+        if r.extra.get("node") == k:
+            return float(r.extra["node_head_m"] - self.net.elevation_m[k])
+        return float(r.pressure_m[k])
 
     def run(self, rows: np.ndarray) -> dict[str, np.ndarray]:
         """Evaluate hydrants at row positions ``rows``; small record arrays out."""

@@ -301,7 +301,7 @@ def _required(p: FireflowProblem, j: int, route: Route, r_pin: HydraulicResult |
         try:
             rr = route.at_draw(j, q_req, r_pin)
             if abs(p.draw(j, rr) - q_req) <= 1e-6 * q_req + 1e-9:
-                residual = float(rr.pressure_m[int(p.outlet_idx[j])])
+                residual = p.outlet_pressure(j, rr)
         except SolveFailed:
             residual = np.nan  # decided below by the flow at 0 psi
     if residual >= 0:
