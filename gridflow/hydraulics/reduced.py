@@ -126,6 +126,27 @@ class Reduction:
         self.parent_link[tc] = tl
         has_tree = np.zeros(nn, dtype=bool)
         has_tree[tp] = True
+        #: each tree link's child node
+        self.tree_child = tc
+        # each tree node's root (the non-tree node its tree hangs on), its subtree's size and
+        # a preorder of the trees: the subtree of a tree node ``v`` is
+        # ``preorder[pre_pos[v]:pre_pos[v] + sub_size[v]]``
+        size = np.ones(nn, dtype=np.int64)
+        for _, child, parent in rounds:
+            np.add.at(size, parent, size[child])
+        root = np.arange(nn, dtype=np.int64)
+        for _, child, parent in reversed(rounds):
+            root[child] = root[parent]
+        self.sub_size = size
+        self.tree_root = root
+        roots = np.unique(root[tc])
+        g_t = sp.coo_matrix((np.ones(len(roots) + len(tc)),
+                             (np.concatenate([np.full(len(roots), nn), tp]),
+                              np.concatenate([roots, tc]))), shape=(nn + 1, nn + 1)).tocsr()
+        order = csgraph.depth_first_order(g_t, nn, directed=True, return_predecessors=False)
+        self.preorder = np.asarray(order, dtype=np.int64)
+        self.pre_pos = np.full(nn + 1, -1, dtype=np.int64)
+        self.pre_pos[self.preorder] = np.arange(len(self.preorder))
 
         alive = np.zeros(len(fr), dtype=bool)
         alive[E] = True
@@ -156,13 +177,13 @@ class Reduction:
         is_start = np.ones(len(ends), dtype=bool)
         is_start[1:] = ec[1:] != ec[:-1]
         # distance of each internal node from its chain's start core node
-        root = nn
+        vroot = nn
         s_int = end_int[is_start]
         g2 = sp.coo_matrix(
             (np.ones(len(inner) + len(s_int)),
-             (np.concatenate([fr[inner], np.full(len(s_int), root)]),
+             (np.concatenate([fr[inner], np.full(len(s_int), vroot)]),
               np.concatenate([to[inner], s_int]))), shape=(nn + 1, nn + 1)).tocsr()
-        dist = csgraph.dijkstra(g2, directed=False, indices=root, unweighted=True)[:nn]
+        dist = csgraph.dijkstra(g2, directed=False, indices=vroot, unweighted=True)[:nn]
         # chain numbering: internal components first (by component label), then core-core
         comps = np.unique(ec)
         cpos = np.full(nn, -1, dtype=np.int64)
@@ -229,6 +250,12 @@ class Reduction:
         self.core_pos = np.full(nn, -1, dtype=np.int64)
         self.core_pos[core_nodes] = np.arange(len(core_nodes))
         self.ca, self.cb = self.core_pos[a], self.core_pos[b]
+        # for rebuilding heads along the chains: each link's chain start in chain order,
+        # and the links that end at a node inside their chain
+        self.link_chain_start = lstart[chain]
+        self.inner_links = np.flatnonzero(~last)
+        self.inner_exit = exit_[~last]
+        self.inner_core = self.ca[chain[~last]]
 
     def sums(self, per_link: np.ndarray) -> np.ndarray:
         """Per group: the sum of a per-link quantity over the group's links (chain order)."""
@@ -244,9 +271,11 @@ class Reduction:
         return k, path
 
 
-#: the whole-network arrays of a result, made on first use by :class:`_LazyResult`
-_ARRAYS = ("head_m", "pressure_m", "demand_m3s", "required_demand_m3s", "node_inflow_m3s",
-           "supplied", "flow_m3s", "velocity_ms", "headloss_m", "unit_headloss", "link_state")
+#: the whole-network arrays of a result, made on first use by :class:`_LazyResult`: those a
+#: fire-flow search reads, then the rest
+_ARRAYS = ("head_m", "pressure_m", "demand_m3s", "required_demand_m3s", "supplied", "flow_m3s",
+           "velocity_ms", "link_state")
+_MORE = ("node_inflow_m3s", "headloss_m", "unit_headloss")
 
 
 class _LazyResult(HydraulicResult):
@@ -256,18 +285,25 @@ class _LazyResult(HydraulicResult):
 
     def __getattr__(self, name: str):
         # called only for attributes not set yet: the arrays before they are made
-        make = self.__dict__.pop("_make", None)
-        if name in _ARRAYS and make is not None:
-            for key, value in make().items():
-                object.__setattr__(self, key, value)
-            return object.__getattribute__(self, name)
+        d = self.__dict__
+        if name in _ARRAYS or name in _MORE:
+            make = d.pop("_make", None)
+            if make is not None:
+                d.update(make())
+            if name in _MORE:
+                more = d.pop("_more", None)
+                if more is not None:
+                    d.update(more(d))
+            if name in d:
+                return d[name]
         raise AttributeError(name)
 
     @classmethod
-    def of(cls, make, **scalars) -> _LazyResult:
+    def of(cls, make, more, **scalars) -> _LazyResult:
         r = object.__new__(cls)
         r.__dict__.update(scalars)
         r.__dict__["_make"] = make
+        r.__dict__["_more"] = more
         return r
 
     def with_extra(self, extra: dict) -> _LazyResult:
@@ -386,6 +422,19 @@ class ReducedDrawSolver:
         self._both = (fa & fb)[self.links2].astype(float)
         self._known = np.flatnonzero(~self.free_core)
         self.h_core0 = full.h0[red.core_nodes]
+        # trees at the base state: link flows, drops from parent to child, drops from root
+        tl = red.tree_links
+        self.tree_q0 = red.tree_sign * red.tree_flow
+        self.tree_drop0 = DrawSolver._fused_law(
+            red.tree_flow, self.r_link[tl], None if self.m_link is None else self.m_link[tl])[0]
+        depth = np.zeros(system.nn)
+        for lk, child, parent in reversed(red.rounds):
+            depth[child] = depth[parent] + self.tree_drop0[red.tree_index[lk]]
+        self.tree_depth_drop = depth[red.tree_child]
+        self._chain_minor = self.m_link is not None and bool(
+            (self.m_link[red.chain_links] > 0).any())
+        self._some_dry = not bool(full.supplied.all())
+        self._delivered = np.where(full.supplied, full.demand, 0.0)
         self.Q0 = red.chain_first_sign * full.q0[red.chain_first_link]
         self.usable = True
 
@@ -635,8 +684,9 @@ class ReducedDrawSolver:
         msg = (f"converged in {it} iterations on the reduced network; mass residual "
                f"{mass:.2e} m3/s, head residual {head:.2e} m")
         r = _LazyResult.of(
-            make, iterations=it, status_rounds=1, mass_residual_m3s=mass, head_residual_m=head,
-            worst_node_idx=0, worst_link_idx=0, converged=True, status="converged",
+            make, self._more_arrays, iterations=it, status_rounds=1, mass_residual_m3s=mass,
+            head_residual_m=head, worst_node_idx=0, worst_link_idx=0, converged=True,
+            status="converged",
             mass_tolerance_m3s=opt.flow_tolerance, seconds=time.perf_counter() - t0,
             factorizations=self.factorizations - f0, message=msg,
             extra={"draw_m3s": d, "factor_token": None, "reduced": (Q, H, d),
@@ -717,51 +767,53 @@ class ReducedDrawSolver:
             hi = int(ls[ent.chain + 1]) if ent.chain + 1 < len(ls) else len(phi)
             phi[lo:hi][red.link_index[lo:hi] >= red.group_index[ent.gs]] -= d
         q[red.chain_links] = red.link_sign * phi
-        tq = red.tree_flow.copy()
-        tl = red.tree_links
+        q[red.tree_links] = self.tree_q0
         if len(ent.path):
-            tq[red.tree_index[ent.path]] += d
-        q[tl] = red.tree_sign * tq
+            q[ent.path] += red.tree_sign[red.tree_index[ent.path]] * d
         # head drops along the chains
-        if self.mg is None and (self.m_link is None or
-                                not bool((self.m_link[red.chain_links] > 0).any())):
-            drop = self.link_share * hg[self.link_group]
-        else:
+        if self._chain_minor:
             drop = red.link_sign * DrawSolver._fused_law(
                 q[red.chain_links], self.r_link[red.chain_links],
                 None if self.m_link is None else self.m_link[red.chain_links])[0]
+        else:
+            drop = self.link_share * hg[self.link_group]
         h = full.h0.copy()
         h[red.core_nodes] = H
         cs = np.cumsum(drop)
-        ls = red.chain_link_start
-        start_cs = np.repeat(cs[ls] - drop[ls], np.diff(np.append(ls, len(cs))))
-        cs -= start_cs
-        inner = ~red.link_last
-        h[red.link_exit[inner]] = H[red.ca[red.chain_of_link[inner]]] - cs[inner]
-        # down the trees, from the core outwards
-        hl_t = DrawSolver._fused_law(q[tl], self.r_link[tl],
-                                     None if self.m_link is None else self.m_link[tl])[0]
-        hl = np.zeros(s.nl)
-        hl[tl] = hl_t
-        for (lk, child, parent), sign in zip(reversed(red.rounds), reversed(red.round_sign)):
-            h[child] = h[parent] - sign * hl[lk]
+        st = red.link_chain_start
+        cs -= cs[st] - drop[st]
+        il = red.inner_links
+        h[red.inner_exit] = H[red.inner_core] - cs[il]
+        # down the trees: the base drops from each tree's root, corrected below the draw path
+        tn = red.tree_child
+        h[tn] = h[red.tree_root[tn]] - self.tree_depth_drop
+        if len(ent.path):
+            new = DrawSolver._fused_law(ent.path_flow + d, ent.path_r, ent.path_m)[0]
+            extra = new - self.tree_drop0[red.tree_index[ent.path]]
+            for lk, dx in zip(ent.path, extra):
+                v = red.tree_child[red.tree_index[lk]]
+                lo = red.pre_pos[v]
+                h[red.preorder[lo:lo + red.sub_size[v]]] -= dx
         return q, h
 
     def _arrays(self, q, h) -> dict:
-        """The whole-network arrays of a result with flows ``q`` and heads ``h``."""
+        """The whole-network arrays a fire-flow search reads, of flows ``q``, heads ``h``."""
         s, net = self.sys, self.sys.net
         full = self.full()
-        supplied = full.supplied
-        head_m = np.where(supplied, h, np.nan)
-        demand = full.demand
+        head_m = np.where(full.supplied, h, np.nan) if self._some_dry else h
+        return {"head_m": head_m, "pressure_m": head_m - net.elevation_m,
+                "demand_m3s": self._delivered, "required_demand_m3s": full.demand,
+                "supplied": full.supplied, "flow_m3s": q, "velocity_ms": q / s.laws.area,
+                "link_state": full.state}
+
+    def _more_arrays(self, d: dict) -> dict:
+        """The other arrays: node inflows, link head losses and unit head losses."""
+        s, net = self.sys, self.sys.net
+        q, head_m = d["flow_m3s"], d["head_m"]
         inflow = _sum_at(s.to, q, s.nn)
         inflow -= _sum_at(s.fr, q, s.nn)
-        dh = np.where(full.conducting, head_m[s.fr] - head_m[s.to], np.nan)
+        dh = np.where(self.full().conducting, head_m[s.fr] - head_m[s.to], np.nan)
         length = net.length_m
         with np.errstate(divide="ignore", invalid="ignore"):
             unit = np.where(s.laws.is_pipe & (length > 0), np.abs(dh) / length, np.nan)
-        return {"head_m": head_m, "pressure_m": head_m - net.elevation_m,
-                "demand_m3s": np.where(supplied, demand, 0.0),
-                "required_demand_m3s": demand.copy(), "node_inflow_m3s": inflow,
-                "supplied": supplied, "flow_m3s": q, "velocity_ms": q / s.laws.area,
-                "headloss_m": dh, "unit_headloss": unit, "link_state": full.state.copy()}
+        return {"node_inflow_m3s": inflow, "headloss_m": dh, "unit_headloss": unit}
