@@ -439,6 +439,15 @@ class ReducedDrawSolver:
         self.usable = True
 
     # ------------------------------------------------------------------ pieces
+    def reset(self) -> None:
+        """Forget everything one solve may pass to the next (the working factorization, the
+        whole-network solver and its factorizations); the reduction and the base state's
+        factorization stay. Solves after a reset give the same numbers as on a new solver."""
+        self._full = None
+        self._work_owner = (-1, -1)
+        self._w.pop("work", None)
+        self._g.pop("work", None)
+
     def full(self) -> DrawSolver:
         """The whole-network draw solver (built when first needed)."""
         if self._full is None:

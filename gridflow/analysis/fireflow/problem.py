@@ -380,8 +380,9 @@ def _extend_base(base: HydraulicResult, net: Network, aug: Network, at: np.ndarr
 def run_batch(problem: FireflowProblem, rows: np.ndarray) -> dict[str, np.ndarray]:
     """Evaluate hydrants at row positions ``rows`` (see :func:`.search.run_rows`).
 
-    Every batch starts from a fresh draw solver (one factorization at the base flows), so its
-    numbers do not depend on which batches the same worker ran before: serial, local
-    processes and Dask give identical results for the same batches."""
-    _SYSTEMS.pop((problem.token, threading.get_ident(), "draw"), None)
+    Every batch starts the draw solver afresh (:meth:`ReducedDrawSolver.reset`: the kept
+    base factorization and reduction stay, nothing else carries over), so its numbers do not
+    depend on which batches the same worker ran before: serial, local processes and Dask give
+    identical results for the same batches."""
+    problem.draw_solver().reset()
     return run_rows(problem, rows)
