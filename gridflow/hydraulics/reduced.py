@@ -315,6 +315,21 @@ class _LazyResult(HydraulicResult):
 
 
 @dataclasses.dataclass
+class _Probe:
+    """Where a held node's head comes from: ``H[core] - offset`` at a core node, or
+    ``H[a] - (sum of the chain's group losses before it + share x its group's loss) -
+    offset`` inside chain ``chain``; ``offset``: the base drop down a tree to the node."""
+
+    node: int
+    core: int
+    chain: int
+    g0: int
+    gc: int
+    share: float
+    offset: float
+
+
+@dataclasses.dataclass
 class _Entry:
     k: int
     node: int
@@ -533,15 +548,55 @@ class ReducedDrawSolver:
         """As :meth:`DrawSolver.solve`."""
         if mode not in DRAW_MODES:
             raise ValueError(f"draw-solve mode {mode!r}: expected one of {DRAW_MODES}")
-        ent = None
-        if self.usable and mode != "limit":
+        if (mode == "limit") != (limit_node is not None):
+            raise ValueError("limit_node is given with mode 'limit' and only then")
+        ent = probe = None
+        if self.usable:
             ent = self._entry(int(node))
+            if ent is not None and limit_node is not None:
+                probe = self._probe(int(limit_node), ent)
+                if probe is None:
+                    ent = None
         if ent is None:
             return self._fallback(node, mode, value, limit_node, start)
-        out = self._solve(ent, mode, float(value), start)
+        out = self._solve(ent, mode, float(value), start, probe)
         if out.success:
             return out
         return self._fallback(node, mode, value, limit_node, start)
+
+    def _probe(self, c: int, ent: _Entry) -> _Probe | None:
+        """How node ``c``'s head follows from the reduced state, or None where this solver
+        does not hold it (a node of known head, in the entry's chain, or below the draw's
+        path in its tree)."""
+        red = self.red
+        offset = 0.0
+        if red.gone[c]:
+            if red.tree_root[c] == ent.node:
+                return None  # the draw's own tree: its drops change with the draw
+            offset = float(self.tree_depth_drop[red.tree_index[red.parent_link[c]]])
+            c = int(red.tree_root[c])
+        if red.core_pos[c] >= 0:
+            if not self.free_core[red.core_pos[c]]:
+                return None
+            return _Probe(c, int(red.core_pos[c]), -1, 0, 0, 0.0, offset)
+        cc = int(red.node_chain[c])
+        if cc < 0 or cc == ent.chain or self._chain_minor:
+            return None
+        pos = int(red.node_pos[c])  # the links before the node: positions 0 .. pos - 1
+        g0, g1 = self._groups_of(cc)
+        gc = g0 + int(np.searchsorted(red.group_index[g0:g1], pos, side="right")) - 1
+        # the share of its group's loss on the group's links before the node
+        lo = int(red.group_link_start[gc])
+        first = int(red.chain_link_start[cc]) + pos
+        share = float(np.sum(self.link_share[lo:first]))
+        return _Probe(c, int(red.core_pos[red.a[cc]]), cc, g0, gc, share, offset)
+
+    def _groups_of(self, c: int) -> tuple[int, int]:
+        red = self.red
+        g0 = int(red.chain_group_start[c])
+        g1 = int(red.chain_group_start[c + 1]) if c + 1 < len(red.chain_group_start) \
+            else len(red.group_chain)
+        return g0, g1
 
     def _fallback(self, node, mode, value, limit_node, start) -> DrawOutcome:
         self.fallbacks += 1
@@ -552,13 +607,14 @@ class ReducedDrawSolver:
         return full.solve(node, mode, value, limit_node=limit_node, start=start)
 
     def _solve(self, ent: _Entry, mode: str, value: float,
-               start: HydraulicResult | None) -> DrawOutcome:
+               start: HydraulicResult | None, probe: _Probe | None = None) -> DrawOutcome:
         t0 = time.perf_counter()
         red, s, opt = self.red, self.sys, self.sys.opt
         f0 = self.factorizations
         K = self.K
         ca, cb = red.ca, red.cb
         pin = mode == "head"
+        held = mode == "limit"
         if start is None:
             Q, H, d = self.Q0.copy(), self.h_core0.copy(), 0.0
             self._episode += 1
@@ -570,7 +626,7 @@ class ReducedDrawSolver:
             slot = "work" if self._work_owner == (ent.k, self._episode) else None
         if mode == "draw":
             d = value
-        target = value if pin else np.nan
+        target = value if (pin or held) else np.nan
         gc, goff, rg, mg = red.group_chain, red.group_off, self.rg, self.mg
         C = red.n_chains
         tot = red.tot
@@ -610,11 +666,12 @@ class ReducedDrawSolver:
             else:
                 P = dP = 0.0
             hk = hx - P
+            hc = self._held_head(probe, H, hg) if probe is not None else np.nan
             mass = float(np.max(np.abs(m))) if K else 0.0
             head = float(np.max(np.abs(e))) if len(e) else 0.0
             if not (np.isfinite(mass) and np.isfinite(head) and np.isfinite(hk)):
                 break
-            offp = abs(hk - target) if pin else 0.0
+            offp = abs(hk - target) if pin else abs(hc - target) if held else 0.0
             if mass <= ftol and head <= htol and offp <= htol and it > 0:
                 converged = True
                 break
@@ -637,7 +694,7 @@ class ReducedDrawSolver:
             x = self.pattern.solve(rhs, slot)
             dd = 0.0
             D = float(np.sum(gk[ent.gs:ent.g1])) if inside else 0.0
-            if pin:
+            if pin or held:
                 bvec[:] = 0.0
                 if inside:
                     alpha = D * w[c]
@@ -657,6 +714,9 @@ class ReducedDrawSolver:
                     # a tree on a node of known head: the draw does not reach the core
                     u = bvec
                     num, den = -(target - hk), dP
+                if held and probe is not None:
+                    # the held node lands on its head instead of the outlet
+                    num, den = self._held_step(probe, x, u, e, w, gk, target - hc)
                 dd = num / den
                 x -= dd * u
             dQ = w * (x[ca] - x[cb] - e)
@@ -702,6 +762,28 @@ class ReducedDrawSolver:
                    "node": ent.k, "node_head_m": hk})
         return DrawOutcome(success=True, status=0, message=msg, result=r,
                            draw_m3s=float(d), nit=it)
+
+    def _held_head(self, pr: _Probe, H: np.ndarray, hg: np.ndarray) -> float:
+        """The held node's head at core heads ``H`` and group losses ``hg``."""
+        if pr.chain < 0:
+            return float(H[pr.core]) - pr.offset
+        loss = float(np.sum(hg[pr.g0:pr.gc])) + pr.share * float(hg[pr.gc])
+        return float(H[pr.core]) - loss - pr.offset
+
+    def _held_step(self, pr: _Probe, x, u, e, w, gk, gap: float) -> tuple[float, float]:
+        """``(num, den)`` of the draw change putting the held node on its head (``gap``:
+        its head change needed), with ``dH = x - dd u``."""
+        if pr.chain < 0:
+            return float(x[pr.core]) - gap, float(u[pr.core])
+        red = self.red
+        cc = pr.chain
+        a, b = red.ca[cc], red.cb[cc]
+        # dH_node = dH_a - B dQ, dQ = w (dH_a - dH_b - e): B the derivative of the loss
+        # before the node
+        beta = (float(np.sum(gk[pr.g0:pr.gc])) + pr.share * float(gk[pr.gc])) * w[cc]
+        num = (1.0 - beta) * x[a] + beta * x[b] + beta * e[cc] - gap
+        den = (1.0 - beta) * u[a] + beta * u[b]
+        return float(num), float(den)
 
     def _state_of(self, start: HydraulicResult) -> tuple[np.ndarray, np.ndarray, float]:
         """``(Q, H, d)``: chain flows, core heads and draw of a start."""

@@ -187,3 +187,73 @@ def test_falls_back_where_it_does_not_apply():
     assert lim.success and rs.fallbacks == 1
     assert lim.draw_m3s == pytest.approx(out.draw_m3s, rel=1e-5)
     assert kind.dtype == network.link_kind.dtype and LINK_PUMP not in set(kind.tolist())
+
+
+@settings(max_examples=25, deadline=None, derandomize=True, database=None)
+@given(seed=st.integers(0, 10**6), n=st.integers(4, 30), pick=st.integers(0, 10**6),
+       frac=st.floats(0.1, 0.7))
+def test_limit_node_recovers_the_pinned_solution(seed, n, pick, frac):
+    # pin k, read another node c's head; holding c at that head gives back the same draw
+    network, system, base, rs = setup(seed, n)
+    free = np.flatnonzero(~network.is_fixed)
+    k = int(free[pick % len(free)])
+    others = free[free != k]
+    if not len(others):
+        return
+    head = base.head_m[k] - frac * (base.head_m[k] - network.elevation_m[k] + 5.0)
+    full = system.solve(pin_idx=np.array([k]), pin_head_m=np.array([head]), warm=base,
+                        raise_on_failure=False)
+    assume(full.converged)
+    drop = base.head_m[others] - full.head_m[others]
+    c = int(others[np.argmax(drop)])  # the node the draw moves most (well determined)
+    if drop.max() < 1e-3:
+        return
+    pinned = rs.solve(k, "head", head).result
+    out = rs.solve(k, "limit", full.head_m[c], limit_node=c, start=rs.blend(pinned, 0.7))
+    assert out.success, out.message
+    r = out.result
+    assert r.head_m[c] == pytest.approx(full.head_m[c], abs=1e-6)
+    assert r.head_m[k] == pytest.approx(head, abs=1e-4)
+    draw = r.extra["draw_m3s"]
+    assert draw == pytest.approx(full.node_inflow_m3s[k] - full.demand_m3s[k], rel=1e-5,
+                                 abs=1e-9)
+    assert_physics(network, with_draw(r, k, draw), mass_tol=1e-8, head_tol=1e-6)
+
+
+def test_limit_on_nodes_of_every_kind_without_falling_back():
+    # held nodes at a core node, inside another chain, on a tree elsewhere: all answered on
+    # the reduced network, and each equals the whole-network draw solver
+    from gridflow.hydraulics import DrawSolver
+
+    seen = set()
+    for seed in range(40):
+        network = stringy_network(seed, 14)
+        system = HydraulicSystem(network, TIGHT)
+        base = system.solve(raise_on_failure=False)
+        if not base.converged:
+            continue
+        rs = ReducedDrawSolver(system, base)
+        ds = DrawSolver(system, base)
+        red = rs.red
+        free = np.flatnonzero(~network.is_fixed)
+        k = int(free[-1])
+        head = base.head_m[k] - 0.4 * (base.head_m[k] - network.elevation_m[k] + 5.0)
+        pinned = rs.solve(k, "head", head)
+        if not pinned.success:
+            continue
+        ent = rs._entry(k)
+        for c in free:
+            if c == k or rs._probe(int(c), ent) is None:
+                continue
+            target = float(pinned.result.head_m[c])
+            if base.head_m[c] - target < 1e-3:
+                continue
+            n0 = rs.fallbacks
+            got = rs.solve(k, "limit", target, limit_node=int(c),
+                           start=rs.blend(pinned.result, 0.8))
+            want = ds.solve(k, "limit", target, limit_node=int(c))
+            assert got.success and rs.fallbacks == n0, got.message
+            assert want.success
+            assert got.draw_m3s == pytest.approx(want.draw_m3s, rel=1e-6, abs=1e-10)
+            seen.add("tree" if red.gone[c] else "core" if red.core_pos[c] >= 0 else "chain")
+    assert seen == {"tree", "core", "chain"}
