@@ -44,6 +44,7 @@ import scipy.sparse as sp
 from scipy.sparse import csgraph
 
 from gridflow.hydraulics.draw import DrawSolver
+from gridflow.hydraulics.links import G_FLOOR
 from gridflow.hydraulics.results import DRAW_MODES, DrawOutcome, HydraulicResult
 from gridflow.hydraulics.sparse import FixedPatternSPD
 from gridflow.hydraulics.system import HydraulicSystem
@@ -72,10 +73,13 @@ class Reduction:
     keep : ndarray of bool
         Nodes that must stay visible (a group boundary where they lie inside a chain): the
         nodes draws may be made at.
+    anchor : ndarray of bool, optional
+        Nodes of unknown head that must be core nodes (the ends of pumps, the inlets of
+        regulating valves): never pruned, never inside a chain.
     """
 
     def __init__(self, fr: np.ndarray, to: np.ndarray, links: np.ndarray, dirichlet: np.ndarray,
-                 load: np.ndarray, keep: np.ndarray) -> None:
+                 load: np.ndarray, keep: np.ndarray, anchor: np.ndarray | None = None) -> None:
         nn = len(dirichlet)
         self.nn = nn
         fr = np.asarray(fr, dtype=np.int64)
@@ -89,7 +93,8 @@ class Reduction:
         gone = np.zeros(nn, dtype=bool)
         acc = np.where(dirichlet, 0.0, np.asarray(load, dtype=float))
         rounds: list[tuple[np.ndarray, np.ndarray, np.ndarray]] = []
-        leaves = np.flatnonzero((deg == 1) & ~dirichlet)
+        fixed = dirichlet if anchor is None else (dirichlet | anchor)
+        leaves = np.flatnonzero((deg == 1) & ~fixed)
         while leaves.size:
             lk = xr[leaves]
             other = np.where(fr[lk] == leaves, to[lk], fr[lk])
@@ -102,7 +107,7 @@ class Reduction:
             np.bitwise_xor.at(xr, other, lk)
             np.add.at(acc, other, acc[leaves])
             cand = np.unique(other)
-            leaves = cand[(deg[cand] == 1) & ~dirichlet[cand]]
+            leaves = cand[(deg[cand] == 1) & ~fixed[cand]]
         self.gone = gone
         self.acc = acc
         #: tree links per pruning round: (links, child nodes, parent nodes)
@@ -151,7 +156,7 @@ class Reduction:
         alive = np.zeros(len(fr), dtype=bool)
         alive[E] = True
         alive[tl] = False
-        internal = ~gone & ~dirichlet & (deg == 2)
+        internal = ~gone & ~fixed & (deg == 2)
         # a ring of two-link nodes with no core node: its smallest node is made core
         while True:
             core = ~gone & ~internal
@@ -386,13 +391,21 @@ class ReducedDrawSolver:
         if opt.pressure_driven or not base.converged:
             self.why_not = "pressure-driven demand or no base solution"
             return
-        if laws.dw or bool(laws.pump_on.any()):
-            self.why_not = "Darcy-Weisbach or running pumps"
+        if laws.dw:
+            self.why_not = "Darcy-Weisbach friction"
             return
         full = self.full()
-        if full.any_regulating:
-            self.why_not = "regulating valves"
-            return
+        fr, to = system.fr, system.to
+        # running pumps are chains of their own; a regulating valve holds its outlet's head
+        # (a node of known head) and passes what the zone below it takes, drawn from its
+        # inlet (a core node)
+        pumps = np.flatnonzero(laws.pump_on & full.conducting)
+        prvs = np.flatnonzero(full.regulating)
+        anchor = np.zeros(system.nn, dtype=bool)
+        anchor[fr[pumps]] = True
+        anchor[to[pumps]] = True
+        anchor[fr[prvs]] = True
+        anchor &= full.free
         keep_mask = np.zeros(system.nn, dtype=bool)
         if keep is None:
             keep_mask[:] = True
@@ -401,7 +414,7 @@ class ReducedDrawSolver:
         if reduction is None:
             try:
                 reduction = Reduction(system.fr, system.to, full.conducting, full.dirichlet,
-                                      full.demand, keep_mask)
+                                      full.demand, keep_mask, anchor)
             except ValueError as exc:
                 self.why_not = str(exc)
                 return
@@ -437,6 +450,24 @@ class ReducedDrawSolver:
         self._both = (fa & fb)[self.links2].astype(float)
         self._known = np.flatnonzero(~self.free_core)
         self.h_core0 = full.h0[red.core_nodes]
+        # pumps: their groups (one link each, along the link) and curves
+        where = np.empty(system.nl, dtype=np.int64)
+        where[red.chain_links] = np.arange(len(red.chain_links))
+        self.pump_groups = self.link_group[where[pumps]]
+        self.pump_law = (laws.pump_shutoff[pumps], laws.pump_lin[pumps], laws.pump_quad[pumps])
+        # regulating valves: links, inlet and outlet core positions; a valve's flow is the
+        # outflow of its outlet node, that node's own load included, plus the flows of the
+        # valves drawing from it: f = (I - M)^-1 f_own, M[i, j] = 1 where valve j's inlet is
+        # valve i's outlet
+        self.prv_links = prvs
+        self.prv_in = red.core_pos[fr[prvs]]
+        self.prv_out = red.core_pos[to[prvs]]
+        nv = len(prvs)
+        chain_of_valves = (self.prv_out[:, None] == self.prv_in[None, :]).astype(float)
+        self.prv_pass = np.linalg.inv(np.eye(nv) - chain_of_valves) if nv else np.zeros((0, 0))
+        self.load_all_core = red.acc[red.core_nodes].copy()
+        outlets = np.unique(to[prvs])
+        self.load_all_core[red.core_pos[outlets]] += full.demand[outlets]
         # trees at the base state: link flows, drops from parent to child, drops from root
         tl = red.tree_links
         self.tree_q0 = red.tree_sign * red.tree_flow
@@ -511,13 +542,29 @@ class ReducedDrawSolver:
         return _Entry(k, node, -1, c, g0, gs, g1, p, flow, self.r_link[p],
                       None if self.m_link is None else self.m_link[p])
 
+    def _law(self, phi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Head loss and its derivative of every group at flows ``phi`` (pumps by their
+        curve, as :class:`LinkLaws` has them)."""
+        h, g = DrawSolver._fused_law(phi, self.rg, self.mg)
+        if len(self.pump_groups):
+            q = phi[self.pump_groups]
+            aq = np.abs(q)
+            h0, h1, h2 = self.pump_law
+            h[self.pump_groups] = -(h0 + h1 * q + h2 * q * aq)
+            g[self.pump_groups] = np.maximum(-(h1 + 2.0 * h2 * aq), G_FLOOR)
+        return h, g
+
+    def _valve_flows(self, out: np.ndarray) -> np.ndarray:
+        """Flows of the regulating valves from the core nodes' outflows ``out`` (loads
+        included, valves not yet): each passes what its outlet node sends on."""
+        return self.prv_pass @ out[self.prv_out]
+
     def _ensure_base(self) -> None:
         """The core matrix at the base flows, kept for the first step of every solve from
         the base state (made once)."""
         if "base" not in self._w:
             red = self.red
-            _, gg = DrawSolver._fused_law(self.Q0[red.group_chain] - red.group_off, self.rg,
-                                          self.mg)
+            _, gg = self._law(self.Q0[red.group_chain] - red.group_off)
             self._factor(_sum_at(red.group_chain, gg, red.n_chains), gg,
                          "base")
 
@@ -627,7 +674,7 @@ class ReducedDrawSolver:
         if mode == "draw":
             d = value
         target = value if (pin or held) else np.nan
-        gc, goff, rg, mg = red.group_chain, red.group_off, self.rg, self.mg
+        gc, goff = red.group_chain, red.group_off
         C = red.n_chains
         tot = red.tot
         free_f = self.free_core_f
@@ -645,7 +692,7 @@ class ReducedDrawSolver:
             phi = Q[gc] - goff
             if inside:
                 phi[ent.gs:ent.g1] -= d
-            hg, gg = DrawSolver._fused_law(phi, rg, mg)
+            hg, gg = self._law(phi)
             e = _sum_at(gc, hg, C)
             e -= H[ca]
             e += H[cb]
@@ -657,7 +704,10 @@ class ReducedDrawSolver:
             else:
                 out[ent.core] += d
                 hx = H[ent.core]
-            out += self.load_core
+            out += self.load_all_core
+            if len(self.prv_links):
+                flows = self._valve_flows(out)
+                out += _sum_at(self.prv_in, flows, K)
             out *= free_f
             m = out
             if len(ent.path):
@@ -738,8 +788,17 @@ class ReducedDrawSolver:
         full = self.full()
         mass = float(np.max(np.abs(m))) if len(m) else 0.0
         head = float(np.max(np.abs(e))) if len(e) else 0.0
+        if len(self.prv_links):
+            raw = _sum_at(ca, Q, K) - _sum_at(cb, Q - tot, K) + self.load_all_core
+            if inside:
+                raw[cb[c]] += d
+            else:
+                raw[ent.core] += d
+            valves = self._valve_flows(raw)
+        else:
+            valves = np.zeros(0)
         if full.may_change_status:
-            q, h = self._rebuild(Q, H, d, ent, hg)
+            q, h = self._rebuild(Q, H, d, ent, hg, valves)
             if not s.statuses_hold(full.state, q, h, full.supplied, full.held_fixed):
                 return DrawOutcome(success=False, status=4, nit=it,
                                    message="a device would change status at this draw")
@@ -749,7 +808,7 @@ class ReducedDrawSolver:
                 return self._arrays(*made)
         else:
             def make():
-                return self._arrays(*self._rebuild(Q, H, d, ent, hg))
+                return self._arrays(*self._rebuild(Q, H, d, ent, hg, valves))
         msg = (f"converged in {it} iterations on the reduced network; mass residual "
                f"{mass:.2e} m3/s, head residual {head:.2e} m")
         r = _LazyResult.of(
@@ -816,15 +875,11 @@ class ReducedDrawSolver:
         if ent.chain >= 0:
             phi[ent.gs:ent.g1] -= d
             dphi[ent.gs:ent.g1] -= dd
-        big = float(np.max(np.abs(dphi))) if len(dphi) else 0.0
-        sel = np.abs(dphi) > 1e-7 * max(big, 1e-300)
-        dfs, qs = dphi[sel], phi[sel]
-        rs = self.rg[sel]
-        ms = None if self.mg is None else self.mg[sel]
+        dfs, qs = dphi, phi
         inv_n = 1.0 / float(self.sys.laws.flow_exponent)
         a = 1.0
         for _ in range(8):
-            hl, g = DrawSolver._fused_law(qs + a * dfs, rs, ms)
+            hl, g = self._law(qs + a * dfs)
             total = float(np.sum(dfs * hl))
             dtot = float(np.sum(dfs * dfs * g))
             if len(ent.path) and dd:
@@ -845,9 +900,9 @@ class ReducedDrawSolver:
         return a
 
     # ------------------------------------------------------------------ back to the network
-    def _rebuild(self, Q, H, d, ent: _Entry, hg: np.ndarray):
+    def _rebuild(self, Q, H, d, ent: _Entry, hg: np.ndarray, valves: np.ndarray):
         """Link flows and node heads of the whole network from a reduced state (``hg``: the
-        groups' head losses at that state)."""
+        groups' head losses at that state; ``valves``: the regulating valves' flows)."""
         red, s = self.red, self.sys
         full = self.full()
         q = np.zeros(s.nl)
@@ -859,6 +914,8 @@ class ReducedDrawSolver:
             phi[lo:hi][red.link_index[lo:hi] >= red.group_index[ent.gs]] -= d
         q[red.chain_links] = red.link_sign * phi
         q[red.tree_links] = self.tree_q0
+        if len(self.prv_links):
+            q[self.prv_links] = valves
         if len(ent.path):
             q[ent.path] += red.tree_sign[red.tree_index[ent.path]] * d
         # head drops along the chains

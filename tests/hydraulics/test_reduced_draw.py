@@ -257,3 +257,40 @@ def test_limit_on_nodes_of_every_kind_without_falling_back():
             assert got.draw_m3s == pytest.approx(want.draw_m3s, rel=1e-6, abs=1e-10)
             seen.add("tree" if red.gone[c] else "core" if red.core_pos[c] >= 0 else "chain")
     assert seen == {"tree", "core", "chain"}
+
+
+@pytest.mark.parametrize("draw_m4", [0.0, 0.15])
+def test_pump_and_regulating_valve_on_the_reduced_network(draw_m4):
+    # the hill zone of test_hill_zone: a booster pump lifts the hill zone; with 0.15 m3/s
+    # drawn at M4 the pressure-reducing valve regulates (M4 held at its setting) and passes
+    # water from the hill zone back down. Draws anywhere else that leave every status as it
+    # is are answered on the reduced network and equal full Newton solves.
+    from .test_hill_zone import OPTS, hill_zone
+
+    n = hill_zone(draw_m4=draw_m4)
+    system = HydraulicSystem(n, OPTS)
+    base = system.solve()
+    rs = ReducedDrawSolver(system, base)
+    assert rs.usable, rs.why_not
+    assert len(rs.pump_groups) == 1
+    assert len(rs.prv_links) == (1 if draw_m4 else 0)
+    compared = 0
+    for k in np.flatnonzero(~n.is_fixed):
+        if draw_m4 and n.node_id[k] == "M4":
+            continue  # held by the valve: a node of known head
+        for drop in (0.5, 2.0):
+            head = base.head_m[k] - drop
+            full = system.solve(pin_idx=np.array([k]), pin_head_m=np.array([head]), warm=base,
+                                raise_on_failure=False)
+            if not full.converged or not (full.link_state == base.link_state).all():
+                continue
+            n0 = rs.fallbacks
+            out = rs.solve(int(k), "head", head)
+            assert out.success and rs.fallbacks == n0, out.message
+            r = out.result
+            np.testing.assert_allclose(r.head_m, full.head_m, atol=1e-6)
+            np.testing.assert_allclose(r.flow_m3s, full.flow_m3s, atol=1e-8)
+            draw = r.extra["draw_m3s"]
+            assert_physics(n, with_draw(r, k, draw), mass_tol=1e-8, head_tol=1e-6)
+            compared += 1
+    assert compared >= 8
