@@ -744,6 +744,7 @@ class ReducedDrawSolver:
                 self._work_owner = (ent.k, self._episode)
             chord = not fresh
             prev = score
+            assert slot is not None
             w, gk = self._w[slot], self._g[slot]
             we = w * e
             rhs: np.ndarray = _sum_at(ca, we, K)
