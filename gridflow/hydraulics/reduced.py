@@ -546,16 +546,20 @@ class ReducedDrawSolver:
         return _Entry(k, node, -1, c, g0, gs, g1, p, flow, self.r_link[p],
                       None if self.m_link is None else self.m_link[p])
 
-    def _law(self, phi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    def _law(self, phi: np.ndarray, r: np.ndarray | None = None, m: np.ndarray | None = None,
+             pumps: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
         """Head loss and its derivative of every group at flows ``phi`` (pumps by their
-        curve, as :class:`LinkLaws` has them)."""
-        h, g = DrawSolver._fused_law(phi, self.rg, self.mg)
-        if len(self.pump_groups):
-            q = phi[self.pump_groups]
+        curve, as :class:`LinkLaws` has them); or of some groups, with their resistances
+        ``r``, ``m`` and the pumps' positions among them."""
+        if r is None:
+            r, m, pumps = self.rg, self.mg, self.pump_groups
+        h, g = DrawSolver._fused_law(phi, r, m)
+        if pumps is not None and len(pumps):
+            q = phi[pumps]
             aq = np.abs(q)
             h0, h1, h2 = self.pump_law
-            h[self.pump_groups] = -(h0 + h1 * q + h2 * q * aq)
-            g[self.pump_groups] = np.maximum(-(h1 + 2.0 * h2 * aq), G_FLOOR)
+            h[pumps] = -(h0 + h1 * q + h2 * q * aq)
+            g[pumps] = np.maximum(-(h1 + 2.0 * h2 * aq), G_FLOOR)
         return h, g
 
     def _valve_flows(self, out: np.ndarray) -> np.ndarray:
@@ -885,11 +889,19 @@ class ReducedDrawSolver:
         if ent.chain >= 0:
             phi[ent.gs:ent.g1] -= d
             dphi[ent.gs:ent.g1] -= dd
-        dfs, qs = dphi, phi
+        # the groups the step moves (the others add next to nothing to either side)
+        big = float(np.max(np.abs(dphi))) if len(dphi) else 0.0
+        sel = np.abs(dphi) > 1e-3 * big
+        sel[self.pump_groups] = True
+        on = np.flatnonzero(sel)
+        dfs, qs = dphi[on], phi[on]
+        rs = self.rg[on]
+        ms = None if self.mg is None else self.mg[on]
+        pumps = np.searchsorted(on, self.pump_groups)
         inv_n = 1.0 / float(self.sys.laws.flow_exponent)
         a = 1.0
         for _ in range(8):
-            hl, g = self._law(qs + a * dfs)
+            hl, g = self._law(qs + a * dfs, rs, ms, pumps)
             total = float(np.sum(dfs * hl))
             dtot = float(np.sum(dfs * dfs * g))
             if len(ent.path) and dd:
