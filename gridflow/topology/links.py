@@ -26,6 +26,7 @@ from gridflow.network import (
     VALVE_THROTTLE,
     fit_pump_curve,
 )
+from gridflow.topology.idtext import as_text
 from gridflow.topology.nodes import unique_ids
 from gridflow.topology.points import column
 from gridflow.topology.records import (
@@ -170,9 +171,11 @@ def _prefix_collisions(ids: np.ndarray, kind: np.ndarray) -> np.ndarray:
     if (kind == LINK_PIPE).all():
         return ids.astype(object)
     ids = ids.astype(object).copy()
-    text = pd.Index(ids.astype(str), dtype=object)
-    is_pipe_id = text.isin(pd.Index(text[kind == LINK_PIPE]).unique())
+    dev = np.flatnonzero(kind != LINK_PIPE)
+    pipe_text = pd.Index(as_text(ids[kind == LINK_PIPE]), dtype=object)
+    is_pipe_id = np.zeros(len(ids), bool)
+    is_pipe_id[dev] = pd.Index(as_text(ids[dev]), dtype=object).isin(pipe_text)
     for k, name in ((LINK_VALVE, "valve"), (LINK_PUMP, "pump")):
         m = (kind == k) & is_pipe_id
-        ids[m] = [f"{name}:{x}" for x in ids[m]]
+        ids[m] = [f"{name}:{x}" for x in ids[m]]  # a few: ids mapped twice
     return ids

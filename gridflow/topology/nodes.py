@@ -13,6 +13,7 @@ import shapely
 
 from gridflow.config.layers import layer_sections
 from gridflow.network import NODE_JUNCTION, NODE_SOURCE, NODE_TANK
+from gridflow.topology.idtext import all_distinct, as_text
 from gridflow.topology.pipes import z_factor
 from gridflow.topology.points import column, point_layer
 from gridflow.topology.records import Attached, Context, NodeTable, Snapped, Split
@@ -220,9 +221,8 @@ def unique_ids(ids: np.ndarray) -> np.ndarray:
     import pandas as pd
 
     ids = np.asarray(ids)
-    text = (ids if ids.dtype == object and pd.api.types.infer_dtype(ids, skipna=False)
-            == "string" else ids.astype(str).astype(object))
-    if pd.Index(text, dtype=object).is_unique:  # the usual case: one hash pass
+    text = as_text(ids)
+    if all_distinct(text):  # the usual case: one hash pass
         return ids.astype(object)
     s = pd.Series(text, dtype=object)
     k = s.groupby(s, sort=False).cumcount().to_numpy()

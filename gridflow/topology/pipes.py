@@ -21,6 +21,7 @@ import shapely
 
 from gridflow.config.layers import unit_factor
 from gridflow.errors import InputError, TopologyError
+from gridflow.topology.idtext import suffixed
 from gridflow.topology.records import Context, Pipes
 from gridflow.units import INCH
 
@@ -63,7 +64,7 @@ def prepare_pipes(ctx: Context) -> Pipes:
     if multi.any():
         k = np.arange(len(src)) - np.concatenate([[0], np.cumsum(nparts)[:-1]])[pidx]
         m = multi[pidx]
-        pid[m] = [f"{a}.{b + 1}" for a, b in zip(pid[m], k[m])]
+        pid[m] = suffixed(pid[m], k[m] + 1)
         f.add_many("multipart_exploded", "info", layer, ids[rows[multi]],
                    [f"multi-part main split into {n} pipes" for n in nparts[multi]],
                    geoms[rows[multi]])
