@@ -98,14 +98,15 @@ def attach_points(ctx: Context, sn: Snapped) -> Attached:
                     ev_line=ev_line[order].astype(np.int64), ev_s=ev_s[order],
                     ev_xy=ev_xy[order].reshape(-1, 2), ev_up=ev_up[order].astype(np.int64),
                     ev_down=ev_down[order].astype(np.int64), start_key=start_key,
-                    end_key=end_key, hydrants=hyd, hyd_key=hyd_key, devices=tuple(devices))
+                    end_key=end_key, hydrants=hyd, hyd_key=hyd_key, devices=tuple(devices),
+                    cluster_pts=sn.cluster_pts)
 
 
 def t_events(ctx: Context, sn: Snapped, tree, glen: np.ndarray):
     """T-junctions: (main, key, distance along the main) of each dangling end joined; every
     T-join and every near miss not joined is a finding."""
     f, tol = ctx.findings, ctx.tol
-    cpts = shapely.points(sn.cxy)
+    cpts = sn.cluster_pts if sn.cluster_pts is not None else shapely.points(sn.cxy)
     none = (np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0))
     if len(cpts) == 0:
         return none
