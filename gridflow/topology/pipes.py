@@ -56,7 +56,10 @@ def prepare_pipes(ctx: Context) -> Pipes:
                "main whose geometry is not a line left out", geoms[keep & notline])
     keep &= ~empty & ~notline
     rows = np.flatnonzero(keep)
-    parts, pidx = shapely.get_parts(geoms[rows], return_index=True)
+    if (tid[rows] == 1).all():  # single lines only: nothing to explode
+        parts, pidx = geoms[rows], np.arange(len(rows))
+    else:
+        parts, pidx = shapely.get_parts(geoms[rows], return_index=True)
     src = rows[pidx]
     nparts = np.bincount(pidx, minlength=len(rows))
     multi = nparts > 1
