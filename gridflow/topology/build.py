@@ -43,7 +43,7 @@ from gridflow.topology.records import Context
 from gridflow.topology.snap import snap_ends
 from gridflow.topology.split import split_mains
 from gridflow.topology.supply import isolation_findings, pump_grade_findings
-from gridflow.topology.zones import connectivity_findings
+from gridflow.topology.zones import connectivity_findings, network_parts
 
 __all__ = ["CleanNetwork", "build_network", "MAX_DIAMETER_M", "MIN_DIAMETER_M", "C_RANGE"]
 
@@ -85,9 +85,12 @@ def build_network(cfg, findings: Findings, *, read: ReadResult | None = None) ->
                          rr.crs, z_factor(cfg))
     elev, guessed = fill_elevations(ctx, nodes, links, dem)
     clean = assemble(ctx, attached, nodes, links, elev, guessed)
-    connectivity_findings(findings, clean.network, links.cols["geom"],
-                          np.asarray(clean.nodes.geometry.values, dtype=object), pipes.layer)
-    isolation_findings(ctx, clean)
+    net = clean.network
+    parts = network_parts(net) if net.n_nodes and net.is_fixed.any() else None
+    connectivity_findings(findings, net, links.cols["geom"],
+                          np.asarray(clean.nodes.geometry.values, dtype=object), pipes.layer,
+                          parts)
+    isolation_findings(ctx, clean, parts)
     pump_grade_findings(ctx, clean.network)
     return clean
 

@@ -13,7 +13,7 @@ import shapely
 
 from gridflow.config.layers import layer_sections
 from gridflow.network import NODE_JUNCTION, NODE_SOURCE, NODE_TANK
-from gridflow.topology.idtext import all_distinct, as_text, suffixed
+from gridflow.topology.idtext import all_distinct, as_text
 from gridflow.topology.pipes import z_factor
 from gridflow.topology.points import column, point_layer
 from gridflow.topology.records import Attached, Context, NodeTable, Snapped, Split
@@ -97,7 +97,7 @@ def _generated_ids(taken: np.ndarray, n: int) -> np.ndarray:
     while width in set(clash.tolist()):
         width += 1
     prefix = "N" * width
-    return suffixed(np.full(n, prefix, dtype=object), np.arange(1, n + 1), sep="")
+    return np.array([f"{prefix}{i}" for i in range(1, n + 1)], dtype=object)
 
 
 def _levels_are_elevations(ctx: Context, role: str, frame) -> np.ndarray:

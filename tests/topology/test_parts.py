@@ -1,0 +1,45 @@
+"""The network's parts, computed once and shared by the connectivity and isolation checks,
+give the same answers as each check computing its own."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from gridflow.findings import Findings
+from gridflow.topology import build_network
+from gridflow.topology.zones import connectivity_findings, network_parts, supplied_nodes
+
+from ..gis_helpers import L, P, config, layer, pipe, source_layer, source_rows
+
+VALVES = {"input": "gis", "layer": "valves", "id": "VALVE_ID",
+          "fields": {"type": "TYPE", "status": "STAT", "setting": "SET"},
+          "units": {"setting": "psi"},
+          "codes": {"type": {"GV": "isolation", "PRV": "prv", "CV": "check"},
+                    "status": {"O": "open", "C": "closed"}}}
+
+
+def test_shared_parts_same_answers(tmp_path):
+    g = tmp_path / "gis.gpkg"
+    layer(g, "mains", [pipe("A", L((0, 0), (100, 0))), pipe("B", L((100, 0), (200, 0))),
+                       pipe("C", L((200, 0), (300, 0))), pipe("D", L((500, 0), (600, 0)))])
+    layer(g, "sources", source_rows(P(0, 0)))
+    layer(g, "valves", [{"VALVE_ID": "V1", "TYPE": "GV", "STAT": "C", "SET": None,
+                         "geometry": P(150, 1)}])
+    cfg = config(tmp_path, g, layers={"sources": source_layer(), "valves": VALVES})
+    cn = build_network(cfg, Findings())
+    net = cn.network
+    parts = network_parts(net)
+    # through every link: the line A-B-C, and D apart; through open links: the closed
+    # valve cuts B's far piece and C off as well
+    assert len(np.unique(parts.whole)) == 2
+    assert len(np.unique(parts.open)) == 3
+    assert np.array_equal(supplied_nodes(net), supplied_nodes(net, parts))
+    assert supplied_nodes(net).sum() == 3  # the source end, A's far end, B.1's far end
+    pts = np.asarray(cn.nodes.geometry.values, dtype=object)
+    geoms = np.asarray(cn.links.geometry.values, dtype=object)
+    own, shared = Findings(), Findings()
+    connectivity_findings(own, net, geoms, pts, "mains")
+    connectivity_findings(shared, net, geoms, pts, "mains", parts)
+    assert own.kind == shared.kind and own.feature_id == shared.feature_id
+    assert own.message == shared.message
+    assert {"disconnected_part", "unsupplied_part"} <= set(own.kind)
