@@ -74,11 +74,14 @@ def number_nodes(ctx: Context, sn: Snapped, at: Attached, sp: Split) -> NodeTabl
         if np.isfinite(el):
             elev[i] = el
     gen = node_id == None  # noqa: E711
+    # generated ids never equal a taken one nor each other: only the taken ids can repeat
+    taken = unique_ids(node_id[~gen])
     node_id[gen] = _generated_ids(node_id[~gen], int(gen.sum()))
+    node_id[~gen] = taken
     standin = np.zeros(nn, bool)
     standin[idx_of_key[sorted(standin_keys)]] = True
     return NodeTable(keys=keys, idx_of_key=idx_of_key, xy=node_xy,
-                     node_id=unique_ids(node_id), kind=kind, fixed_head_m=fixed_head,
+                     node_id=node_id, kind=kind, fixed_head_m=fixed_head,
                      elevation_m=elev, standin=standin, zone=zone)
 
 
@@ -227,7 +230,7 @@ def unique_ids(ids: np.ndarray) -> np.ndarray:
     s = pd.Series(text, dtype=object)
     k = s.groupby(s, sort=False).cumcount().to_numpy()
     if (k > 0).any():
-        out = s.to_numpy(dtype=object)
+        out = text  # a copy of the ids (a Series' array is read-only under copy-on-write)
         out[k > 0] = [f"{a}#{b + 1}" for a, b in zip(out[k > 0], k[k > 0])]
         return out
     return ids.astype(object)

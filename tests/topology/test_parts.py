@@ -43,3 +43,23 @@ def test_shared_parts_same_answers(tmp_path):
     assert own.kind == shared.kind and own.feature_id == shared.feature_id
     assert own.message == shared.message
     assert {"disconnected_part", "unsupplied_part"} <= set(own.kind)
+
+
+def test_node_ids_repeated_across_layers_and_generated(tmp_path):
+    """A junction id repeated by a tank gets a '#2' suffix; a junction named like a generated
+    id ('N1') lengthens the generated prefix (NN1 ...)."""
+    g = tmp_path / "gis.gpkg"
+    layer(g, "mains", [pipe("A", L((0, 0), (100, 0))), pipe("B", L((100, 0), (200, 0))),
+                       pipe("C", L((200, 0), (300, 0)))])
+    layer(g, "junctions", [{"JID": "J7", "ELEV": 100.0, "geometry": P(100, 0)},
+                           {"JID": "N1", "ELEV": 100.0, "geometry": P(200, 0)}])
+    layer(g, "tanks", [{"TID": "J7", "BOT": 300.0, "LVL": 20.0, "geometry": P(0, 1)}])
+    nodes = {"input": "gis", "layer": "junctions", "id": "JID", "fields": {"elevation": "ELEV"},
+             "units": {"elevation": "ft"}}
+    tanks = {"input": "gis", "layer": "tanks", "id": "TID",
+             "fields": {"bottom_elevation": "BOT", "level": "LVL"},
+             "units": {"bottom_elevation": "ft", "level": "ft"}}
+    cn = build_network(config(tmp_path, g, layers={"nodes": nodes, "tanks": tanks}), Findings())
+    ids = list(cn.network.node_id)
+    assert ids == ["J7", "J7#2", "N1", "NN1"]  # ordered by x: tank, junctions, the far end
+    assert cn.network.fixed_head_m[0] > 0 and np.isnan(cn.network.fixed_head_m[1:]).all()
