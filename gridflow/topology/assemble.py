@@ -74,8 +74,14 @@ def _node_points(at: Attached, nt: NodeTable) -> np.ndarray:
     out = np.empty(len(nt.keys), dtype=object)
     cl = nt.keys < at.n_clusters
     out[cl] = at.cluster_pts[nt.keys[cl]]
-    if not cl.all():
-        out[~cl] = shapely.points(nt.xy[~cl])
+    new = np.flatnonzero(~cl)
+    if len(new):
+        # nodes in one place (a valve's two sides) sit next to each other in node order:
+        # one point serves the run
+        xy = nt.xy[new]
+        lead = np.r_[True, (new[1:] != new[:-1] + 1) | np.any(xy[1:] != xy[:-1], axis=1)]
+        run = np.cumsum(lead) - 1
+        out[new] = shapely.points(xy[lead])[run]
     return out
 
 
