@@ -87,3 +87,40 @@ def test_id_text():
     assert all(type(v) is str for v in as_text(np.array([1.5, 2])))
     assert all_distinct(as_text(np.array(["1", "2", "10"], dtype=object)))
     assert not all_distinct(as_text(np.array(["1", 1], dtype=object)))
+
+
+def _reference_link_ids(ids, kind):
+    """Prefix device ids that repeat a pipe id, then suffix what still repeats, one id at a
+    time."""
+    from gridflow.network import LINK_PIPE, LINK_PUMP
+
+    pipes = {str(x) for x, k in zip(ids, kind) if k == LINK_PIPE}
+    out = []
+    for x, k in zip(ids, kind):
+        if k != LINK_PIPE and str(x) in pipes:
+            x = f"{'pump' if k == LINK_PUMP else 'valve'}:{x}"
+        out.append(str(x))
+    seen: dict[str, int] = {}
+    final = []
+    for x in out:
+        seen[x] = seen.get(x, 0) + 1
+        final.append(x if seen[x] == 1 else f"{x}#{seen[x]}")
+    return final
+
+
+@pytest.mark.parametrize("ids, kinds", [
+    (["P1", "P2", "V1", "U1"], "ppvu"),  # the usual case
+    (["P1", "P2", "P1", "P2"], "ppvu"),  # device ids repeat pipe ids: prefixed
+    (["P1", "valve:V1", "V1", "V1"], "ppvv"),  # the prefix meets a pipe id, a device repeat
+    (["P1", "P1", "V1"], "ppv"),  # a pipe id repeated
+    (["P1", "P2"], "pp"),  # pipes only
+])
+def test_link_ids_match_reference(ids, kinds):
+    from gridflow.network import LINK_PIPE, LINK_PUMP, LINK_VALVE
+    from gridflow.topology.links import _link_ids
+
+    code = {"p": LINK_PIPE, "v": LINK_VALVE, "u": LINK_PUMP}
+    kind = np.array([code[c] for c in kinds])
+    got = _link_ids(np.array(ids, dtype=object), kind)
+    assert list(got) == _reference_link_ids(ids, kind)
+    assert len(set(got)) == len(got)
