@@ -1,5 +1,5 @@
-"""The network's parts, computed once and shared by the connectivity and isolation checks,
-give the same answers as each check computing its own."""
+"""Topology stages that share work: the network's parts computed once for the connectivity and
+isolation checks, node ids made unique where they can repeat, and the stage clock."""
 
 from __future__ import annotations
 
@@ -63,3 +63,16 @@ def test_node_ids_repeated_across_layers_and_generated(tmp_path):
     ids = list(cn.network.node_id)
     assert ids == ["J7", "J7#2", "N1", "NN1"]  # ordered by x: tank, junctions, the far end
     assert cn.network.fixed_head_m[0] > 0 and np.isnan(cn.network.fixed_head_m[1:]).all()
+
+
+def test_stage_timings_reported(tmp_path):
+    g = tmp_path / "gis.gpkg"
+    layer(g, "mains", [pipe("A", L((0, 0), (100, 0))), pipe("B", L((100, 0), (200, 0)))])
+    layer(g, "sources", source_rows(P(0, 0)))
+    cfg = config(tmp_path, g, layers={"sources": source_layer()})
+    timings: dict[str, float] = {}
+    cn = build_network(cfg, Findings(), timings=timings)
+    assert list(timings) == ["read", "pipes", "snap", "attach", "split", "nodes", "links",
+                             "elevations", "assemble", "checks"]
+    assert all(v >= 0.0 for v in timings.values())
+    assert cn.network.n_links == 2
