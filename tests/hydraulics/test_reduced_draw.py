@@ -19,7 +19,7 @@ from gridflow.hydraulics import HydraulicSystem, SolveOptions
 from gridflow.hydraulics.reduced import ReducedDrawSolver, Reduction
 from gridflow.network import Network
 
-from .netbuild import assert_physics
+from .netbuild import assert_held, assert_physics, pin_then_hold
 
 TIGHT = SolveOptions(head_tolerance=1e-9, flow_tolerance=1e-9)
 
@@ -166,27 +166,45 @@ def test_reduction_of_a_hand_counted_network():
     assert len(red.group_chain) == 6
 
 
-def test_falls_back_where_it_does_not_apply():
-    # a pump in the network: the reduced route does not apply; the answers still come, from
-    # the whole-network draw solver
-    from gridflow.network.model import LINK_PUMP
+def test_hands_over_what_it_does_not_hold():
+    # a node held in the draw's own chain or tree (its head moves with the draw in a way the
+    # reduced solve does not carry) goes to the whole-network draw solver, counted, with its
+    # answer; a Darcy-Weisbach network is not reduced at all
+    from gridflow.hydraulics import DrawSolver
 
-    network = stringy_network(5, 12)
-    kind = network.link_kind.copy()
-    system = HydraulicSystem(network, TIGHT)
-    base = system.solve()
-    rs = ReducedDrawSolver(system, base)
-    assert rs.usable
-    k = int(np.flatnonzero(~network.is_fixed)[3])
-    target = base.head_m[k] - 5.0
-    out = rs.solve(k, "head", target)
-    assert out.success and rs.fallbacks == 0
-    # limit mode is the whole-network solver's
-    other = int(np.flatnonzero(~network.is_fixed)[4])
-    lim = rs.solve(k, "limit", float(out.result.head_m[other]), limit_node=other)
-    assert lim.success and rs.fallbacks == 1
-    assert lim.draw_m3s == pytest.approx(out.draw_m3s, rel=1e-5)
-    assert kind.dtype == network.link_kind.dtype and LINK_PUMP not in set(kind.tolist())
+    handed = 0
+    for seed in range(30):
+        network = stringy_network(seed, 12)
+        system = HydraulicSystem(network, TIGHT)
+        base = system.solve(raise_on_failure=False)
+        if not base.converged:
+            continue
+        rs = ReducedDrawSolver(system, base)
+        free = np.flatnonzero(~network.is_fixed)
+        k = int(free[-1])
+        ent = rs._entry(k)
+        pinned = rs.solve(k, "head", base.head_m[k] - 3.0)
+        if ent is None or not pinned.success:
+            continue
+        for c in free:
+            if c == k or rs._probe(int(c), ent) is not None:
+                continue
+            target = float(pinned.result.head_m[c])
+            if base.head_m[c] - target < 1e-3:
+                continue
+            n0 = rs.fallbacks
+            got = rs.solve(k, "limit", target, limit_node=int(c))
+            want = DrawSolver(system, base).solve(k, "limit", target, limit_node=int(c))
+            assert rs.fallbacks == n0 + 1
+            assert got.success == want.success
+            if want.success:
+                assert got.draw_m3s == pytest.approx(want.draw_m3s, rel=1e-9, abs=1e-12)
+                handed += 1
+    assert handed >= 5
+    dw = stringy_network(3, 10).replace(headloss_model="darcy-weisbach")
+    system = HydraulicSystem(dw, TIGHT)
+    rs = ReducedDrawSolver(system, system.solve())
+    assert not rs.usable and "Darcy-Weisbach" in rs.why_not
 
 
 @settings(max_examples=25, deadline=None, derandomize=True, database=None)
@@ -195,29 +213,13 @@ def test_falls_back_where_it_does_not_apply():
 def test_limit_node_recovers_the_pinned_solution(seed, n, pick, frac):
     # pin k, read another node c's head; holding c at that head gives back the same draw
     network, system, base, rs = setup(seed, n)
-    free = np.flatnonzero(~network.is_fixed)
-    k = int(free[pick % len(free)])
-    others = free[free != k]
-    if not len(others):
-        return
-    head = base.head_m[k] - frac * (base.head_m[k] - network.elevation_m[k] + 5.0)
-    full = system.solve(pin_idx=np.array([k]), pin_head_m=np.array([head]), warm=base,
-                        raise_on_failure=False)
-    assume(full.converged)
-    drop = base.head_m[others] - full.head_m[others]
-    c = int(others[np.argmax(drop)])  # the node the draw moves most (well determined)
-    if drop.max() < 1e-3:
-        return
+    case = pin_then_hold(network, system, base, pick, frac)
+    assume(case is not None)
+    k, c, head, full = case
     pinned = rs.solve(k, "head", head).result
     out = rs.solve(k, "limit", full.head_m[c], limit_node=c, start=rs.blend(pinned, 0.7))
     assert out.success, out.message
-    r = out.result
-    assert r.head_m[c] == pytest.approx(full.head_m[c], abs=1e-6)
-    assert r.head_m[k] == pytest.approx(head, abs=1e-4)
-    draw = r.extra["draw_m3s"]
-    assert draw == pytest.approx(full.node_inflow_m3s[k] - full.demand_m3s[k], rel=1e-5,
-                                 abs=1e-9)
-    assert_physics(network, with_draw(r, k, draw), mass_tol=1e-8, head_tol=1e-6)
+    assert_held(network, out.result, k, c, head, full)
 
 
 def test_limit_on_nodes_of_every_kind_without_falling_back():
