@@ -2,11 +2,13 @@
 
 Each size is written as a GeoPackage by ``synthetic_utility.write_utility``, read and cleaned
 once by gridflow's own topology (``gridflow.topology.build_network``, the hydrants attached
-as a run attaches them: about one every 150 m of main), solved at the base demand, and swept.
+as a run attaches them: about one every 150 m of main), its meters' demand allocated and the
+fire-flow scenario's demand applied (``gridflow.demand``, as a run does), solved, and swept.
 
 Per size: the mean cost of a hydrant in numeric factorizations of the same matrix (time per
 hydrant / time of one numeric factorization of the full system with the hydrants' outlets,
-measured in the same run), real factorizations and Newton steps per hydrant, hydrants on the
+measured in the same run), factorizations of the full system and of the reduced network's
+core (and its size) and Newton steps per hydrant, hydrants on the
 full-Newton fallback, hydrants per second per core (serial), the speed-ups with 2 local worker
 processes and with a Dask ``LocalCluster`` of 2 single-threaded workers on loopback (cluster
 start-up not timed), and the full sweep's time projected from the serial rate: on one core and
@@ -38,6 +40,8 @@ from synthetic_utility import config_text, write_utility
 
 from gridflow.analysis.fireflow import FireflowProblem, sweep
 from gridflow.config import load_config
+from gridflow.demand import allocate
+from gridflow.demand.scenarios import scenario_network
 from gridflow.findings import Findings
 from gridflow.hydraulics import HydraulicSystem, SolveOptions
 from gridflow.topology import build_network
@@ -50,9 +54,13 @@ def network(n_mains: int, d: Path):
     cfg_path = d / f"utility_{n_mains}.toml"
     cfg_path.write_text(config_text(gis, fireflow=True, report=False))
     cfg = load_config(cfg_path)
-    clean = build_network(cfg, Findings())
+    findings = Findings()
+    clean = build_network(cfg, findings)
+    # the base state a run sweeps from: the fire-flow scenario's demand on the meters
+    alloc = allocate(cfg, clean, findings)
+    net = scenario_network(cfg, clean, alloc, cfg.fireflow.scenario)
     hyd = pd.DataFrame(clean.hydrants.drop(columns="geometry"))
-    return clean.network, hyd, cfg
+    return net, hyd, cfg
 
 
 def one(n_mains: int, sample: int | None, parallel: bool, d: Path) -> dict:
@@ -68,6 +76,8 @@ def one(n_mains: int, sample: int | None, parallel: bool, d: Path) -> dict:
     fire, crit = cfg.fireflow, cfg.criteria
     prob = FireflowProblem.build(net, base, hyd, fire, crit, options=opts)
     t_fact = numeric_factorization_seconds(HydraulicSystem(prob.net, prob.options), repeat=7)
+    ds = prob.draw_solver()
+    core_nodes = ds.K if ds.usable else 0
     load0 = os.getloadavg()[0]
     t0 = time.perf_counter()
     serial = sweep(net, base, hyd, fire, crit, options=opts, workers=1)
@@ -78,6 +88,7 @@ def one(n_mains: int, sample: int | None, parallel: bool, d: Path) -> dict:
              "hydrants_all": n_all, "hydrants": n, "build_s": t_build, "serial_s": t1,
              "per_core": n / t1, "factor_ms": t_fact * 1e3,
              "fact_eq": t1 / n / t_fact, "facts": s["factorizations"] / n,
+             "core_facts": s["core_factorizations"] / n, "core_nodes": core_nodes,
              "iters": s["iterations"] / n, "fallback": s["fallback"],
              "failed": s.get("limited_by_not_converged", 0),
              "full_1core_h": n_all * t1 / n / 3600.0, "load": load0,
@@ -111,6 +122,7 @@ def main() -> None:
     a = ap.parse_args()
     print(f"{'mains':>7} {'links':>7} {'hydr':>6} {'timed':>5} {'serial s':>8} "
           f"{'hyd/s/core':>10} {'factor ms':>9} {'fact-eq/hyd':>11} {'facts/hyd':>9} "
+          f"{'core f/hyd':>10} {'core nodes':>10} "
           f"{'iter/hyd':>8} {'fallbk':>6} {'x2':>5} {'x2 dask':>7} {'full 2w h':>9} "
           f"{'load':>9}", flush=True)
     with tempfile.TemporaryDirectory() as tmp:
@@ -118,7 +130,8 @@ def main() -> None:
             d = one(int(item), a.sample, not a.no_parallel, Path(tmp))
             print(f"{d['mains']:>7} {d['links']:>7} {d['hydrants_all']:>6} {d['hydrants']:>5} "
                   f"{d['serial_s']:>8.2f} {d['per_core']:>10.2f} {d['factor_ms']:>9.2f} "
-                  f"{d['fact_eq']:>11.2f} {d['facts']:>9.2f} {d['iters']:>8.2f} "
+                  f"{d['fact_eq']:>11.2f} {d['facts']:>9.2f} {d['core_facts']:>10.2f} "
+                  f"{d['core_nodes']:>10} {d['iters']:>8.2f} "
                   f"{d['fallback']:>6} {d['x2']:>5.2f} {d['xdask']:>7.2f} "
                   f"{d['full_2w_h']:>9.2f} {d['load']:>4.1f}-{d['load_end']:<4.1f}", flush=True)
             print(f"        limits: {d['limits']}; failed: {d['failed']}; serial, 2 processes "

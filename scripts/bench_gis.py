@@ -8,7 +8,9 @@ size; a fresh process then measures, in the same run:
   of ``--repeat``);
 - ``read_inputs`` (the mapped layers read, checked, renamed, converted) and
   ``build_network`` on what it read (the topology stages);
-- their ratio to the floor, and peak memory (ru_maxrss).
+- their ratio to the floor, and peak memory (ru_maxrss);
+- the wall time of each topology stage (``build_network(timings=...)``), and the machine's
+  1-minute load average when the run ended (the machine is shared: compare ratios).
 
     python scripts/bench_gis.py 100000 500000
 
@@ -19,6 +21,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import os
 import resource
 import subprocess
 import sys
@@ -57,14 +60,16 @@ def one(gis: Path, repeat: int) -> dict:
     cfg = load_config(cfg_path)
     bare = float(np.median([bare_read(gis) for _ in range(repeat)]))
     f = Findings()
+    stages: dict[str, float] = {}
     t0 = time.perf_counter()
     rr = read_inputs(cfg, f)
     t1 = time.perf_counter()
-    clean = build_network(cfg, f, read=rr)
+    clean = build_network(cfg, f, read=rr, timings=stages)
     t2 = time.perf_counter()
     rss = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
     return {"links": clean.network.n_links, "nodes": clean.network.n_nodes, "bare_s": bare,
-            "read_s": t1 - t0, "clean_s": t2 - t1, "findings": len(f), "peak_mb": rss}
+            "read_s": t1 - t0, "clean_s": t2 - t1, "findings": len(f), "peak_mb": rss,
+            "stages": stages, "load": os.getloadavg()[0]}
 
 
 def main() -> None:
@@ -79,7 +84,8 @@ def main() -> None:
     from synthetic_utility import write_utility
 
     print(f"{'mains':>8} {'nodes':>8} {'links':>8} {'bare read s':>11} {'read s':>7} "
-          f"{'clean s':>8} {'read+clean':>10} {'ratio':>6} {'findings':>9} {'peak MB':>8}")
+          f"{'clean s':>8} {'read+clean':>10} {'ratio':>6} {'findings':>9} {'peak MB':>8} "
+          f"{'load':>5}")
     for n in args.sizes:
         with tempfile.TemporaryDirectory() as d:
             gis = Path(d) / "utility.gpkg"
@@ -93,7 +99,10 @@ def main() -> None:
             rc = r["read_s"] + r["clean_s"]
             print(f"{n:>8} {r['nodes']:>8} {r['links']:>8} {r['bare_s']:>11.2f} "
                   f"{r['read_s']:>7.2f} {r['clean_s']:>8.2f} {rc:>10.2f} "
-                  f"{rc / r['bare_s']:>6.2f} {r['findings']:>9} {r['peak_mb']:>8.0f}",
+                  f"{rc / r['bare_s']:>6.2f} {r['findings']:>9} {r['peak_mb']:>8.0f} "
+                  f"{r['load']:>5.2f}", flush=True)
+            print("          stages s: " + "  ".join(f"{k} {v:.2f}"
+                                                    for k, v in r["stages"].items()),
                   flush=True)
 
 

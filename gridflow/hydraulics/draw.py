@@ -64,6 +64,8 @@ class DrawSolver:
     system : HydraulicSystem
     base : HydraulicResult
         A converged solution of ``system.net`` with its own demand.
+    factor : bool
+        Factorize at the base state now (default); else on :meth:`ensure_factor`.
     refactor_ratio : float
         Refactor when the residual falls by less than this factor's inverse in one step
         (default 0: refactor every step after the first, plain Newton, which measured
@@ -71,7 +73,7 @@ class DrawSolver:
     """
 
     def __init__(self, system: HydraulicSystem, base: HydraulicResult, *,
-                 refactor_ratio: float = 0.0) -> None:
+                 refactor_ratio: float = 0.0, factor: bool = True) -> None:
         self.sys = system
         self.refactor_ratio = float(refactor_ratio)
         net, opt = system.net, system.opt
@@ -122,8 +124,16 @@ class DrawSolver:
         self._u: dict = {}
         self._w: dict = {}
         self._pinned: dict = {}
-        if self.usable:
+        self._base_factored = False
+        if self.usable and factor:
+            self.ensure_factor()
+
+    def ensure_factor(self) -> None:
+        """Factorize the head matrix at the base flows (once; the constructor does it unless
+        told ``factor=False``)."""
+        if self.usable and not self._base_factored:
             self._factor(self.q0, "base")
+            self._base_factored = True
 
     # ------------------------------------------------------------------ pieces
     def _headloss(self, q):

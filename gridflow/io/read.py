@@ -497,6 +497,8 @@ def _ids(col: pd.Series, role: str, info: LayerInfo, findings: Findings) -> np.n
         txt[rows] = [f"{info.layer}:{r}" for r in rows]
         findings.add_many("missing_id", "warning", info.layer, txt[rows],
                           f"feature without {role[:-1]} id; named by its row")
+    if len(set(txt.tolist())) == len(txt):  # the usual case: one hash pass, no repeats
+        return txt
     s = pd.Series(txt)
     k = s.groupby(s, sort=False).cumcount().to_numpy()
     if (k > 0).any():

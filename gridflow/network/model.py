@@ -191,8 +191,8 @@ class Network:
 
         ``node_kind`` defaults to source where ``fixed_head_m`` is finite, junction elsewhere.
         """
-        node_id = np.asarray(node_id).astype(str).astype(object)
-        link_id = np.asarray(link_id).astype(str).astype(object)
+        node_id = _text(node_id)
+        link_id = _text(link_id)
         nn, nl = len(node_id), len(link_id)
         fixed = _f(fixed_head_m, nn)
         if node_kind is None:
@@ -204,7 +204,7 @@ class Network:
             demand_m3s=_f(demand_m3s, nn, 0.0),
             fixed_head_m=fixed,
             zone=(np.full(nn, "", dtype=object) if zone is None
-                  else _shared_strings(np.asarray(zone).astype(str))),
+                  else _shared_strings(_text(zone))),
             link_id=link_id,
             from_idx=_i(from_idx, nl, dtype=np.int64),
             to_idx=_i(to_idx, nl, dtype=np.int64),
@@ -363,7 +363,17 @@ def _positions(all_ids: np.ndarray, ids, what: str) -> np.ndarray:
         raise KeyError(f"unknown {what} id {exc.args[0]!r}") from None
 
 
+def _text(values) -> np.ndarray:
+    """``values`` as an object array of ``str`` (``str(v)`` of each value)."""
+    a = np.asarray(values)
+    if a.dtype == object and all(type(v) is str for v in a.tolist()):
+        return a.copy()  # already text: skips a round trip through fixed-width unicode
+    return a.astype(str).astype(object)
+
+
 def _unique(ids: np.ndarray, what: str) -> None:
+    if len(set(map(str, ids.tolist()))) == len(ids):  # the usual case: one hash pass
+        return
     uniq, counts = np.unique(ids.astype(str), return_counts=True)
     if (counts > 1).any():
         dup = uniq[counts > 1][0]

@@ -44,7 +44,7 @@ def assemble(ctx: Context, at: Attached, nt: NodeTable, lt: LinkTable, elev: np.
         pump_h1=c["pb"], pump_h2=c["pc"], pump_speed=c["speed"],
         headloss_model=cfg.run.headloss_model)
     crs = ctx.crs
-    node_pts = shapely.points(nt.xy)
+    node_pts = _node_points(at, nt)
     nodes_gdf = gpd.GeoDataFrame(
         {"node_id": net.node_id, "kind": np.asarray(NODE_KINDS, dtype=object)[net.node_kind],
          "zone": net.zone}, geometry=node_pts, crs=crs)
@@ -64,6 +64,25 @@ def assemble(ctx: Context, at: Attached, nt: NodeTable, lt: LinkTable, elev: np.
     return CleanNetwork(network=net, nodes=nodes_gdf, links=links_gdf,
                         hydrants=_hydrants_frame(at, nt, net, crs), meters=meters, crs=crs,
                         inputs=list(ctx.read.files), elevation_guessed=guessed)
+
+
+def _node_points(at: Attached, nt: NodeTable) -> np.ndarray:
+    """Points at the nodes: the snapping stage's cluster points where a node is a cluster,
+    new points for the nodes the later stages added."""
+    if at.cluster_pts is None:
+        return shapely.points(nt.xy)
+    out = np.empty(len(nt.keys), dtype=object)
+    cl = nt.keys < at.n_clusters
+    out[cl] = at.cluster_pts[nt.keys[cl]]
+    new = np.flatnonzero(~cl)
+    if len(new):
+        # nodes in one place (a valve's two sides) sit next to each other in node order:
+        # one point serves the run
+        xy = nt.xy[new]
+        lead = np.r_[True, (new[1:] != new[:-1] + 1) | np.any(xy[1:] != xy[:-1], axis=1)]
+        run = np.cumsum(lead) - 1
+        out[new] = shapely.points(xy[lead])[run]
+    return out
 
 
 def _prv_reach(ctx: Context, net: Network, geoms) -> None:

@@ -24,7 +24,7 @@ from __future__ import annotations
 import numpy as np
 import shapely
 
-from gridflow.topology.nearest import nearest_lines
+from gridflow.topology.nearest import nearest_lines, widened_boxes
 from gridflow.topology.points import column, point_layer
 from gridflow.topology.records import Attached, Context, Device, PointLayer, Snapped
 
@@ -98,26 +98,31 @@ def attach_points(ctx: Context, sn: Snapped) -> Attached:
                     ev_line=ev_line[order].astype(np.int64), ev_s=ev_s[order],
                     ev_xy=ev_xy[order].reshape(-1, 2), ev_up=ev_up[order].astype(np.int64),
                     ev_down=ev_down[order].astype(np.int64), start_key=start_key,
-                    end_key=end_key, hydrants=hyd, hyd_key=hyd_key, devices=tuple(devices))
+                    end_key=end_key, hydrants=hyd, hyd_key=hyd_key, devices=tuple(devices),
+                    cluster_pts=sn.cluster_pts)
 
 
 def t_events(ctx: Context, sn: Snapped, tree, glen: np.ndarray):
     """T-junctions: (main, key, distance along the main) of each dangling end joined; every
     T-join and every near miss not joined is a finding."""
     f, tol = ctx.findings, ctx.tol
-    cpts = shapely.points(sn.cxy)
+    cpts = sn.cluster_pts if sn.cluster_pts is not None else shapely.points(sn.cxy)
     none = (np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0))
     if len(cpts) == 0:
         return none
-    pi, li = tree.query(cpts, predicate="dwithin", distance=tol)
+    # the mains whose boxes come within the tolerance, less each end's own mains, measured
+    # once: the pairs ``query(predicate="dwithin")`` gives, in the same order
+    pi, li = tree.query(widened_boxes(cpts, tol))
     own = (sn.lab_s[li] == pi) | (sn.lab_e[li] == pi)
     pi, li = pi[~own], li[~own]
+    d = shapely.distance(sn.geoms[li], cpts[pi])
+    near = d <= tol
+    pi, li, d = pi[near], li[near], d[near]
     s = shapely.line_locate_point(sn.geoms[li], cpts[pi])
     inside = (s > _EPS) & (s < glen[li] - _EPS)
-    pi, li, s = pi[inside], li[inside], s[inside]
+    pi, li, s, d = pi[inside], li[inside], s[inside], d[inside]
     if len(pi) == 0:
         return none
-    d = shapely.distance(sn.geoms[li], cpts[pi])
     n = len(sn.geoms)
     ends = np.bincount(np.r_[sn.lab_s, sn.lab_e], minlength=len(sn.cxy))
     owner = np.full(len(sn.cxy), -1)

@@ -27,6 +27,8 @@ nodes; a missing layer or field, a layer without CRS, text where a number belong
 
 from __future__ import annotations
 
+import time
+
 import numpy as np
 
 from gridflow.findings import Findings
@@ -44,12 +46,13 @@ from gridflow.topology.records import Context
 from gridflow.topology.snap import snap_ends
 from gridflow.topology.split import split_mains
 from gridflow.topology.supply import isolation_findings, pump_grade_findings
-from gridflow.topology.zones import connectivity_findings
+from gridflow.topology.zones import connectivity_findings, network_parts
 
 __all__ = ["CleanNetwork", "build_network", "MAX_DIAMETER_M", "MIN_DIAMETER_M", "C_RANGE"]
 
 
-def build_network(cfg, findings: Findings, *, read: ReadResult | None = None) -> CleanNetwork:
+def build_network(cfg, findings: Findings, *, read: ReadResult | None = None,
+                  timings: dict[str, float] | None = None) -> CleanNetwork:
     """Read the mapped GIS and clean it into a network.
 
     Parameters
@@ -59,6 +62,10 @@ def build_network(cfg, findings: Findings, *, read: ReadResult | None = None) ->
         Every repair and problem is appended here.
     read : ReadResult, optional
         Already-read layers (default: :func:`gridflow.io.read.read_inputs`).
+    timings : dict, optional
+        Receives the wall time [s] of each stage by name (``read`` when read here,
+        ``pipes``, ``snap``, ``attach``, ``split``, ``nodes``, ``links``, ``elevations``,
+        ``assemble``, ``checks``), for benchmarks.
 
     Returns
     -------
@@ -71,33 +78,58 @@ def build_network(cfg, findings: Findings, *, read: ReadResult | None = None) ->
     TopologyError
         No usable main left.
     """
-    rr = read if read is not None else read_inputs(cfg, findings)
+    clock = _StageClock(timings)
+    rr = read if read is not None else clock.lap("read", read_inputs(cfg, findings))
     release_memory()  # the reader's Arrow buffers
     ctx = Context(cfg=cfg, read=rr, findings=findings, tol=float(cfg.run.snap_tolerance),
                   crs=rr.crs)
-    pipes = prepare_pipes(ctx)
+    clock.start()
+    pipes = clock.lap("pipes", prepare_pipes(ctx))
     if read is None:  # the mains as read are not needed again (prepared: ``pipes``)
         rr.layers.pop("pipes", None)
     pipes_layer = pipes.layer
-    snapped = snap_ends(ctx, pipes)
+    snapped = clock.lap("snap", snap_ends(ctx, pipes))
     del pipes
-    attached = attach_points(ctx, snapped)
-    split = split_mains(snapped, attached)
-    nodes = number_nodes(ctx, snapped, attached, split)
-    links = link_table(ctx, snapped, attached, split, nodes)
+    attached = clock.lap("attach", attach_points(ctx, snapped))
+    split = clock.lap("split", split_mains(snapped, attached))
+    nodes = clock.lap("nodes", number_nodes(ctx, snapped, attached, split))
+    links = clock.lap("links", link_table(ctx, snapped, attached, split, nodes))
     del split, snapped  # large intermediates go before the network's arrays are made
     release_memory()
     dem = None
     if cfg.elevation.source == "dem":
         dem = sample_dem(cfg.resolve(cfg.elevation.dem), nodes.xy[:, 0], nodes.xy[:, 1],
                          rr.crs, z_factor(cfg))
-    elev, guessed = fill_elevations(ctx, nodes, links, dem)
-    clean = assemble(ctx, attached, nodes, links, elev, guessed)
+    elev, guessed = clock.lap("elevations", fill_elevations(ctx, nodes, links, dem))
+    clean = clock.lap("assemble", assemble(ctx, attached, nodes, links, elev, guessed))
     del attached, nodes
-    connectivity_findings(findings, clean.network, links.cols["geom"],
-                          np.asarray(clean.nodes.geometry.values, dtype=object), pipes_layer)
-    isolation_findings(ctx, clean)
+    net = clean.network
+    parts = network_parts(net) if net.n_nodes and net.is_fixed.any() else None
+    connectivity_findings(findings, net, links.cols["geom"],
+                          np.asarray(clean.nodes.geometry.values, dtype=object), pipes_layer,
+                          parts)
+    isolation_findings(ctx, clean, parts)
     pump_grade_findings(ctx, clean.network)
+    clock.lap("checks", None)
     return clean
+
+
+class _StageClock:
+    """Wall time of each stage into ``timings`` (nothing when it is None)."""
+
+    def __init__(self, timings: dict[str, float] | None):
+        self.timings = timings
+        self.t = time.perf_counter()
+
+    def start(self) -> None:
+        self.t = time.perf_counter()
+
+    def lap(self, name: str, result):
+        """``result`` unchanged; the time since the last lap recorded under ``name``."""
+        now = time.perf_counter()
+        if self.timings is not None:
+            self.timings[name] = self.timings.get(name, 0.0) + now - self.t
+        self.t = now
+        return result
 
 

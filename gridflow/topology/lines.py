@@ -118,12 +118,38 @@ def split_lines(lines: np.ndarray, ev_line: np.ndarray, ev_s: np.ndarray,
     p_v = piece_start[vline] + k_v
     k_ev = np.arange(len(ev_line)) - ev_before[ev_line]
     p_end = piece_start[ev_line] + k_ev  # the piece this event ends
-    piece = np.concatenate([p_v, p_end, p_end + 1])
-    along = np.concatenate([t, ev_s, ev_s])
-    tie = np.concatenate([np.zeros(len(t)), np.ones(len(ev_s)), -np.ones(len(ev_s))])
-    xy = np.vstack([coords, ev_xy, ev_xy])
-    order = np.lexsort((tie, along, piece))
-    pieces = shapely.linestrings(xy[order], indices=piece[order])
+    n_all = int(piece_start[-1] + n_pieces[-1]) if n else 0
+    # each piece: the event that starts it (all but a line's first), its vertices in order,
+    # the event that ends it (all but a line's last). A vertex exactly at an event starts the
+    # next piece, after the event's point.
+    n_v = np.bincount(p_v, minlength=n_all)
+    has_start = np.zeros(n_all, np.int64)
+    has_start[p_end + 1] = 1
+    has_end = np.zeros(n_all, np.int64)
+    has_end[p_end] = 1
+    size = n_v + has_start + has_end
+    at = np.concatenate([[0], np.cumsum(size)[:-1]])
+    v_first = np.concatenate([[0], np.cumsum(n_v)[:-1]])
+    pos_v = at[p_v] + has_start[p_v] + (np.arange(len(p_v)) - v_first[p_v])
+    # positions along a line were compared in global units above: where that disagrees with
+    # the local distance by a rounding (a vertex a hair before the event starting its piece),
+    # the general sort below orders the piece as the distances say
+    starts = k_v > 0
+    e_start = ev_before[vline[starts]] + k_v[starts] - 1
+    if np.all(t[starts] >= ev_s[e_start]):
+        xy = np.empty((int(size.sum()), 2))
+        xy[pos_v] = coords
+        xy[at[p_end + 1]] = ev_xy
+        xy[at[p_end] + size[p_end] - 1] = ev_xy
+        pieces = shapely.linestrings(xy, indices=np.repeat(np.arange(n_all), size))
+    else:
+        piece = np.concatenate([p_v, p_end, p_end + 1])
+        along = np.concatenate([t, ev_s, ev_s])
+        tie = np.concatenate([np.zeros(len(t)), np.ones(len(ev_s)), -np.ones(len(ev_s))])
+        xy = np.vstack([coords, ev_xy, ev_xy])
+        order = np.lexsort((tie, along, piece))
+        pieces = shapely.linestrings(xy[order], indices=piece[order])
     piece_line = np.repeat(np.arange(n), n_pieces)
     piece_k = np.arange(len(piece_line)) - piece_start[piece_line]
     return pieces, piece_line, piece_k
+

@@ -11,7 +11,6 @@ says how it is modelled instead.
 from __future__ import annotations
 
 import numpy as np
-import pandas as pd
 import shapely
 
 from gridflow.network import (
@@ -26,6 +25,7 @@ from gridflow.network import (
     VALVE_THROTTLE,
     fit_pump_curve,
 )
+from gridflow.topology.idtext import as_text
 from gridflow.topology.nodes import unique_ids
 from gridflow.topology.points import column
 from gridflow.topology.records import (
@@ -76,7 +76,7 @@ def link_table(ctx: Context, sn: Snapped, at: Attached, sp: Split, nt: NodeTable
         for k, v in _device_columns(ctx, sn, d, nt).items():
             cols[k].append(v)
     c = {k: np.concatenate(v) for k, v in cols.items()}
-    c["link_id"] = unique_ids(_prefix_collisions(c["link_id"], c["kind"]))
+    c["link_id"] = _link_ids(c["link_id"], c["kind"])
     return LinkTable(cols=c)
 
 
@@ -165,14 +165,30 @@ def _device_columns(ctx: Context, sn: Snapped, dev: Device, nt: NodeTable) -> di
             "layer": column(fr, "source_layer", object)}
 
 
-def _prefix_collisions(ids: np.ndarray, kind: np.ndarray) -> np.ndarray:
-    """Valve and pump ids that repeat a pipe id are prefixed with their kind ('valve:12')."""
-    if (kind == LINK_PIPE).all():
-        return ids.astype(object)
-    ids = ids.astype(object).copy()
-    text = pd.Index(ids.astype(str), dtype=object)
-    is_pipe_id = text.isin(pd.Index(text[kind == LINK_PIPE]).unique())
+def _link_ids(ids: np.ndarray, kind: np.ndarray) -> np.ndarray:
+    """Link ids made unique: device ids that repeat a pipe id prefixed with their kind, then
+    any id still repeated suffixed (:func:`~gridflow.topology.nodes.unique_ids`).
+
+    Notes
+    -----
+    One hash set over the pipe ids answers both questions in the usual case (pipe ids
+    distinct, device ids distinct and none a pipe id): the full uniqueness pass over every
+    link runs only when that fails.
+    """
+    pipe = kind == LINK_PIPE
+    if pipe.all():
+        return unique_ids(ids.astype(object))
+    pipe_text = as_text(ids[pipe])
+    seen = set(pipe_text.tolist())
+    dev = np.flatnonzero(~pipe)
+    dev_text = as_text(ids[dev])
+    hit = np.fromiter(map(seen.__contains__, dev_text.tolist()), bool, len(dev))
+    out = ids.astype(object).copy()
     for k, name in ((LINK_VALVE, "valve"), (LINK_PUMP, "pump")):
-        m = (kind == k) & is_pipe_id
-        ids[m] = [f"{name}:{x}" for x in ids[m]]
-    return ids
+        m = dev[(kind[dev] == k) & hit]
+        out[m] = [f"{name}:{x}" for x in out[m]]  # a few: ids mapped twice
+    dev_final = as_text(out[dev]).tolist()
+    dev_set = set(dev_final)
+    if len(seen) == len(pipe_text) and len(dev_set) == len(dev) and seen.isdisjoint(dev_set):
+        return out
+    return unique_ids(out)

@@ -13,6 +13,7 @@ import shapely
 
 from gridflow.config.layers import layer_sections
 from gridflow.network import NODE_JUNCTION, NODE_SOURCE, NODE_TANK
+from gridflow.topology.idtext import all_distinct, as_text
 from gridflow.topology.pipes import z_factor
 from gridflow.topology.points import column, point_layer
 from gridflow.topology.records import Attached, Context, NodeTable, Snapped, Split
@@ -73,11 +74,14 @@ def number_nodes(ctx: Context, sn: Snapped, at: Attached, sp: Split) -> NodeTabl
         if np.isfinite(el):
             elev[i] = el
     gen = node_id == None  # noqa: E711
+    # generated ids never equal a taken one nor each other: only the taken ids can repeat
+    taken = unique_ids(node_id[~gen])
     node_id[gen] = _generated_ids(node_id[~gen], int(gen.sum()))
+    node_id[~gen] = taken
     standin = np.zeros(nn, bool)
     standin[idx_of_key[sorted(standin_keys)]] = True
     return NodeTable(keys=keys, idx_of_key=idx_of_key, xy=node_xy,
-                     node_id=unique_ids(node_id), kind=kind, fixed_head_m=fixed_head,
+                     node_id=node_id, kind=kind, fixed_head_m=fixed_head,
                      elevation_m=elev, standin=standin, zone=zone)
 
 
@@ -220,14 +224,13 @@ def unique_ids(ids: np.ndarray) -> np.ndarray:
     import pandas as pd
 
     ids = np.asarray(ids)
-    text = (ids if ids.dtype == object and pd.api.types.infer_dtype(ids, skipna=False)
-            == "string" else ids.astype(str).astype(object))
-    if pd.Index(text, dtype=object).is_unique:  # the usual case: one hash pass
+    text = as_text(ids)
+    if all_distinct(text):  # the usual case: one hash pass
         return ids.astype(object)
     s = pd.Series(text, dtype=object)
     k = s.groupby(s, sort=False).cumcount().to_numpy()
     if (k > 0).any():
-        out = s.to_numpy(dtype=object)
+        out = text  # a copy of the ids (a Series' array is read-only under copy-on-write)
         out[k > 0] = [f"{a}#{b + 1}" for a, b in zip(out[k > 0], k[k > 0])]
         return out
     return ids.astype(object)

@@ -21,6 +21,7 @@ import shapely
 
 from gridflow.config.layers import unit_factor
 from gridflow.errors import InputError, TopologyError
+from gridflow.topology.idtext import suffixed
 from gridflow.topology.records import Context, Pipes
 from gridflow.units import INCH
 
@@ -55,7 +56,10 @@ def prepare_pipes(ctx: Context) -> Pipes:
                "main whose geometry is not a line left out", geoms[keep & notline])
     keep &= ~empty & ~notline
     rows = np.flatnonzero(keep)
-    parts, pidx = shapely.get_parts(geoms[rows], return_index=True)
+    if (tid[rows] == 1).all():  # single lines only: nothing to explode
+        parts, pidx = geoms[rows], np.arange(len(rows))
+    else:
+        parts, pidx = shapely.get_parts(geoms[rows], return_index=True)
     src = rows[pidx]
     nparts = np.bincount(pidx, minlength=len(rows))
     multi = nparts > 1
@@ -63,7 +67,7 @@ def prepare_pipes(ctx: Context) -> Pipes:
     if multi.any():
         k = np.arange(len(src)) - np.concatenate([[0], np.cumsum(nparts)[:-1]])[pidx]
         m = multi[pidx]
-        pid[m] = [f"{a}.{b + 1}" for a, b in zip(pid[m], k[m])]
+        pid[m] = suffixed(pid[m], k[m] + 1)
         f.add_many("multipart_exploded", "info", layer, ids[rows[multi]],
                    [f"multi-part main split into {n} pipes" for n in nparts[multi]],
                    geoms[rows[multi]])

@@ -69,6 +69,7 @@ class Snapped:
     cluster_z: np.ndarray  # mean Z of the ends in the cluster [m] (NaN: none)
     nodes: Any  # the junction-point frame (usable rows) or None
     level: np.ndarray  # grade-separation level of each main (text; "0" where not mapped)
+    cluster_pts: np.ndarray | None = None  # Points at ``cxy``, made once for every stage
 
 
 @dataclass(frozen=True)
@@ -113,6 +114,7 @@ class Attached:
     hydrants: PointLayer | None
     hyd_key: np.ndarray  # key of each hydrant, -1 where not attached
     devices: tuple[Device, ...]
+    cluster_pts: np.ndarray | None = None  # Points at the first ``n_clusters`` keys
 
 
 @dataclass(frozen=True)

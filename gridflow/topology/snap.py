@@ -59,6 +59,7 @@ def snap_ends(ctx: Context, pipes: Pipes) -> Snapped:
     lab_s, lab_e = remap[lab[:n]], remap[lab[n:2 * n]]
     cxy = cxy[used]
     cluster_node = node_of_cluster[used]
+    cpts = shapely.points(cxy)  # every later stage takes its cluster points from here
     lab2 = np.concatenate([lab_s, lab_e])
     moved = np.hypot(*(pts[:2 * n] - cxy[lab2]).T)
     mv = moved > _EPS
@@ -74,7 +75,7 @@ def snap_ends(ctx: Context, pipes: Pipes) -> Snapped:
         np.minimum.at(first, lab2, np.arange(2 * n) % n)
         f.add_many("end_snapped", "info", layer, ids[first[cl]],
                    [f"{c} pipe ends joined; an end moved {d:.2f} m" for c, d in
-                    zip(k[cl], dmax[cl])], shapely.points(cxy[cl]))
+                    zip(k[cl], dmax[cl])], cpts[cl])
         geoms = set_end_points(geoms, cxy[lab_s], cxy[lab_e])
     # z at clusters, for elevation source z
     cluster_z = np.full(len(cxy), np.nan)
@@ -117,4 +118,4 @@ def snap_ends(ctx: Context, pipes: Pipes) -> Snapped:
     df, geoms, ids = df[keep].reset_index(drop=True), geoms[keep], ids[keep]
     return Snapped(frame=df, geoms=geoms, ids=ids, layer=layer, lab_s=lab_s[keep],
                    lab_e=lab_e[keep], cxy=cxy, cluster_node=cluster_node, cluster_z=cluster_z,
-                   nodes=nodes, level=df["level"].to_numpy(dtype=object))
+                   nodes=nodes, level=df["level"].to_numpy(dtype=object), cluster_pts=cpts)

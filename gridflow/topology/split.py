@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from gridflow.topology.idtext import suffixed
 from gridflow.topology.lines import split_lines
 from gridflow.topology.records import Attached, Snapped, Split
 
@@ -26,6 +27,6 @@ def split_mains(sn: Snapped, at: Attached) -> Split:
     p_to = np.where(last, at.end_key[p_line], ev_up[np.minimum(e_end, len(ev_up) - 1)])
     split_n = n_ev[p_line] > 0
     pid = sn.ids[p_line].astype(object)
-    pid[split_n] = [f"{a}.{k + 1}" for a, k in zip(pid[split_n], p_k[split_n])]
+    pid[split_n] = suffixed(pid[split_n], p_k[split_n] + 1)
     return Split(pieces=pieces, line=p_line, from_key=p_from.astype(np.int64),
                  to_key=p_to.astype(np.int64), pipe_id=pid)

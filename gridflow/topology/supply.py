@@ -18,12 +18,13 @@ from gridflow.network import (
 from gridflow.topology.clean import CleanNetwork
 from gridflow.topology.nearest import nearest_lines
 from gridflow.topology.records import Context
-from gridflow.topology.zones import components
+from gridflow.topology.zones import NetworkParts, components, network_parts
 
 __all__ = ["isolation_findings", "pump_grade_findings"]
 
 
-def isolation_findings(ctx: Context, clean: CleanNetwork) -> dict[str, dict]:
+def isolation_findings(ctx: Context, clean: CleanNetwork,
+                       parts: NetworkParts | None = None) -> dict[str, dict]:
     """A warning per area that closed valves (or closed mains, or pumps that are off) cut off
     from every source and tank while meters or hydrants sit in it.
 
@@ -35,11 +36,13 @@ def isolation_findings(ctx: Context, clean: CleanNetwork) -> dict[str, dict]:
     if n == 0 or not net.is_fixed.any():
         return {}
     off = (net.status == STATUS_CLOSED) | ((net.link_kind == LINK_PUMP) & (net.pump_speed <= 0))
-    comp = components(n, net.from_idx[~off], net.to_idx[~off])
+    if parts is None:
+        parts = network_parts(net)
+    comp = parts.open  # through the links not ``off``
     fed_c = np.zeros(int(comp.max()) + 1, bool)
     fed_c[comp[net.is_fixed]] = True
     fed = fed_c[comp]
-    whole = components(n, net.from_idx, net.to_idx)
+    whole = parts.whole
     reach = np.zeros(int(whole.max()) + 1, bool)
     reach[whole[net.is_fixed]] = True
     cut = ~fed & reach[whole]

@@ -9,6 +9,8 @@ the order of their first node.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 import pandas as pd
 import shapely
@@ -16,7 +18,30 @@ import shapely
 from gridflow.findings import Findings
 from gridflow.network import LINK_PUMP, NODE_JUNCTION, STATUS_CLOSED, VALVE_PRESSURE_REDUCING
 
-__all__ = ["components", "zones_and_parts", "connectivity_findings", "supplied_nodes"]
+__all__ = ["components", "zones_and_parts", "connectivity_findings", "supplied_nodes",
+           "NetworkParts", "network_parts"]
+
+
+@dataclass(frozen=True)
+class NetworkParts:
+    """Connected-component labels per node, computed once for the checks that share them."""
+
+    whole: np.ndarray  # through every link
+    open: np.ndarray  # through open links and running pumps only
+
+
+def _open_links(net) -> np.ndarray:
+    """Links water passes: not closed, and not a pump that is off."""
+    return (net.status != STATUS_CLOSED) & ~((net.link_kind == LINK_PUMP)
+                                             & (net.pump_speed <= 0))
+
+
+def network_parts(net) -> NetworkParts:
+    """The network's parts through every link and through open links (see
+    :class:`NetworkParts`)."""
+    ok = _open_links(net)
+    return NetworkParts(whole=components(net.n_nodes, net.from_idx, net.to_idx),
+                        open=components(net.n_nodes, net.from_idx[ok], net.to_idx[ok]))
 
 
 def components(n: int, a: np.ndarray, b: np.ndarray) -> np.ndarray:
@@ -52,17 +77,22 @@ def zones_and_parts(n: int, frm, to, kind, status, valve_type, speed, link_zone,
     return names[comp] if n else np.zeros(0, dtype=object)
 
 
-def supplied_nodes(net) -> np.ndarray:
+def supplied_nodes(net, parts: NetworkParts | None = None) -> np.ndarray:
     """True at nodes joined to a source or tank through open links and running pumps."""
-    ok = (net.status != STATUS_CLOSED) & ~((net.link_kind == LINK_PUMP) & (net.pump_speed <= 0))
-    comp = components(net.n_nodes, net.from_idx[ok], net.to_idx[ok])
+    if parts is not None:
+        comp = parts.open
+    else:
+        ok = _open_links(net)
+        comp = components(net.n_nodes, net.from_idx[ok], net.to_idx[ok])
     fed = np.zeros(int(comp.max()) + 1 if net.n_nodes else 0, bool)
     fed[comp[net.is_fixed]] = True
     return fed[comp]
 
 
-def connectivity_findings(f: Findings, net, link_geoms, node_pts, layer: str) -> None:
-    """Findings for disconnected and unsupplied parts and dangling ends."""
+def connectivity_findings(f: Findings, net, link_geoms, node_pts, layer: str,
+                          parts: NetworkParts | None = None) -> None:
+    """Findings for disconnected and unsupplied parts and dangling ends (``parts``: the
+    network's parts when already computed)."""
     n = net.n_nodes
     if n == 0:
         f.add("empty_network", "error", layer, "", "no pipes left to build a network from")
@@ -72,13 +102,13 @@ def connectivity_findings(f: Findings, net, link_geoms, node_pts, layer: str) ->
               "the network has no source or tank: nothing can be solved (map [layers.sources] "
               "or [layers.tanks])")
     else:
-        comp = components(n, net.from_idx, net.to_idx)
+        if parts is None:
+            parts = network_parts(net)
+        comp = parts.whole
         _parts(f, net, comp, link_geoms, layer, "disconnected_part",
                "not connected to any source or tank", None)
-        fed = supplied_nodes(net)
-        ok = (net.status != STATUS_CLOSED) & ~((net.link_kind == LINK_PUMP)
-                                                & (net.pump_speed <= 0))
-        comp2 = components(n, net.from_idx[ok], net.to_idx[ok])
+        fed = supplied_nodes(net, parts)
+        comp2 = parts.open
         has_fixed_all = np.zeros(int(comp.max()) + 1, bool)
         has_fixed_all[comp[net.is_fixed]] = True
         cut = ~fed & has_fixed_all[comp]

@@ -114,3 +114,42 @@ def root_reference(n, r0):
     sol = root(F, x0, method="hybr", options={"xtol": 1e-12})
     assert sol.success, sol.message
     return sol.x[:nl], sol.x[nl:], fi
+
+
+def pin_then_hold(network: Network, system, base, pick: int, frac: float):
+    """A held-node check case: pin a free node ``k`` (chosen by ``pick``) a fraction ``frac``
+    of the way down to 5 m below its elevation, solve by full Newton, and take the node ``c``
+    the draw moves most. Holding ``c`` at that solution's head must give back the same draw.
+    Returns ``(k, c, head, full)``, or None where there is no such case (no other node, no
+    convergence, a drop under 1 mm)."""
+    free = np.flatnonzero(~network.is_fixed)
+    k = int(free[pick % len(free)])
+    others = free[free != k]
+    if not len(others):
+        return None
+    head = base.head_m[k] - frac * (base.head_m[k] - network.elevation_m[k] + 5.0)
+    full = system.solve(pin_idx=np.array([k]), pin_head_m=np.array([head]), warm=base,
+                        raise_on_failure=False)
+    if not full.converged:
+        return None
+    drop = base.head_m[others] - full.head_m[others]
+    if drop.max() < 1e-3:
+        return None
+    return k, int(others[np.argmax(drop)]), head, full
+
+
+def assert_held(network: Network, r, k: int, c: int, head: float, full) -> None:
+    """A held solution ``r`` of :func:`pin_then_hold`'s case: ``c`` on its head, ``k`` back
+    on the pinned head, the same draw, mass and head loss balanced."""
+    import dataclasses
+
+    import pytest
+
+    assert r.head_m[c] == pytest.approx(full.head_m[c], abs=1e-6)
+    assert r.head_m[k] == pytest.approx(head, abs=1e-4)
+    draw = r.extra["draw_m3s"]
+    assert draw == pytest.approx(full.node_inflow_m3s[k] - full.demand_m3s[k], rel=1e-5,
+                                 abs=1e-9)
+    d = r.demand_m3s.copy()
+    d[k] += draw
+    assert_physics(network, dataclasses.replace(r, demand_m3s=d), mass_tol=1e-8, head_tol=1e-6)

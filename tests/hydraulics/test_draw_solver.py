@@ -18,7 +18,7 @@ from gridflow.hydraulics import DrawSolver, HydraulicSystem, SolveOptions
 from gridflow.hydraulics.headloss import hw_resistance
 from gridflow.network import STATUS_CHECK
 
-from .netbuild import assert_physics, net, pipe
+from .netbuild import assert_held, assert_physics, net, pin_then_hold, pipe
 from .test_properties import random_network
 
 TIGHT = SolveOptions(head_tolerance=1e-9, flow_tolerance=1e-9)
@@ -111,29 +111,12 @@ def test_given_draw_matches_full_newton_with_demand(seed, n, pick, q):
 def test_limit_node_recovers_the_pinned_solution(seed, n, pick, frac):
     # pin k, read another node c's head; holding c at that head must give back the same draw
     network, system, base, ds = setup(seed, n)
-    free = np.flatnonzero(~network.is_fixed)
-    k = int(free[pick % len(free)])
-    others = free[free != k]
-    if not len(others):
-        return
-    head = base.head_m[k] - frac * (base.head_m[k] - network.elevation_m[k] + 5.0)
-    full = system.solve(pin_idx=np.array([k]), pin_head_m=np.array([head]), warm=base,
-                        raise_on_failure=False)
-    assume(full.converged)
-    drop = base.head_m[others] - full.head_m[others]
-    c = int(others[np.argmax(drop)])  # the node the draw moves most (well determined)
-    if drop.max() < 1e-3:
-        return
+    case = pin_then_hold(network, system, base, pick, frac)
+    assume(case is not None)
+    k, c, head, full = case
     out = ds.solve(k, "limit", full.head_m[c], limit_node=c)
-    assert out.success, out.message
-    r = out.result
-    assert r is not None
-    assert r.head_m[c] == pytest.approx(full.head_m[c], abs=1e-8)
-    assert r.head_m[k] == pytest.approx(head, abs=1e-4)
-    draw = r.extra["draw_m3s"]
-    assert draw == pytest.approx(full.node_inflow_m3s[k] - full.demand_m3s[k], rel=1e-5,
-                                 abs=1e-9)
-    assert_physics(network, with_draw(r, k, draw), mass_tol=1e-8, head_tol=1e-6)
+    assert out.success and out.result is not None, out.message
+    assert_held(network, out.result, k, c, head, full)
 
 
 def test_declines_what_it_cannot_answer():

@@ -65,3 +65,16 @@ def test_empty_inputs():
     tree = shapely.STRtree(lines)
     p, l_, d = nearest_lines(tree, lines, np.array([], dtype=object), 10.0)
     assert p.size == l_.size == d.size == 0
+
+
+def test_missing_and_empty_points_get_no_line():
+    lines, xy, _ = _grid()
+    tree = shapely.STRtree(lines)
+    pts = np.array([shapely.Point(xy[5]), None, shapely.Point(), shapely.Point(xy[9])],
+                   dtype=object)
+    p, t, d = nearest_lines(tree, lines, pts, 50.0)
+    (q, tt), dd = tree.query_nearest(pts, max_distance=50.0, return_distance=True,
+                                     all_matches=False)
+    assert list(p) == list(q) == [0, 3]
+    assert list(t) == list(tt)
+    np.testing.assert_array_equal(d, dd)

@@ -26,7 +26,8 @@ from gridflow.analysis.fireflow.search import run_rows
 from gridflow.config.fireflow import FireflowSection
 from gridflow.config.sections import CriteriaSection
 from gridflow.errors import InputError
-from gridflow.hydraulics import DrawSolver, HydraulicResult, HydraulicSystem, SolveOptions
+from gridflow.hydraulics import HydraulicResult, HydraulicSystem, SolveOptions
+from gridflow.hydraulics.reduced import ReducedDrawSolver
 from gridflow.network.model import (
     LINK_PIPE,
     LINK_VALVE,
@@ -167,13 +168,20 @@ class FireflowProblem:
                    main_pipe=main_pipe, in_service=in_service_mask(hydrants),
                    exponent=2.0 if net.headloss_model == "darcy-weisbach" else 1.852)
 
-    def draw_solver(self) -> DrawSolver:
-        """The base-state draw solver for this problem in this process and thread (built once:
-        one factorization at the base flows, kept for every hydrant)."""
+    def draw_solver(self) -> ReducedDrawSolver:
+        """The base-state draw solver for this problem in this process and thread (built once
+        per batch): solves on the network reduced to its looped core, the whole-network
+        :class:`DrawSolver` where that does not apply. The reduction itself (trees, chains,
+        core) is made once per process and shared."""
         key = (self.token, threading.get_ident(), "draw")
         ds = _SYSTEMS.get(key)
         if ds is None:
-            ds = _SYSTEMS[key] = DrawSolver(self.system(), self.warm)
+            rkey = (self.token, threading.get_ident(), "reduction")
+            ds = ReducedDrawSolver(self.system(), self.warm, reduction=_SYSTEMS.get(rkey),
+                                   keep=np.concatenate([self.outlet_idx, self.main_idx]))
+            if ds.usable:
+                _SYSTEMS[rkey] = ds.red
+            _SYSTEMS[key] = ds
         return ds
 
     def system(self) -> HydraulicSystem:
@@ -195,9 +203,20 @@ class FireflowProblem:
                                    raise_on_failure=False)
 
     def draw(self, j: int, r: HydraulicResult) -> float:
-        """Flow drawn at hydrant ``j``'s pinned outlet [m3/s], its own base demand excluded."""
+        """Flow drawn at hydrant ``j``'s pinned outlet [m3/s], its own base demand excluded
+        (a draw solve's own figure where it has one)."""
         k = self.outlet_idx[j]
+        if r.extra.get("node") == k:
+            return float(r.extra["draw_m3s"])
         return float(r.node_inflow_m3s[k] - r.demand_m3s[k])
+
+    def outlet_pressure(self, j: int, r: HydraulicResult) -> float:
+        """Pressure at hydrant ``j``'s outlet [m] (a draw solve's own figure where it has
+        one)."""
+        k = self.outlet_idx[j]
+        if r.extra.get("node") == k:
+            return float(r.extra["node_head_m"] - self.net.elevation_m[k])
+        return float(r.pressure_m[k])
 
     def run(self, rows: np.ndarray) -> dict[str, np.ndarray]:
         """Evaluate hydrants at row positions ``rows``; small record arrays out."""
@@ -361,8 +380,9 @@ def _extend_base(base: HydraulicResult, net: Network, aug: Network, at: np.ndarr
 def run_batch(problem: FireflowProblem, rows: np.ndarray) -> dict[str, np.ndarray]:
     """Evaluate hydrants at row positions ``rows`` (see :func:`.search.run_rows`).
 
-    Every batch starts from a fresh draw solver (one factorization at the base flows), so its
-    numbers do not depend on which batches the same worker ran before: serial, local
-    processes and Dask give identical results for the same batches."""
-    _SYSTEMS.pop((problem.token, threading.get_ident(), "draw"), None)
+    Every batch starts the draw solver afresh (:meth:`ReducedDrawSolver.reset`: the kept
+    base factorization and reduction stay, nothing else carries over), so its numbers do not
+    depend on which batches the same worker ran before: serial, local processes and Dask give
+    identical results for the same batches."""
+    problem.draw_solver().reset()
     return run_rows(problem, rows)

@@ -138,6 +138,7 @@ def summarise(out: pd.DataFrame, records: list[dict]) -> dict:
     summary.update({
         "iterations": int(out["iterations"].sum()),
         "factorizations": int(sum(int(r["factorizations"].sum()) for r in records)),
+        "core_factorizations": int(sum(int(r["core_factorizations"].sum()) for r in records)),
         "fallback": int(sum(int(r["fallback"].sum()) for r in records)),
     })
     return summary

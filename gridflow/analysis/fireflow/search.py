@@ -36,6 +36,7 @@ from gridflow.units import M_HEAD_PER_PSI
 if TYPE_CHECKING:
     from gridflow.analysis.fireflow.problem import FireflowProblem
     from gridflow.hydraulics import DrawOutcome, DrawSolver, HydraulicResult
+    from gridflow.hydraulics.reduced import ReducedDrawSolver
 
 __all__ = ["LIMIT_CODES", "CannotAnswer", "DrawRoute", "FullRoute", "HydrantRecord",
            "SolveFailed", "run_rows", "search_hydrant"]
@@ -92,7 +93,7 @@ class HydrantRecord:
 class DrawRoute:
     """Solves by the draw solver from the base state's kept factorization."""
 
-    def __init__(self, problem: FireflowProblem, ds: DrawSolver) -> None:
+    def __init__(self, problem: FireflowProblem, ds: DrawSolver | ReducedDrawSolver) -> None:
         self.p, self.ds, self.iterations = problem, ds, 0
 
     def _ok(self, out: DrawOutcome) -> HydraulicResult:
@@ -300,7 +301,7 @@ def _required(p: FireflowProblem, j: int, route: Route, r_pin: HydraulicResult |
         try:
             rr = route.at_draw(j, q_req, r_pin)
             if abs(p.draw(j, rr) - q_req) <= 1e-6 * q_req + 1e-9:
-                residual = float(rr.pressure_m[int(p.outlet_idx[j])])
+                residual = p.outlet_pressure(j, rr)
         except SolveFailed:
             residual = np.nan  # decided below by the flow at 0 psi
     if residual >= 0:
@@ -322,10 +323,12 @@ def run_rows(p: FireflowProblem, rows: np.ndarray) -> dict[str, np.ndarray]:
     recs = []
     fallback = np.zeros(m, dtype=bool)
     factorizations = np.zeros(m, dtype=np.int64)
+    core_factorizations = np.zeros(m, dtype=np.int64)
     sysm = p.system()
     ds = p.draw_solver()
     for i, j in enumerate(rows):
         f0 = sysm.pattern.factorizations
+        c0 = ds.factorizations
         rec = None
         if ds.usable:
             try:
@@ -342,8 +345,10 @@ def run_rows(p: FireflowProblem, rows: np.ndarray) -> dict[str, np.ndarray]:
                                     iterations=route.iterations)
         recs.append(rec)
         factorizations[i] = sysm.pattern.factorizations - f0
+        core_factorizations[i] = ds.factorizations - c0
     out: dict[str, np.ndarray] = {"row": rows, "fallback": fallback,
-                                  "factorizations": factorizations}
+                                  "factorizations": factorizations,
+                                  "core_factorizations": core_factorizations}
     for name in fields:
         out[name] = np.array([getattr(r, name) for r in recs])
     return out

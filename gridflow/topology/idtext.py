@@ -1,0 +1,41 @@
+"""Identifier text, array at a time: suffixes and uniqueness without per-id Python work.
+
+Ids stay Python ``str`` objects in object arrays (what the GIS frames and findings carry); the
+functions here do their work with numpy's variable-width string type and hash sets, once per
+array.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numpy.dtypes import StringDType
+
+__all__ = ["as_text", "all_distinct", "suffixed"]
+
+
+def as_text(ids) -> np.ndarray:
+    """``ids`` as an object array of ``str`` (``str(v)`` of each value; a copy)."""
+    a = np.asarray(ids)
+    if a.dtype == object and all(type(v) is str for v in a.tolist()):
+        return a.copy()
+    return a.astype(str).astype(object)
+
+
+def all_distinct(text: np.ndarray) -> bool:
+    """True when no two of the ``str`` values are equal (one hash pass)."""
+    return len(set(text.tolist())) == len(text)
+
+
+def suffixed(ids: np.ndarray, k: np.ndarray, sep: str = ".") -> np.ndarray:
+    """``f"{id}{sep}{k}"`` for each id and integer ``k``, as an object array of ``str``.
+
+    Examples
+    --------
+    >>> suffixed(np.array(["P1", "P2"], dtype=object), np.array([1, 3]))
+    array(['P1.1', 'P2.3'], dtype=object)
+    """
+    if len(ids) == 0:
+        return np.zeros(0, dtype=object)
+    text = np.asarray(ids, dtype=object).astype(StringDType())
+    num = np.asarray(k, dtype=np.int64).astype(StringDType())
+    return np.strings.add(np.strings.add(text, sep), num).astype(object)

@@ -1,0 +1,298 @@
+"""Draw solves on the reduced network (trees pruned, chains and groups merged) against full
+Newton solves of the whole network.
+
+Every solution is rebuilt onto the network and checked for mass balance at every node and head
+loss on every link with the independent formulas of ``netbuild.assert_physics``; heads, flows
+and draws are compared with :meth:`HydraulicSystem.solve` on the same problem.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+import pytest
+from hypothesis import assume, given, settings
+from hypothesis import strategies as st
+
+from gridflow.hydraulics import HydraulicSystem, SolveOptions
+from gridflow.hydraulics.reduced import ReducedDrawSolver, Reduction
+from gridflow.network import Network
+
+from .netbuild import assert_held, assert_physics, pin_then_hold
+
+TIGHT = SolveOptions(head_tolerance=1e-9, flow_tolerance=1e-9)
+
+
+def stringy_network(seed: int, n: int) -> Network:
+    """A random looped network shaped like a street export: a spanning tree plus extra links
+    (loops), every link cut into 1-4 pieces (two-link nodes, some with demand, some without),
+    dead-end branches of 1-3 links hung on random nodes, one or two sources."""
+    rng = np.random.default_rng(seed)
+    fr = [int(rng.integers(0, i)) for i in range(1, n)]
+    to = list(range(1, n))
+    for _ in range(int(rng.integers(1, max(2, n // 2)))):
+        a, b = rng.choice(n, 2, replace=False)
+        fr.append(int(a))
+        to.append(int(b))
+    nodes = n
+    F: list[int] = []
+    T: list[int] = []
+    for a, b in zip(fr, to):
+        pieces = int(rng.integers(1, 5))
+        prev = a
+        for _ in range(pieces - 1):
+            F.append(prev)
+            T.append(nodes)
+            prev = nodes
+            nodes += 1
+        F.append(prev)
+        T.append(b)
+    for _ in range(int(rng.integers(0, n))):
+        at = int(rng.integers(0, nodes))
+        for _ in range(int(rng.integers(1, 4))):
+            F.append(at)
+            T.append(nodes)
+            at = nodes
+            nodes += 1
+    # some links drawn against the chain direction
+    F_arr, T_arr = np.array(F), np.array(T)
+    flip = rng.random(len(F)) < 0.3
+    F_arr[flip], T_arr[flip] = T_arr[flip], F_arr[flip]
+    nl = len(F_arr)
+    fixed = np.full(nodes, np.nan)
+    fixed[0] = 60 + 40 * rng.random()
+    if n > 6 and rng.random() < 0.5:
+        fixed[n - 1] = 50 + 40 * rng.random()
+    elev = 20 * rng.random(nodes)
+    demand = np.where(np.isnan(fixed) & (rng.random(nodes) < 0.6),
+                      rng.random(nodes) * 0.004, 0.0)
+    diam = rng.choice([4, 6, 8, 12, 16], nl) * 0.0254
+    return Network.from_arrays(
+        node_id=[f"n{i}" for i in range(nodes)], link_id=[f"l{i}" for i in range(nl)],
+        from_idx=F_arr, to_idx=T_arr, fixed_head_m=fixed, elevation_m=elev,
+        demand_m3s=demand, length_m=20 + 300 * rng.random(nl), diameter_m=diam,
+        roughness=rng.uniform(60, 150, nl))
+
+
+def with_draw(r, k, q):
+    d = r.demand_m3s.copy()
+    d[k] += q
+    return dataclasses.replace(r, demand_m3s=d)
+
+
+def setup(seed, n):
+    network = stringy_network(seed, n)
+    system = HydraulicSystem(network, TIGHT)
+    base = system.solve(raise_on_failure=False)
+    assume(base.converged)
+    rs = ReducedDrawSolver(system, base)
+    assert rs.usable, rs.why_not
+    return network, system, base, rs
+
+
+@settings(max_examples=30, deadline=None, derandomize=True, database=None)
+@given(seed=st.integers(0, 10**6), n=st.integers(3, 30), pick=st.integers(0, 10**6),
+       frac=st.floats(0.05, 0.8))
+def test_pinned_draw_matches_full_newton_and_conserves(seed, n, pick, frac):
+    network, system, base, rs = setup(seed, n)
+    free = np.flatnonzero(~network.is_fixed)
+    k = int(free[pick % len(free)])
+    head = base.head_m[k] - frac * (base.head_m[k] - network.elevation_m[k] + 5.0)
+    full = system.solve(pin_idx=np.array([k]), pin_head_m=np.array([head]), warm=base,
+                        raise_on_failure=False)
+    assume(full.converged)
+    out = rs.solve(k, "head", head)
+    assert out.success, out.message
+    assert rs.fallbacks == 0  # answered on the reduced network
+    r = out.result
+    np.testing.assert_allclose(r.head_m, full.head_m, atol=1e-6)
+    np.testing.assert_allclose(r.flow_m3s, full.flow_m3s, atol=1e-7)
+    assert r.head_m[k] == pytest.approx(head, abs=1e-8)
+    draw = r.extra["draw_m3s"]
+    assert draw == pytest.approx(full.node_inflow_m3s[k] - full.demand_m3s[k], rel=1e-6,
+                                 abs=1e-10)
+    assert_physics(network, with_draw(r, k, draw), mass_tol=1e-8, head_tol=1e-6)
+    supply = -r.node_inflow_m3s[network.is_fixed].sum()
+    assert supply == pytest.approx(network.demand_m3s.sum() + draw, rel=1e-7, abs=1e-10)
+
+
+@settings(max_examples=20, deadline=None, derandomize=True, database=None)
+@given(seed=st.integers(0, 10**6), n=st.integers(3, 30), pick=st.integers(0, 10**6),
+       q=st.floats(0.001, 0.04))
+def test_given_draw_matches_full_newton_with_demand(seed, n, pick, q):
+    network, system, base, rs = setup(seed, n)
+    free = np.flatnonzero(~network.is_fixed)
+    k = int(free[pick % len(free)])
+    demand = network.demand_m3s.copy()
+    demand[k] += q
+    full = system.solve(demand_m3s=demand, warm=base, raise_on_failure=False)
+    assume(full.converged)
+    out = rs.solve(k, "draw", q)
+    assert out.success, out.message
+    assert rs.fallbacks == 0
+    r = out.result
+    np.testing.assert_allclose(r.head_m, full.head_m, atol=1e-6)
+    np.testing.assert_allclose(r.flow_m3s, full.flow_m3s, atol=1e-7)
+    assert_physics(network, with_draw(r, k, q), mass_tol=1e-8, head_tol=1e-6)
+    r2 = rs.solve(k, "draw", q, start=rs.blend(r, 0.5)).result
+    np.testing.assert_allclose(r2.head_m, full.head_m, atol=1e-6)
+
+
+def test_reduction_of_a_hand_counted_network():
+    # source S feeds a loop S-a-b-c-S cut into pieces; a dead end d1-d2 hangs on b; node c is
+    # a tee to a second loop c-e-f-c (from c back to c through two-link nodes)
+    #   nodes: S0 a1 p2 b3 c4 q5 d6 d7 e8 f9
+    links = [(0, 1), (1, 2), (2, 3), (3, 4), (4, 5), (5, 0),  # big loop, pieces
+             (3, 6), (6, 7),                                  # dead end on b
+             (4, 8), (8, 9), (9, 4)]                          # loop from c back to c
+    F, T = np.array(links).T
+    dirichlet = np.zeros(10, bool)
+    dirichlet[0] = True
+    load = np.zeros(10)
+    load[[2, 6, 7, 8]] = [1.0, 2.0, 3.0, 4.0]
+    keep = np.zeros(10, bool)
+    red = Reduction(F, T, np.ones(len(F), bool), dirichlet, load, keep)
+    # the dead end is a tree: its two links, demand 5 beyond b
+    assert sorted(red.tree_links.tolist()) == [6, 7]
+    assert red.acc[3] == pytest.approx(5.0)
+    # core: S (fixed) and c (four links); b has the tree, so two links left: inside a chain
+    assert sorted(red.core_nodes.tolist()) == [0, 4]
+    # chains: S..c through a, p, b (loads 0, 1, 5); c..S through q; c..c through e, f
+    assert red.n_chains == 3
+    tot = sorted(np.round(red.tot, 9).tolist())
+    assert tot == [0.0, 4.0, 6.0]
+    # groups: S-a-p one group (a has no load), p-b, b-c; c-q-S one group; c-e, e-f-c
+    assert len(red.group_chain) == 6
+
+
+def test_hands_over_what_it_does_not_hold():
+    # a node held in the draw's own chain or tree (its head moves with the draw in a way the
+    # reduced solve does not carry) goes to the whole-network draw solver, counted, with its
+    # answer; a Darcy-Weisbach network is not reduced at all
+    from gridflow.hydraulics import DrawSolver
+
+    handed = 0
+    for seed in range(30):
+        network = stringy_network(seed, 12)
+        system = HydraulicSystem(network, TIGHT)
+        base = system.solve(raise_on_failure=False)
+        if not base.converged:
+            continue
+        rs = ReducedDrawSolver(system, base)
+        free = np.flatnonzero(~network.is_fixed)
+        k = int(free[-1])
+        ent = rs._entry(k)
+        pinned = rs.solve(k, "head", base.head_m[k] - 3.0)
+        if ent is None or not pinned.success:
+            continue
+        for c in free:
+            if c == k or rs._probe(int(c), ent) is not None:
+                continue
+            target = float(pinned.result.head_m[c])
+            if base.head_m[c] - target < 1e-3:
+                continue
+            n0 = rs.fallbacks
+            got = rs.solve(k, "limit", target, limit_node=int(c))
+            want = DrawSolver(system, base).solve(k, "limit", target, limit_node=int(c))
+            assert rs.fallbacks == n0 + 1
+            assert got.success == want.success
+            if want.success:
+                assert got.draw_m3s == pytest.approx(want.draw_m3s, rel=1e-9, abs=1e-12)
+                handed += 1
+    assert handed >= 5
+    dw = stringy_network(3, 10).replace(headloss_model="darcy-weisbach")
+    system = HydraulicSystem(dw, TIGHT)
+    rs = ReducedDrawSolver(system, system.solve())
+    assert not rs.usable and "Darcy-Weisbach" in rs.why_not
+
+
+@settings(max_examples=25, deadline=None, derandomize=True, database=None)
+@given(seed=st.integers(0, 10**6), n=st.integers(4, 30), pick=st.integers(0, 10**6),
+       frac=st.floats(0.1, 0.7))
+def test_limit_node_recovers_the_pinned_solution(seed, n, pick, frac):
+    # pin k, read another node c's head; holding c at that head gives back the same draw
+    network, system, base, rs = setup(seed, n)
+    case = pin_then_hold(network, system, base, pick, frac)
+    assume(case is not None)
+    k, c, head, full = case
+    pinned = rs.solve(k, "head", head).result
+    out = rs.solve(k, "limit", full.head_m[c], limit_node=c, start=rs.blend(pinned, 0.7))
+    assert out.success, out.message
+    assert_held(network, out.result, k, c, head, full)
+
+
+def test_limit_on_nodes_of_every_kind_without_falling_back():
+    # held nodes at a core node, inside another chain, on a tree elsewhere: all answered on
+    # the reduced network, and each equals the whole-network draw solver
+    from gridflow.hydraulics import DrawSolver
+
+    seen = set()
+    for seed in range(40):
+        network = stringy_network(seed, 14)
+        system = HydraulicSystem(network, TIGHT)
+        base = system.solve(raise_on_failure=False)
+        if not base.converged:
+            continue
+        rs = ReducedDrawSolver(system, base)
+        ds = DrawSolver(system, base)
+        red = rs.red
+        free = np.flatnonzero(~network.is_fixed)
+        k = int(free[-1])
+        head = base.head_m[k] - 0.4 * (base.head_m[k] - network.elevation_m[k] + 5.0)
+        pinned = rs.solve(k, "head", head)
+        if not pinned.success:
+            continue
+        ent = rs._entry(k)
+        for c in free:
+            if c == k or rs._probe(int(c), ent) is None:
+                continue
+            target = float(pinned.result.head_m[c])
+            if base.head_m[c] - target < 1e-3:
+                continue
+            n0 = rs.fallbacks
+            got = rs.solve(k, "limit", target, limit_node=int(c),
+                           start=rs.blend(pinned.result, 0.8))
+            want = ds.solve(k, "limit", target, limit_node=int(c))
+            assert got.success and rs.fallbacks == n0, got.message
+            assert want.success
+            assert got.draw_m3s == pytest.approx(want.draw_m3s, rel=1e-6, abs=1e-10)
+            seen.add("tree" if red.gone[c] else "core" if red.core_pos[c] >= 0 else "chain")
+    assert seen == {"tree", "core", "chain"}
+
+
+@pytest.mark.parametrize("draw_m4", [0.0, 0.15])
+def test_pump_and_regulating_valve_on_the_reduced_network(draw_m4):
+    # the hill zone of test_hill_zone: a booster pump lifts the hill zone; with 0.15 m3/s
+    # drawn at M4 the pressure-reducing valve regulates (M4 held at its setting) and passes
+    # water from the hill zone back down. Draws anywhere else that leave every status as it
+    # is are answered on the reduced network and equal full Newton solves.
+    from .test_hill_zone import OPTS, hill_zone
+
+    n = hill_zone(draw_m4=draw_m4)
+    system = HydraulicSystem(n, OPTS)
+    base = system.solve()
+    rs = ReducedDrawSolver(system, base)
+    assert rs.usable, rs.why_not
+    assert len(rs.pump_groups) == 1
+    assert len(rs.prv_links) == (1 if draw_m4 else 0)
+    compared = 0
+    for k in np.flatnonzero(~n.is_fixed):
+        if draw_m4 and n.node_id[k] == "M4":
+            continue  # held by the valve: a node of known head
+        for drop in (0.5, 2.0):
+            head = base.head_m[k] - drop
+            full = system.solve(pin_idx=np.array([k]), pin_head_m=np.array([head]), warm=base,
+                                raise_on_failure=False)
+            if not full.converged or not (full.link_state == base.link_state).all():
+                continue
+            n0 = rs.fallbacks
+            out = rs.solve(int(k), "head", head)
+            assert out.success and rs.fallbacks == n0, out.message
+            r = out.result
+            np.testing.assert_allclose(r.head_m, full.head_m, atol=1e-6)
+            np.testing.assert_allclose(r.flow_m3s, full.flow_m3s, atol=1e-8)
+            draw = r.extra["draw_m3s"]
+            assert_physics(n, with_draw(r, k, draw), mass_tol=1e-8, head_tol=1e-6)
+            compared += 1
+    assert compared >= 8
