@@ -9,7 +9,8 @@ tolerance, a dead end, an abandoned main left out): nothing for anyone to do. Th
 them (``gridflow check`` writes them all, as the detail an editor may want), but the run's
 ``findings`` layer holds only what someone should look at (``warning`` and ``error``); the
 routine facts become counts, ``routine:<kind>`` in ``run_info`` and a table in the report
-(:meth:`Findings.routine_counts`).
+(:meth:`Findings.routine_counts`). The run's log is made with ``keep_routine=False``: it only
+counts the routine facts (at a million mains they are millions of rows it would never write).
 """
 
 from __future__ import annotations
@@ -31,7 +32,11 @@ ROUTINE_SEVERITY: Severity = "info"  # a routine fact: counted, not a row of the
 
 @dataclass
 class Findings:
-    """An append-only log of findings, column-wise."""
+    """An append-only log of findings, column-wise.
+
+    ``keep_routine=False``: routine facts (severity ``info``) are counted by kind, not kept
+    as rows; :meth:`routine_counts`, :meth:`count` and ``len`` include them all the same.
+    """
 
     kind: list[str] = field(default_factory=list)
     severity: list[str] = field(default_factory=list)
@@ -39,6 +44,8 @@ class Findings:
     feature_id: list[str] = field(default_factory=list)
     message: list[str] = field(default_factory=list)
     geometry: list = field(default_factory=list)  # shapely geometries or None
+    keep_routine: bool = True
+    counted: dict[str, int] = field(default_factory=dict)  # routine facts not kept, by kind
 
     def add(self, kind: str, severity: Severity, layer: str, feature_id, message: str,
             geometry=None) -> None:
@@ -59,6 +66,10 @@ class Findings:
             geometries = [None] * n
         if not (len(messages) == n and len(geometries) == n):
             raise ValueError("feature_ids, messages and geometries must have equal length")
+        if severity == ROUTINE_SEVERITY and not self.keep_routine:
+            self.counted[kind] = self.counted.get(kind, 0) + n
+            log.debug("%d finding(s) %s on %s", n, kind, layer)
+            return
         self.kind.extend([kind] * n)
         self.severity.extend([severity] * n)
         self.layer.extend([layer] * n)
@@ -69,11 +80,18 @@ class Findings:
         log.log(level[severity], "%d finding(s) %s on %s", n, kind, layer)
 
     def extend(self, other: Findings) -> None:
-        for name in ("kind", "severity", "layer", "feature_id", "message", "geometry"):
-            getattr(self, name).extend(getattr(other, name))
+        if self.keep_routine:
+            for name in ("kind", "severity", "layer", "feature_id", "message", "geometry"):
+                getattr(self, name).extend(getattr(other, name))
+        else:
+            for i, s in enumerate(other.severity):
+                self.add(other.kind[i], s, other.layer[i], other.feature_id[i],  # type: ignore[arg-type]
+                         other.message[i], other.geometry[i])
+        for k, c in other.counted.items():
+            self.counted[k] = self.counted.get(k, 0) + c
 
     def __len__(self) -> int:
-        return len(self.kind)
+        return len(self.kind) + sum(self.counted.values())
 
     def count(self, kind: str | None = None, severity: str | None = None) -> int:
         k = np.asarray(self.kind, dtype=object)
@@ -83,11 +101,14 @@ class Findings:
             m &= k == kind
         if severity is not None:
             m &= s == severity
-        return int(m.sum())
+        extra = 0
+        if severity in (None, ROUTINE_SEVERITY):
+            extra = sum(c for kd, c in self.counted.items() if kind in (None, kd))
+        return int(m.sum()) + extra
 
     def routine_counts(self) -> dict[str, int]:
         """Routine facts (severity ``info``) counted by kind, kinds in alphabetical order."""
-        counts: dict[str, int] = {}
+        counts: dict[str, int] = dict(self.counted)
         for k, s in zip(self.kind, self.severity):
             if s == ROUTINE_SEVERITY:
                 counts[k] = counts.get(k, 0) + 1

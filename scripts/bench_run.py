@@ -11,9 +11,12 @@ whole run, and its ratio to a floor measured in the same process:
           + bare write (the run's own output layers written again with pyogrio + Arrow)
           + solver floor (iterations x one numeric factorization of the network matrix)
 
-and peak memory (ru_maxrss of the run's process, taken before the floor is measured).
+and peak memory (ru_maxrss of the run's process, taken before the floor is measured), with the
+peak resident memory of each stage (a sampler resets the kernel's high-water mark every 0.1 s,
+so no peak between samples is missed), and the machine's load average beside the figures (the
+machine is shared: compare ratios taken in the same run).
 
-    python scripts/bench_run.py 100000 500000 1000000
+    python scripts/bench_run.py 100000 500000 1000000 [--cache=DIR]
 
 Targets: run <= 1.5x the floor; 1M mains under 5 min and 8 GB.
 """
@@ -22,10 +25,13 @@ from __future__ import annotations
 
 import json
 import logging
+import os
 import resource
+import shutil
 import subprocess
 import sys
 import tempfile
+import threading
 import time
 from pathlib import Path
 
@@ -37,7 +43,7 @@ LAYERS = ("mains", "valves", "hydrants", "meters", "sources")
 
 
 class _Stamps(logging.Handler):
-    """Times of the run's 'wrote <file>' log records."""
+    """Times of the run's 'network', 'scenario <name>' and 'wrote <file>' log records."""
 
     def __init__(self) -> None:
         super().__init__(logging.INFO)
@@ -45,10 +51,55 @@ class _Stamps(logging.Handler):
 
     def emit(self, record: logging.LogRecord) -> None:
         msg = record.getMessage()
+        now = time.perf_counter()
         if msg.startswith("wrote ") and msg.endswith(".gpkg"):
-            self.t["gpkg"] = time.perf_counter()
+            self.t["gpkg"] = now
         elif msg.startswith("wrote ") and msg.endswith(".html"):
-            self.t["html"] = time.perf_counter()
+            self.t["html"] = now
+        elif msg.startswith("network: "):
+            self.t["network"] = now
+        elif msg.startswith("scenario ") and ":" in msg:
+            self.t.setdefault("scenario:" + msg.split()[1].rstrip(":"), now)
+
+
+class _PeakSampler(threading.Thread):
+    """The process's peak resident memory per 0.1 s window (VmHWM, reset after each read)."""
+
+    def __init__(self) -> None:
+        super().__init__(daemon=True)
+        self.samples: list[tuple[float, float]] = []  # (end of window, peak MB)
+        self.stop = threading.Event()
+
+    @staticmethod
+    def _hwm_mb() -> float:
+        with open("/proc/self/status") as f:
+            for line in f:
+                if line.startswith("VmHWM:"):
+                    return int(line.split()[1]) / 1024
+        return float("nan")
+
+    def run(self) -> None:
+        while not self.stop.wait(0.1):
+            self.samples.append((time.perf_counter(), self._hwm_mb()))
+            try:
+                with open("/proc/self/clear_refs", "w") as f:
+                    f.write("5")
+            except OSError:  # not Linux, or not permitted: one running peak
+                pass
+
+    def peak(self, t0: float, t1: float) -> float:
+        """Peak MB over the windows ending in (t0, t1], plus the first one after t1."""
+        vals = [mb for t, mb in self.samples if t0 < t <= t1]
+        after = [mb for t, mb in self.samples if t > t1][:1]
+        return max(vals + after, default=float("nan"))
+
+
+def load() -> str:
+    """The machine's 1-minute load average (other developers share it)."""
+    try:
+        return f"{os.getloadavg()[0]:.1f}"
+    except OSError:
+        return "?"
 
 
 def one(gis: Path) -> dict:
@@ -69,9 +120,14 @@ def one(gis: Path) -> dict:
     stamps = _Stamps()
     logging.getLogger("gridflow").addHandler(stamps)
     logging.getLogger("gridflow").setLevel(logging.INFO)
+    sampler = _PeakSampler()
+    load0 = load()
     t0 = time.perf_counter()
+    sampler.start()
     run_job(cfg_path, out=out)
     total = time.perf_counter() - t0
+    sampler.stop.set()
+    sampler.join()
     rss = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
     info = dict(pyogrio.read_dataframe(out, layer="run_info")[["key", "value"]].values)
     run_s = float(info["seconds_total"])  # everything before the write
@@ -85,19 +141,33 @@ def one(gis: Path) -> dict:
              "report": stamps.t.get("html", float("nan")) - stamps.t["gpkg"]}
     stage["other"] = run_s - stage["read_clean"] - stage["demand"] - stage["scenarios"] - \
         (stage["segments"] if stage["segments"] == stage["segments"] else 0.0)
+    # peak memory per stage, on the stage boundaries the log and run_info give
+    t_net = stamps.t.get("network", t0 + stage["read_clean"])
+    t_dem = t_net + stage["demand"]
+    t_scn = max([v for k, v in stamps.t.items() if k.startswith("scenario:")], default=t_dem)
+    seg = stage["segments"] if stage["segments"] == stage["segments"] else 0.0
+    t_seg = t_scn + seg
+    bounds = {"read_clean": (t0, t_net), "demand": (t_net, t_dem), "scenarios": (t_dem, t_scn),
+              "segments": (t_scn, t_seg), "other": (t_seg, t0 + run_s),
+              "write": (t0 + run_s, stamps.t["gpkg"]),
+              "report": (stamps.t["gpkg"], stamps.t.get("html", t0 + total))}
+    peaks = {k: sampler.peak(a, b) for k, (a, b) in bounds.items()}
+    rss = max([rss] + [v for v in peaks.values() if v == v])  # the sampler resets ru_maxrss
     # floors, same process
     t1 = time.perf_counter()
     for layer in LAYERS:
         pyogrio.read_dataframe(gis, layer=layer, use_arrow=True)
     bare_read = time.perf_counter() - t1
-    layers = {name: pyogrio.read_dataframe(out, layer=name, use_arrow=True)
-              for name, _ in pyogrio.list_layers(out) if name != "layer_styles"}
     again = d / "again.gpkg"
-    t1 = time.perf_counter()
-    for name, df in layers.items():
+    bare_write = 0.0
+    for name, _ in pyogrio.list_layers(out):  # one layer in memory at a time; writes timed
+        if name == "layer_styles":
+            continue
+        df = pyogrio.read_dataframe(out, layer=name, use_arrow=True)
+        t1 = time.perf_counter()
         pyogrio.write_dataframe(df, again, layer=name, driver="GPKG", use_arrow=True)
-    bare_write = time.perf_counter() - t1
-    del layers
+        bare_write += time.perf_counter() - t1
+        del df
     clean = build_network(load_config(cfg_path), Findings())
     fact = numeric_factorization_seconds(HydraulicSystem(clean.network))
     iters = sum(int(v) for k, v in info.items() if k.startswith("iterations_"))
@@ -105,7 +175,7 @@ def one(gis: Path) -> dict:
     return {"links": clean.network.n_links, "nodes": clean.network.n_nodes, "total_s": total,
             "stages": stage, "iterations": iters, "factor_s": fact, "bare_read_s": bare_read,
             "bare_write_s": bare_write, "floor_s": floor, "ratio": total / floor,
-            "peak_mb": rss}
+            "peak_mb": rss, "stage_peak_mb": peaks, "load_before": load0, "load_after": load()}
 
 
 def main() -> None:
@@ -116,14 +186,24 @@ def main() -> None:
     from synthetic_utility import write_utility
 
     sizes = [int(a) for a in args] or [100_000, 500_000]
+    # --cache DIR: keep each size's utility GeoPackage there and reuse it on later runs
+    cache = next((Path(a.split("=", 1)[1]) for a in sys.argv[1:] if a.startswith("--cache=")),
+                 None)
     print(f"{'mains':>7} {'nodes':>8} {'links':>8} | {'read+cl':>7} {'demand':>6} "
           f"{'solve x3':>8} {'segm':>5} {'other':>5} {'write':>5} {'report':>6} {'total s':>7} |"
           f" {'iter':>4} {'read':>5} {'write':>5} {'solver':>6} {'floor':>6} {'ratio':>5} "
-          f"{'peak MB':>7}")
+          f"{'peak MB':>7} {'load':>7}")
     for n in sizes:
         with tempfile.TemporaryDirectory() as d:
             gis = Path(d) / "utility.gpkg"
-            write_utility(gis, n)
+            kept = cache / f"utility_{n}.gpkg" if cache is not None else None
+            if kept is not None and kept.exists():
+                gis.symlink_to(kept.resolve())
+            else:
+                write_utility(gis, n)
+                if kept is not None:
+                    kept.parent.mkdir(parents=True, exist_ok=True)
+                    shutil.copyfile(gis, kept)
             out = subprocess.run([sys.executable, __file__, str(gis), "--one"],
                                  capture_output=True, text=True)
             if out.returncode:
@@ -136,7 +216,11 @@ def main() -> None:
                   f"{s['other']:>5.1f} {s['write']:>5.1f} {s['report']:>6.1f} "
                   f"{r['total_s']:>7.1f} | {r['iterations']:>4} {r['bare_read_s']:>5.1f} "
                   f"{r['bare_write_s']:>5.1f} {r['iterations'] * r['factor_s']:>6.2f} "
-                  f"{r['floor_s']:>6.1f} {r['ratio']:>5.2f} {r['peak_mb']:>7.0f}", flush=True)
+                  f"{r['floor_s']:>6.1f} {r['ratio']:>5.2f} {r['peak_mb']:>7.0f} "
+                  f"{r['load_before']:>3}/{r['load_after']:<3}", flush=True)
+            p = r["stage_peak_mb"]
+            print(f"{'':>7} peak MB by stage: " + ", ".join(
+                f"{k} {v:.0f}" for k, v in p.items()), flush=True)
 
 
 if __name__ == "__main__":

@@ -33,6 +33,36 @@ def _terrain(x: np.ndarray, y: np.ndarray) -> np.ndarray:
     return 100.0 + 8.0 * np.sin((x - X0) / 1500.0) + 6.0 * np.cos((y - Y0) / 2100.0)
 
 
+def street_grid(side: int, n_grid: int, rng: np.random.Generator):
+    """The street grid's mains as node pairs on a ``side`` x ``side`` lattice (node
+    ``i * side + j``), about ``n_grid`` of them, and the street each runs along.
+
+    A quarter of the streets are missing, but never an arterial (every 8th street), and the
+    grid stays connected: a random spanning tree is always kept.
+    """
+    ii, jj = np.meshgrid(np.arange(side), np.arange(side), indexing="ij")
+    ii, jj = ii.ravel(), jj.ravel()
+    h, v = ii < side - 1, jj < side - 1
+    a = np.r_[ii[h] * side + jj[h], ii[v] * side + jj[v]]
+    b = np.r_[(ii[h] + 1) * side + jj[h], ii[v] * side + jj[v] + 1]
+    # the street each main runs along: rows for east-west mains, columns for north-south
+    street = np.r_[jj[h], ii[v]]
+    w = rng.random(a.size) + 1.0
+    tree = minimum_spanning_tree(coo_matrix((w, (a, b)), shape=(side * side,) * 2)).tocoo()
+    n = np.int64(side) * side
+    # an edge's code in 64 bits: the tree's indices are 32-bit, and min * n overflows 32 bits
+    # from about 215 x 215 nodes on (a 1M-main utility has 754 x 754)
+    code = np.minimum(a, b).astype(np.int64) * n + np.maximum(a, b)
+    t_row, t_col = tree.row.astype(np.int64), tree.col.astype(np.int64)
+    t_code = np.minimum(t_row, t_col) * n + np.maximum(t_row, t_col)
+    in_tree = np.isin(code, t_code)
+    spare = np.flatnonzero(~in_tree & (street % 8 != 0))
+    drop = rng.choice(spare, min(spare.size, max(0, a.size - n_grid)), replace=False)
+    keep = np.ones(a.size, bool)
+    keep[drop] = False
+    return a[keep], b[keep], street[keep]
+
+
 def make_utility(n_mains: int, seed: int = 7) -> dict:
     """GeoDataFrames of a synthetic utility with about ``n_mains`` mains."""
     import geopandas as gpd
@@ -45,24 +75,7 @@ def make_utility(n_mains: int, seed: int = 7) -> dict:
     ii, jj = ii.ravel(), jj.ravel()
     px = X0 + ii * 100.0 + rng.normal(0, 5, ii.size)
     py = Y0 + jj * 100.0 + rng.normal(0, 5, jj.size)
-    h, v = ii < side - 1, jj < side - 1
-    a = np.r_[ii[h] * side + jj[h], ii[v] * side + jj[v]]
-    b = np.r_[(ii[h] + 1) * side + jj[h], ii[v] * side + jj[v] + 1]
-    # the street each main runs along: rows for east-west mains, columns for north-south
-    street = np.r_[jj[h], ii[v]]
-    # a quarter of the streets missing, but never an arterial, and the grid stays connected
-    # (a random spanning tree is always kept)
-    w = rng.random(a.size) + 1.0
-    tree = minimum_spanning_tree(coo_matrix((w, (a, b)), shape=(side * side,) * 2)).tocoo()
-    in_tree = np.zeros(a.size, bool)
-    code = np.minimum(a, b) * side * side + np.maximum(a, b)
-    t_code = np.minimum(tree.row, tree.col) * side * side + np.maximum(tree.row, tree.col)
-    in_tree[np.isin(code, t_code)] = True
-    spare = np.flatnonzero(~in_tree & (street % 8 != 0))
-    drop = rng.choice(spare, min(spare.size, max(0, a.size - n_grid)), replace=False)
-    keep = np.ones(a.size, bool)
-    keep[drop] = False
-    a, b, street = a[keep], b[keep], street[keep]
+    a, b, street = street_grid(side, n_grid, rng)
     m_grid = a.size
     # cul-de-sacs off random grid nodes, 60-120 m long
     n_cul = max(0, n_mains - m_grid)

@@ -37,11 +37,14 @@ def flag_set(layers: dict[str, pd.DataFrame]) -> set[tuple[str, str, str]]:
     Unsupplied nodes count as the flag ``unsupplied``; hydrants that fail their required flow
     as ``fails_required``.
     """
+    from gridflow.io.deferred import materialize
+
     out: set[tuple[str, str, str]] = set()
-    for name, df in layers.items():
+    for name, layer in layers.items():
         spec = _spec(name)
-        if spec is None or df is None or len(df) == 0:
+        if spec is None or layer is None or len(layer) == 0:
             continue
+        df = materialize(layer)  # one deferred layer at a time
         id_field, flags = spec
         ids = df[id_field].astype(str).to_numpy()
         for flag in flags:

@@ -372,6 +372,7 @@ def publish_postgis(spec: DatabaseSpec, layers: Mapping[str, object], *, crs,
     """
     import psycopg
 
+    from gridflow.io.deferred import materialize
     from gridflow.io.postgis import connect, scrub
 
     schema = spec.schema or "gridflow"
@@ -393,9 +394,9 @@ def publish_postgis(spec: DatabaseSpec, layers: Mapping[str, object], *, crs,
             conn.execute(f"DROP SCHEMA IF EXISTS {_q(staging)} CASCADE")
             conn.execute(f"CREATE SCHEMA {_q(staging)}")
             total = 0
-            for name, df in layers.items():
+            for name, layer in layers.items():
                 step = f"writing {staging}.{name}"
-                total += copy_frame(conn, staging, name, df, srid=srid)
+                total += copy_frame(conn, staging, name, materialize(layer), srid=srid)
             if styles:
                 step = "storing the layer styles"
                 _styles(conn, staging, schema, dbname, list(layers))

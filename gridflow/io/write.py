@@ -29,9 +29,10 @@ def write_geopackage(path: str | Path, layers: Mapping[str, object], *,
     ----------
     path : path
         The output GeoPackage; replaced only when every layer is written.
-    layers : mapping of str to GeoDataFrame or DataFrame
+    layers : mapping of str to GeoDataFrame, DataFrame or DeferredLayer
         Layer name to data, written in order. A DataFrame without geometry becomes an
-        attribute-only table (e.g. ``run_info``).
+        attribute-only table (e.g. ``run_info``); a :class:`gridflow.io.deferred.DeferredLayer`
+        is built just before it is written and let go after.
     inputs : sequence of paths
         The run's input files: writing over one of them is refused.
     styles : bool, optional
@@ -61,9 +62,14 @@ def write_layers(path: str | Path, layers: Mapping[str, object], *,
     """Write layers into a new GeoPackage at ``path`` (not atomic: see :func:`write_geopackage`)."""
     import pyogrio
 
+    from gridflow.io.deferred import DeferredLayer, materialize
+    from gridflow.memory import release_memory
+
     tmp = str(path)
-    for name, df in layers.items():
-        _write_layer(pyogrio, tmp, name, df)
+    for name, layer in layers.items():
+        _write_layer(pyogrio, tmp, name, materialize(layer))
+        if isinstance(layer, DeferredLayer):  # its frame and Arrow buffers are free now
+            release_memory()
     if styles:
         from gridflow.io.styles import store_styles
 
@@ -73,14 +79,18 @@ def write_layers(path: str | Path, layers: Mapping[str, object], *,
 
 def _write_layer(pyogrio, tmp: str, name: str, df) -> None:
     import geopandas as gpd
+    import numpy as np
     import pandas as pd
+    import shapely
 
     if isinstance(df, gpd.GeoDataFrame) and df.geometry.name in df:
-        geom = df.geometry
-        types = set(geom.geom_type.dropna().unique())
+        ids = shapely.get_type_id(df.geometry.values)  # -1: missing (no geometry)
+        types = np.unique(ids[ids >= 0])
         kw = {}
         if len(types) != 1:
             kw["geometry_type"] = "Unknown"  # mixed or all empty (findings)
+        # one call per layer: appending parts to a GeoPackage layer updates its spatial index
+        # row by row (measured: twice the time of one call at 420k pipes)
         pyogrio.write_dataframe(df, tmp, layer=name, driver="GPKG", use_arrow=True,
                                 promote_to_multi=False, **kw)
     else:

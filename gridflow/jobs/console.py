@@ -20,18 +20,17 @@ def print_summary(out_path: Path, layers: dict, findings: Findings, report: bool
     print(f"gridflow run: {len(layers['findings'])} finding(s) "
           f"({findings.count(severity='error')} error, {findings.count(severity='warning')} "
           "warning)")
-    for name, df in layers.items():
+    info = layers.get("run_info")
+    kv = dict(zip(info["key"], info["value"], strict=True)) if info is not None else {}
+    for name in layers:
         if name.startswith("nodes_"):
-            pipes = layers[f"pipes_{name[6:]}"]
-            info = layers.get("run_info")
-            kv = dict(zip(info["key"], info["value"], strict=True)) if info is not None else {}
-            short = float(kv.get(f"{name[6:]}:undelivered_demand_m3s", "0") or 0)
-            cut = kv.get(f"{name[6:]}:cut_off_nodes", "0")
-            print(f"  {name[6:]}: {int(df['low_pressure'].sum())} low-pressure, "
-                  f"{int(df['high_pressure'].sum())} high-pressure, "
-                  f"{int((df['supplied'] == 0).sum())} unsupplied node(s); "
-                  f"{int(pipes['high_velocity'].sum())} fast, "
-                  f"{int(pipes['high_headloss'].sum())} high-loss pipe(s); "
+            s = name[6:]
+            n = _Counts(kv, s, layers[name], layers[f"pipes_{s}"])
+            short = float(kv.get(f"{s}:undelivered_demand_m3s", "0") or 0)
+            cut = kv.get(f"{s}:cut_off_nodes", "0")
+            print(f"  {s}: {n('low_pressure')} low-pressure, {n('high_pressure')} "
+                  f"high-pressure, {n('unsupplied')} unsupplied node(s); "
+                  f"{n('high_velocity')} fast, {n('high_headloss')} high-loss pipe(s); "
                   f"{cut} node(s) cut off by shut devices, {short * q_factor:.3g} {q_word} of "
                   "demand not delivered")
     if "hydrants_fireflow" in layers:
@@ -49,7 +48,9 @@ def print_summary(out_path: Path, layers: dict, findings: Findings, report: bool
               f"{err.mean():.1f} {unit}, worst {err.max():.1f} {unit}; "
               f"{int(ft['out_of_tolerance'].sum())} out of tolerance")
     if "segments" in layers:
-        g = layers["segments"]
+        from gridflow.io.deferred import attributes
+
+        g = attributes(layers["segments"])
         print(f"  valve segments: {len(g)}, {int(g['oversized'].sum())} oversized, "
               f"{int((g['cut_off_segments'] > 0).sum())} whose closure cuts off others")
     if "changes" in layers:
@@ -60,6 +61,27 @@ def print_summary(out_path: Path, layers: dict, findings: Findings, report: bool
           + (f" and {out_path.with_suffix('.html')}" if report else ""))
     print("Results are model estimates of the GIS as mapped; field flow tests, local codes and "
           "licensed engineers decide.")
+
+
+class _Counts:
+    """A scenario's flag counts: from the run record (``<scenario>:<flag>``) where it has
+    them, else counted on the layers (built once, if deferred)."""
+
+    def __init__(self, kv: dict, scenario: str, nodes, pipes) -> None:
+        self.kv, self.scenario, self.layers = kv, scenario, {"nodes": nodes, "pipes": pipes}
+        self.built: dict = {}
+
+    def __call__(self, flag: str) -> int:
+        key = f"{self.scenario}:{flag}"
+        if key in self.kv:
+            return int(self.kv[key])
+        which = "pipes" if flag in ("high_velocity", "high_headloss") else "nodes"
+        if which not in self.built:
+            from gridflow.io.deferred import materialize
+
+            self.built[which] = materialize(self.layers[which])
+        df = self.built[which]
+        return int((df["supplied"] == 0).sum()) if flag == "unsupplied" else int(df[flag].sum())
 
 
 def terminal_progress(label: str):

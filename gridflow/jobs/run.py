@@ -8,6 +8,7 @@ previous version is left as it was: findings name the worst node and link); 1 un
 from __future__ import annotations
 
 import datetime as _dt
+import functools
 import logging
 import os
 import sys
@@ -26,6 +27,7 @@ from gridflow.io.atomic import OutputSet
 from gridflow.jobs.check import file_sha256
 from gridflow.jobs.console import print_summary, terminal_progress
 from gridflow.jobs.signals import stop_on_signals
+from gridflow.memory import release_memory, resident_mb
 from gridflow.network import NODE_JUNCTION, Network
 
 __all__ = ["run_job", "solve_options", "verify_solution", "require_solvable",
@@ -91,6 +93,12 @@ def shut_zone_findings(name: str, system: HydraulicSystem, r: HydraulicResult, f
         n_nodes += len(z.nodes)
         undelivered += z.required_m3s
     return n_nodes, undelivered
+
+
+def _released(stage: str) -> None:
+    """Free memory back to the system after a large stage; the resident size to the log."""
+    release_memory()
+    log.debug("memory after %s: %.0f MB resident", stage, resident_mb())
 
 
 def _attach_log_file(log_path: Path) -> logging.Handler | None:
@@ -220,8 +228,10 @@ def run_job(config_path: str | Path, *, out: str | Path | None = None,
 def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
          previous, workers, scheduler, t_start: float, started, db_out) -> int:
     from gridflow.analysis.changes import compare_flags, flag_set, read_previous_flags
+    from gridflow.analysis.flags import node_flags, pipe_flags
     from gridflow.config.database import is_database, parse_database
     from gridflow.demand import allocate, run_info_rows, scenario_network
+    from gridflow.io.deferred import DeferredLayer
     from gridflow.io.postgis import last_snapshots
     from gridflow.io.postgis import read_previous_flags as pg_previous_flags
     from gridflow.io.publish import publish_postgis
@@ -236,7 +246,7 @@ def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
         prev_flags = (None if not previous else pg_previous_flags(previous)
                       if is_database(previous) else read_previous_flags(previous))
         system_units = cfg.run.units
-        findings = Findings()
+        findings = Findings(keep_routine=False)  # routine facts: counts only (run_info)
         info: list[tuple[str, str]] = [
             ("name", cfg.run.name), ("tool_version", __version__), ("config", str(cfg.path)),
             ("config_sha256", cfg.sha256), ("unit_system", system_units),
@@ -253,16 +263,23 @@ def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
         clean = build_network(cfg, findings)
         require_solvable(cfg, clean)
         info += [(f"input_snapshot:{k}", v) for k, v in last_snapshots().items()]
+        _released("reading and cleaning")
         info.append(("seconds_read_clean", f"{time.perf_counter() - t0:.2f}"))
         log.info("network: %d nodes, %d links", clean.network.n_nodes, clean.network.n_links)
         t0 = time.perf_counter()
         alloc = allocate(cfg, clean, findings)
+        # the meters' points served the allocation (kept per meter in ``alloc``); a
+        # utility's million meters as points are not carried through the rest of the run
+        clean.meters = clean.meters.iloc[:0]
         info += run_info_rows(alloc, cfg.run.units)
+        _released("demand allocation")
         info.append(("seconds_demand", f"{time.perf_counter() - t0:.2f}"))
 
         opts = solve_options(cfg)
         layers: dict[str, object] = {}
-        results: dict[str, tuple[Network, HydraulicResult, HydraulicSystem]] = {}
+        # per scenario, its network and result; not its system (link laws, components): only
+        # the last one is kept, for its shared factorization pattern
+        results: dict[str, tuple[Network, HydraulicResult]] = {}
         rating = getattr(clean.links, "pressure_rating_m", None)
         rating = None if rating is None else np.asarray(rating, dtype=float)
         failure: ConvergenceError | None = None
@@ -285,6 +302,7 @@ def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
                                            link_id=exc.fields.get("link_id"))
                 info.append((f"{name}:converged", "0"))
                 break
+            _released(f"scenario {name}")
             mass, headres, wn, wl = verify_solution(system, r)
             cut_nodes, cut_m3s = shut_zone_findings(
                 name, system, r, findings, clean.links.geometry.values,
@@ -312,15 +330,25 @@ def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
                              msg, clean.links.geometry.values[wl])
                 failure = ConvergenceError(msg, node_id=net.node_id[wn], link_id=net.link_id[wl])
                 break
-            nodes, pipes = scenario_layers(cfg, clean, net, r)
+            # the flags the layers carry, counted on the same arrays; the layers themselves
+            # are built one at a time when written (a GeoDataFrame per scenario held to the
+            # end costs several times the arrays at the scale of a large utility)
+            nflags = node_flags(net, r, cfg.criteria)
+            pflags = pipe_flags(net, r, cfg.criteria)
             for flag in ("low_pressure", "high_pressure", "negative_pressure"):
-                info.append((f"{name}:{flag}", str(int(nodes[flag].sum()))))
-            info.append((f"{name}:unsupplied", str(int((nodes["supplied"] == 0).sum()))))
+                info.append((f"{name}:{flag}", str(int(nflags[flag].sum()))))
+            info.append((f"{name}:unsupplied", str(int((nflags["supplied"] == 0).sum()))))
             for flag in ("high_velocity", "high_headloss"):
-                info.append((f"{name}:{flag}", str(int(pipes[flag].sum()))))
-            layers[f"nodes_{name}"] = nodes
-            layers[f"pipes_{name}"] = pipes
-            results[name] = (net, r, system)
+                info.append((f"{name}:{flag}", str(int(pflags[flag].sum()))))
+            del nflags, pflags
+            layers[f"nodes_{name}"] = DeferredLayer(
+                functools.partial(scenario_layers, cfg, clean, net, r, which="nodes"),
+                net.n_nodes)
+            layers[f"pipes_{name}"] = DeferredLayer(
+                functools.partial(scenario_layers, cfg, clean, net, r, which="pipes"),
+                net.n_links)
+            results[name] = (net, r)
+            del system
             log.info("scenario %s: %s", name, r.message)
 
         if failure is None and cfg.fireflow.enabled and len(clean.hydrants):
@@ -340,10 +368,11 @@ def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
             t0 = time.perf_counter()
             seg_name = cfg.segments.scenario if cfg.segments.scenario in results else \
                 next(iter(results))
-            s_net, s_base, _ = results[seg_name]
+            s_net, s_base = results[seg_name]
             layers["segments"] = segments_step(
                 cfg, clean, alloc, s_net, s_base, opts, workers=workers, scheduler=scheduler,
                 findings=findings, info=info, progress=terminal_progress("segment closures"))
+            _released("valve segments")
             info.append(("seconds_segments", f"{time.perf_counter() - t0:.2f}"))
 
         # the layer holds what someone should look at; routine facts become counts
@@ -373,6 +402,7 @@ def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
             failure.args = (failure.message,)
             raise failure
         published = None
+        _released("the analyses")
         if db_out is None:
             gpkg = outputs["output GeoPackage"]
             outs.write(gpkg, lambda tmp: write_layers(tmp, layers, styles=True))
@@ -382,6 +412,7 @@ def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
             outs.write(html, lambda tmp: _report(cfg, tmp, clean, results, layers, info,
                                                   routine, rating))
             log.info("wrote %s", html)
+            _released("the report")
         if handler is not None:
             logging.getLogger("gridflow").removeHandler(handler)
             handler.close()
@@ -412,7 +443,7 @@ def _fireflow(cfg, clean, results, opts, workers, scheduler, findings, info):
     from gridflow.jobs.stages import fireflow_layer
 
     name = cfg.fireflow.scenario
-    net, base, _ = results[name]
+    net, base = results[name]
     t0 = time.perf_counter()
     ff, layer = fireflow_layer(cfg, clean, net, base, opts, workers=workers,
                                scheduler=scheduler, progress=terminal_progress("fire flow"))
@@ -439,13 +470,14 @@ def _report(cfg, html, clean, results, layers, info, routine, rating):
     """The HTML report, from the results in memory (SI arrays, typed criteria)."""
     import shapely
 
+    from gridflow.io.deferred import materialize
     from gridflow.report import ReportData, ScenarioData, write_report
     from gridflow.report.fireflow import in_service, limiting_nodes_table
     from gridflow.report.flowtests import flow_tests_table
     from gridflow.report.segments import segments_table
 
     scenarios = [ScenarioData.solved(name, net, r, cfg.criteria)
-                 for name, (net, r, _) in results.items()]
+                 for name, (net, r) in results.items()]
     geoms = clean.nodes.geometry.values
     xy = None
     if len(geoms) == scenarios[0].network.n_nodes:
@@ -457,7 +489,8 @@ def _report(cfg, html, clean, results, layers, info, routine, rating):
                       pressure_rating_m=rating,
                       hydrants=in_service(layers.get("hydrants_fireflow")),
                       findings=layers.get("findings"), changes=layers.get("changes"),
-                      flow_tests=layers.get("flow_tests"), segments=layers.get("segments"),
+                      flow_tests=layers.get("flow_tests"),
+                      segments=materialize(layers.get("segments")),  # its map draws them
                       routine=routine, run_info=list(info),
                       hgl_path=cfg.report.hgl_path or None, worst_rows=cfg.report.worst_rows)
     write_report(html, data, extra_tables=[limiting_nodes_table, flow_tests_table,

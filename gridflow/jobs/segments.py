@@ -17,6 +17,7 @@ import shapely
 from gridflow.analysis.criticality import ClosureProblem, closure_sweep
 from gridflow.analysis.segments import Segments, find_segments, segment_members
 from gridflow.findings import Findings
+from gridflow.io.deferred import DeferredLayer
 from gridflow.jobs.layers import field_name
 from gridflow.network import LINK_PIPE, LINK_VALVE, VALVE_ISOLATION, Network
 from gridflow.units import out_field
@@ -81,8 +82,12 @@ def _joined(groups: np.ndarray, values: np.ndarray, n: int,
 
 
 def segments_step(cfg, clean, alloc, net: Network, base, opts, *, workers=None, scheduler=None,
-                  findings: Findings, info: list, progress=None) -> gpd.GeoDataFrame:
-    """The ``segments`` layer (run's units), findings and ``run_info`` rows."""
+                  findings: Findings, info: list, progress=None) -> DeferredLayer:
+    """The ``segments`` layer (run's units), findings and ``run_info`` rows.
+
+    The layer is returned deferred: its fields are held (``attributes``), its geometry (each
+    segment's mains as one multi-line, a copy of every main) is made when it is written.
+    """
     sec = cfg.segments
     system = cfg.run.units
     vlayer = cfg.layers.valves.layer if cfg.layers.valves is not None else "valves"
@@ -115,15 +120,23 @@ def segments_step(cfg, clean, alloc, net: Network, base, opts, *, workers=None, 
     np.minimum.at(first_node, seg.node_segment, np.arange(net.n_nodes))
     zone = net.zone.astype(str)[first_node]
 
-    # geometry: the segment's mains as one multi-line
-    geoms = np.asarray(clean.links.geometry.values, dtype=object)
+    # geometry: the segment's mains as one multi-line (made for the findings' few segments
+    # now, for all of them when the layer is written)
+    link_geoms = clean.links.geometry.values
     inside = np.flatnonzero(pipe & (seg.link_segment >= 0) & (net.length_m > 0))
     order = inside[np.argsort(seg.link_segment[inside], kind="stable")]
-    multi = np.full(n, None, dtype=object)
-    if order.size:
-        parts = shapely.multilinestrings(geoms[order], indices=seg.link_segment[order])
-        owners = np.unique(seg.link_segment[order])
-        multi[owners] = parts
+    link_segment = seg.link_segment
+    del inside
+
+    def multi_of(wanted: np.ndarray | None = None) -> np.ndarray:
+        """Per segment, its mains as one multi-line (None: no main, or not ``wanted``)."""
+        o = order if wanted is None else order[wanted[link_segment[order]]]
+        out = np.full(n, None, dtype=object)
+        if o.size:
+            owners, compact = np.unique(link_segment[o], return_inverse=True)
+            out[owners] = shapely.multilinestrings(
+                np.asarray(link_geoms[o], dtype=object), indices=compact)
+        return out
 
     max_len = sec.max_length if sec.max_length > 0 else np.inf
     max_met = sec.max_meters if sec.max_meters > 0 else np.inf
@@ -150,7 +163,15 @@ def segments_step(cfg, clean, alloc, net: Network, base, opts, *, workers=None, 
                              scheduler, info, progress) if sec.criticality else None
     if crit_rows is not None:
         cols.update(crit_rows)
-    layer = gpd.GeoDataFrame(cols, geometry=gpd.GeoSeries(multi, crs=clean.crs), crs=clean.crs)
+    attrs = pd.DataFrame(cols)
+    del cols
+    crs = clean.crs
+
+    def build() -> gpd.GeoDataFrame:
+        return gpd.GeoDataFrame(attrs.copy(deep=False), geometry=gpd.GeoSeries(multi_of(),
+                                                                             crs=crs), crs=crs)
+
+    multi = multi_of(oversized | lonely | cuts)  # the findings' segments only
 
     unit_len = "ft" if system == "US" else "m"
     glen = field_name("length", system)
@@ -160,7 +181,7 @@ def segments_step(cfg, clean, alloc, net: Network, base, opts, *, workers=None, 
         [f"{length_out:,.0f} {unit_len} of main and {int(m)} meter(s) between its valves "
          f"({', '.join(map(str, vids.split(', ')[:6]))}): above the bounds "
          f"(segments.max_length, segments.max_meters); a valve may be missing or unmapped"
-         for length_out, m, vids in zip(layer[glen][oversized], meters[oversized],
+         for length_out, m, vids in zip(attrs[glen][oversized], meters[oversized],
                                         valve_ids[oversized])],
         list(multi[oversized]))
     findings.add_many(
@@ -178,7 +199,7 @@ def segments_step(cfg, clean, alloc, net: Network, base, opts, *, workers=None, 
              ("segments:cannot_isolate", str(int(lonely.sum()))),
              ("segments:closure_cuts_off", str(int(cuts.sum()))),
              ("segments:not_supplied", str(int((~seg.supplied).sum())))]
-    return layer
+    return DeferredLayer(build, n, attributes=attrs)
 
 
 def _criticality(cfg, clean, net, base, opts, seg: Segments, m_node, h_node, workers,

@@ -18,17 +18,27 @@ from gridflow.network import Network
 __all__ = ["scenario_layers", "fireflow_layer"]
 
 
-def scenario_layers(cfg: Config, clean, net: Network, r: HydraulicResult):
-    """``nodes_<scenario>`` and ``pipes_<scenario>`` in the run's units (output fields)."""
+def scenario_layers(cfg: Config, clean, net: Network, r: HydraulicResult, *,
+                    which: str | None = None):
+    """``nodes_<scenario>`` and ``pipes_<scenario>`` in the run's units (output fields).
+
+    ``which="nodes"`` or ``"pipes"`` builds (and returns) only that one layer.
+    """
     from gridflow.jobs.layers import nodes_layer, pipes_layer
 
     units = cfg.run.units
-    rating = getattr(clean.links, "pressure_rating_m", None)
-    rating = None if rating is None else np.asarray(rating, dtype=float)
-    nodes = nodes_layer(net, r, clean.nodes.geometry.values, clean.crs, cfg.criteria, units)
-    pipes = pipes_layer(net, r, clean.links.geometry.values, clean.crs, cfg.criteria, units,
-                        rating)
-    return nodes, pipes
+    nodes = pipes = None
+    if which in (None, "nodes"):
+        nodes = nodes_layer(net, r, clean.nodes.geometry.values, clean.crs, cfg.criteria,
+                            units)
+    if which in (None, "pipes"):
+        rating = getattr(clean.links, "pressure_rating_m", None)
+        rating = None if rating is None else np.asarray(rating, dtype=float)
+        pipes = pipes_layer(net, r, clean.links.geometry.values, clean.crs, cfg.criteria,
+                            units, rating)
+    if which is None:
+        return nodes, pipes
+    return nodes if which == "nodes" else pipes
 
 
 def fireflow_layer(cfg: Config, clean, net: Network, base: HydraulicResult,

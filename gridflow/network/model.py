@@ -65,6 +65,15 @@ def _f(a, n, fill=np.nan) -> np.ndarray:
     return out
 
 
+def _shared_strings(a: np.ndarray) -> np.ndarray:
+    """An object array of ``a``'s strings, one str object per distinct value (a zone name
+    repeated at a million nodes is stored once, not a million times)."""
+    import pandas as pd
+
+    codes, uniques = pd.factorize(a.astype(object), use_na_sentinel=False)
+    return np.asarray(uniques, dtype=object)[codes] if len(a) else a.astype(object)
+
+
 def _i(a, n, fill=0, dtype=np.int8) -> np.ndarray:
     if a is None:
         return np.full(n, fill, dtype=dtype)
@@ -195,7 +204,7 @@ class Network:
             demand_m3s=_f(demand_m3s, nn, 0.0),
             fixed_head_m=fixed,
             zone=(np.full(nn, "", dtype=object) if zone is None
-                  else _text(zone)),
+                  else _shared_strings(_text(zone))),
             link_id=link_id,
             from_idx=_i(from_idx, nl, dtype=np.int64),
             to_idx=_i(to_idx, nl, dtype=np.int64),

@@ -34,6 +34,7 @@ import numpy as np
 from gridflow.findings import Findings
 from gridflow.io.dem import sample_dem
 from gridflow.io.read import ReadResult, read_inputs
+from gridflow.memory import release_memory
 from gridflow.topology.assemble import assemble
 from gridflow.topology.attach import attach_points
 from gridflow.topology.clean import CleanNetwork
@@ -79,25 +80,33 @@ def build_network(cfg, findings: Findings, *, read: ReadResult | None = None,
     """
     clock = _StageClock(timings)
     rr = read if read is not None else clock.lap("read", read_inputs(cfg, findings))
+    release_memory()  # the reader's Arrow buffers
     ctx = Context(cfg=cfg, read=rr, findings=findings, tol=float(cfg.run.snap_tolerance),
                   crs=rr.crs)
     clock.start()
     pipes = clock.lap("pipes", prepare_pipes(ctx))
+    if read is None:  # the mains as read are not needed again (prepared: ``pipes``)
+        rr.layers.pop("pipes", None)
+    pipes_layer = pipes.layer
     snapped = clock.lap("snap", snap_ends(ctx, pipes))
+    del pipes
     attached = clock.lap("attach", attach_points(ctx, snapped))
     split = clock.lap("split", split_mains(snapped, attached))
     nodes = clock.lap("nodes", number_nodes(ctx, snapped, attached, split))
     links = clock.lap("links", link_table(ctx, snapped, attached, split, nodes))
+    del split, snapped  # large intermediates go before the network's arrays are made
+    release_memory()
     dem = None
     if cfg.elevation.source == "dem":
         dem = sample_dem(cfg.resolve(cfg.elevation.dem), nodes.xy[:, 0], nodes.xy[:, 1],
                          rr.crs, z_factor(cfg))
     elev, guessed = clock.lap("elevations", fill_elevations(ctx, nodes, links, dem))
     clean = clock.lap("assemble", assemble(ctx, attached, nodes, links, elev, guessed))
+    del attached, nodes
     net = clean.network
     parts = network_parts(net) if net.n_nodes and net.is_fixed.any() else None
     connectivity_findings(findings, net, links.cols["geom"],
-                          np.asarray(clean.nodes.geometry.values, dtype=object), pipes.layer,
+                          np.asarray(clean.nodes.geometry.values, dtype=object), pipes_layer,
                           parts)
     isolation_findings(ctx, clean, parts)
     pump_grade_findings(ctx, clean.network)

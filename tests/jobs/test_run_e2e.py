@@ -391,3 +391,43 @@ def test_fireflow_local_processes_and_dask_cluster_identical(run_output, tmp_pat
     a = pyogrio.read_dataframe(procs, layer="hydrants_fireflow")
     b = pyogrio.read_dataframe(dask, layer="hydrants_fireflow")
     pd.testing.assert_frame_equal(a, b)
+
+
+@pytest.mark.parametrize("scenario", SCENARIOS)
+def test_written_scenario_layers_equal_the_layers_built_up_front(run_output, scenario):
+    # the run builds each result layer only when it writes it; what it writes is what the
+    # Python interface builds at once from the same config (same stages, same numbers)
+    import gridflow
+
+    out, cfg = run_output
+    res = gridflow.open_model(cfg).solve(scenario)
+    for kind, built in (("nodes", res.nodes), ("pipes", res.pipes)):
+        written = pyogrio.read_dataframe(out, layer=f"{kind}_{scenario}")
+        assert list(written.columns) == list(built.columns)
+        assert len(written) == len(built) > 0
+        for col in written.columns.drop("geometry"):
+            a, b = written[col].to_numpy(), built[col].to_numpy()
+            if np.issubdtype(np.asarray(a).dtype, np.number):
+                np.testing.assert_array_equal(a, np.asarray(b, dtype=np.asarray(a).dtype),
+                                              err_msg=f"{kind}_{scenario}.{col}")
+            else:
+                assert list(map(str, a)) == list(map(str, b)), f"{kind}_{scenario}.{col}"
+        assert gpd.GeoSeries(written.geometry.values).geom_equals_exact(
+            gpd.GeoSeries(built.geometry.values), tolerance=0).all()
+
+
+def test_summary_counts_agree_with_the_written_layers(tmp_path):
+    # the summary's flag counts come from the run record; they are the written layers' counts
+    cfg = _config(tmp_path, fireflow=False)
+    out = tmp_path / "c.gpkg"
+    res = _run("-q", "run", str(cfg), "--out", str(out))
+    assert res.exit_code == 0
+    for s in SCENARIOS:
+        n = pyogrio.read_dataframe(out, layer=f"nodes_{s}", read_geometry=False)
+        p = pyogrio.read_dataframe(out, layer=f"pipes_{s}", read_geometry=False)
+        want = (f"  {s}: {int(n['low_pressure'].sum())} low-pressure, "
+                f"{int(n['high_pressure'].sum())} high-pressure, "
+                f"{int((n['supplied'] == 0).sum())} unsupplied node(s); "
+                f"{int(p['high_velocity'].sum())} fast, "
+                f"{int(p['high_headloss'].sum())} high-loss pipe(s); ")
+        assert want in res.output, (want, res.output)

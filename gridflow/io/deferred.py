@@ -1,0 +1,61 @@
+"""Result layers built when they are written, one at a time.
+
+A run at the scale of a large utility holds a node and a pipe layer per scenario; as
+GeoDataFrames (text ids as Python strings, a dozen float columns, the geometry) they cost far
+more than the SI arrays they are made from. :class:`DeferredLayer` keeps only how to build the
+layer; writers (:func:`gridflow.io.write.write_layers`, the PostGIS publisher) call
+:func:`materialize` on each layer in turn and let it go once written, so at most one large
+layer exists at a time. The built frame is the same as building it up front.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+
+__all__ = ["DeferredLayer", "materialize", "attributes"]
+
+
+class DeferredLayer:
+    """A layer described by a function that builds its (Geo)DataFrame on each call.
+
+    Parameters
+    ----------
+    build : callable
+        No arguments; returns the layer's frame. Called once per use (write, publish,
+        comparison with the previous run): nothing is cached.
+    rows : int
+        The layer's row count, known without building it.
+    attributes : DataFrame, optional
+        The layer's fields without its geometry, where they are small enough to hold: what
+        summaries and the report read, without building the layer.
+    """
+
+    __slots__ = ("_build", "rows", "attributes")
+
+    def __init__(self, build: Callable[[], object], rows: int, attributes=None) -> None:
+        self._build = build
+        self.rows = int(rows)
+        self.attributes = attributes
+
+    def build(self):
+        """The layer's frame, built now."""
+        return self._build()
+
+    def __len__(self) -> int:
+        return self.rows
+
+    def __repr__(self) -> str:
+        return f"DeferredLayer(rows={self.rows})"
+
+
+def materialize(layer):
+    """``layer`` itself, or the frame of a :class:`DeferredLayer` built now."""
+    return layer.build() if isinstance(layer, DeferredLayer) else layer
+
+
+def attributes(layer):
+    """A layer's fields: the held ``attributes`` of a :class:`DeferredLayer` (built when it
+    has none), else the layer itself."""
+    if isinstance(layer, DeferredLayer):
+        return layer.attributes if layer.attributes is not None else layer.build()
+    return layer
