@@ -153,3 +153,63 @@ def assert_held(network: Network, r, k: int, c: int, head: float, full) -> None:
     d = r.demand_m3s.copy()
     d[k] += draw
     assert_physics(network, dataclasses.replace(r, demand_m3s=d), mass_tol=1e-8, head_tol=1e-6)
+
+
+def stringy_network(seed: int, n: int) -> Network:
+    """A random looped network shaped like a street export: a spanning tree plus extra links
+    (loops), every link cut into 1-4 pieces (two-link nodes, some with demand, some without),
+    dead-end branches of 1-3 links hung on random nodes, one or two sources."""
+    rng = np.random.default_rng(seed)
+    fr = [int(rng.integers(0, i)) for i in range(1, n)]
+    to = list(range(1, n))
+    for _ in range(int(rng.integers(1, max(2, n // 2)))):
+        a, b = rng.choice(n, 2, replace=False)
+        fr.append(int(a))
+        to.append(int(b))
+    nodes = n
+    F: list[int] = []
+    T: list[int] = []
+    for a, b in zip(fr, to):
+        pieces = int(rng.integers(1, 5))
+        prev = a
+        for _ in range(pieces - 1):
+            F.append(prev)
+            T.append(nodes)
+            prev = nodes
+            nodes += 1
+        F.append(prev)
+        T.append(b)
+    for _ in range(int(rng.integers(0, n))):
+        at = int(rng.integers(0, nodes))
+        for _ in range(int(rng.integers(1, 4))):
+            F.append(at)
+            T.append(nodes)
+            at = nodes
+            nodes += 1
+    # some links drawn against the chain direction
+    F_arr, T_arr = np.array(F), np.array(T)
+    flip = rng.random(len(F)) < 0.3
+    F_arr[flip], T_arr[flip] = T_arr[flip], F_arr[flip]
+    nl = len(F_arr)
+    fixed = np.full(nodes, np.nan)
+    fixed[0] = 60 + 40 * rng.random()
+    if n > 6 and rng.random() < 0.5:
+        fixed[n - 1] = 50 + 40 * rng.random()
+    elev = 20 * rng.random(nodes)
+    demand = np.where(np.isnan(fixed) & (rng.random(nodes) < 0.6),
+                      rng.random(nodes) * 0.004, 0.0)
+    diam = rng.choice([4, 6, 8, 12, 16], nl) * 0.0254
+    return Network.from_arrays(
+        node_id=[f"n{i}" for i in range(nodes)], link_id=[f"l{i}" for i in range(nl)],
+        from_idx=F_arr, to_idx=T_arr, fixed_head_m=fixed, elevation_m=elev,
+        demand_m3s=demand, length_m=20 + 300 * rng.random(nl), diameter_m=diam,
+        roughness=rng.uniform(60, 150, nl))
+
+
+def with_draw(r, k, q):
+    """The result with the draw at ``k`` counted as demand there (for the balance check)."""
+    import dataclasses
+
+    d = r.demand_m3s.copy()
+    d[k] += q
+    return dataclasses.replace(r, demand_m3s=d)

@@ -16,29 +16,43 @@ from hypothesis import strategies as st
 
 from gridflow.hydraulics import DrawSolver, HydraulicSystem, SolveOptions
 from gridflow.hydraulics.headloss import hw_resistance
+from gridflow.hydraulics.reduced import ReducedDrawSolver
 from gridflow.network import STATUS_CHECK
 
-from .netbuild import assert_held, assert_physics, net, pin_then_hold, pipe
+from .netbuild import (
+    assert_held,
+    assert_physics,
+    net,
+    pin_then_hold,
+    pipe,
+    stringy_network,
+    with_draw,
+)
 from .test_properties import random_network
 
 TIGHT = SolveOptions(head_tolerance=1e-9, flow_tolerance=1e-9)
 
 
-def with_draw(r, k, q):
-    """The result with the draw at ``k`` counted as demand there (for the balance check)."""
-    d = r.demand_m3s.copy()
-    d[k] += q
-    return dataclasses.replace(r, demand_m3s=d)
+#: the two draw solvers, each on networks that exercise it: the whole-network one on random
+#: looped networks, the reduced one on street-like networks (chains, dead ends, links drawn
+#: against the chain); the reduced one must answer without handing a solve over
+SOLVERS = {"whole": (random_network, DrawSolver), "reduced": (stringy_network, ReducedDrawSolver)}
 
 
-def setup(seed, n, options=TIGHT):
-    network = random_network(seed, n)
+def setup(seed, n, options=TIGHT, kind="whole"):
+    make, solver = SOLVERS[kind]
+    network = make(seed, n)
     system = HydraulicSystem(network, options)
     base = system.solve(raise_on_failure=False)
     # the tight reference tolerances are out of reach on a few networks with (nearly) zero
     # flow in a wide pipe (the plain iteration chatters there): compare where it converged
     assume(base.converged)
-    return network, system, base, DrawSolver(system, base)
+    return network, system, base, solver(system, base)
+
+
+def handed_over(ds) -> int:
+    """Solves the reduced solver handed to the whole-network one (0 for that one itself)."""
+    return int(getattr(ds, "fallbacks", 0))
 
 
 def test_single_pipe_pinned_closed_form():
@@ -57,11 +71,12 @@ def test_single_pipe_pinned_closed_form():
     assert rd.head_m[1] == pytest.approx(60.0, abs=1e-6)
 
 
+@pytest.mark.parametrize("kind", list(SOLVERS))
 @settings(max_examples=25, deadline=None, derandomize=True, database=None)
 @given(seed=st.integers(0, 10**6), n=st.integers(3, 35), pick=st.integers(0, 10**6),
        frac=st.floats(0.05, 0.8))
-def test_pinned_draw_matches_full_newton_and_conserves(seed, n, pick, frac):
-    network, system, base, ds = setup(seed, n)
+def test_pinned_draw_matches_full_newton_and_conserves(kind, seed, n, pick, frac):
+    network, system, base, ds = setup(seed, n, kind=kind)
     free = np.flatnonzero(~network.is_fixed)
     k = int(free[pick % len(free)])
     head = base.head_m[k] - frac * (base.head_m[k] - network.elevation_m[k] + 5.0)
@@ -70,6 +85,7 @@ def test_pinned_draw_matches_full_newton_and_conserves(seed, n, pick, frac):
     assume(full.converged)
     out = ds.solve(k, "head", head)
     assert out.success and out.status == 0, out.message
+    assert handed_over(ds) == 0
     r = out.result
     assert r is not None and r.converged
     np.testing.assert_allclose(r.head_m, full.head_m, atol=1e-6)
@@ -82,11 +98,12 @@ def test_pinned_draw_matches_full_newton_and_conserves(seed, n, pick, frac):
     assert supply == pytest.approx(network.demand_m3s.sum() + draw, rel=1e-7, abs=1e-10)
 
 
+@pytest.mark.parametrize("kind", list(SOLVERS))
 @settings(max_examples=20, deadline=None, derandomize=True, database=None)
 @given(seed=st.integers(0, 10**6), n=st.integers(3, 35), pick=st.integers(0, 10**6),
        q=st.floats(0.001, 0.05))
-def test_given_draw_matches_full_newton_with_demand(seed, n, pick, q):
-    network, system, base, ds = setup(seed, n)
+def test_given_draw_matches_full_newton_with_demand(kind, seed, n, pick, q):
+    network, system, base, ds = setup(seed, n, kind=kind)
     free = np.flatnonzero(~network.is_fixed)
     k = int(free[pick % len(free)])
     demand = network.demand_m3s.copy()
@@ -95,6 +112,7 @@ def test_given_draw_matches_full_newton_with_demand(seed, n, pick, q):
     assume(full.converged)
     out = ds.solve(k, "draw", q)
     assert out.success, out.message
+    assert handed_over(ds) == 0
     r = out.result
     assert r is not None
     np.testing.assert_allclose(r.head_m, full.head_m, atol=1e-6)
@@ -105,16 +123,19 @@ def test_given_draw_matches_full_newton_with_demand(seed, n, pick, q):
     np.testing.assert_allclose(r2.head_m, full.head_m, atol=1e-6)
 
 
+@pytest.mark.parametrize("kind", list(SOLVERS))
 @settings(max_examples=20, deadline=None, derandomize=True, database=None)
 @given(seed=st.integers(0, 10**6), n=st.integers(4, 35), pick=st.integers(0, 10**6),
        frac=st.floats(0.1, 0.7))
-def test_limit_node_recovers_the_pinned_solution(seed, n, pick, frac):
+def test_limit_node_recovers_the_pinned_solution(kind, seed, n, pick, frac):
     # pin k, read another node c's head; holding c at that head must give back the same draw
-    network, system, base, ds = setup(seed, n)
+    network, system, base, ds = setup(seed, n, kind=kind)
     case = pin_then_hold(network, system, base, pick, frac)
     assume(case is not None)
     k, c, head, full = case
-    out = ds.solve(k, "limit", full.head_m[c], limit_node=c)
+    # the reduced solver from a blend of its pinned solution (as a fire-flow search holds)
+    start = ds.blend(ds.solve(k, "head", head).result, 0.7) if kind == "reduced" else None
+    out = ds.solve(k, "limit", full.head_m[c], limit_node=c, start=start)
     assert out.success and out.result is not None, out.message
     assert_held(network, out.result, k, c, head, full)
 

@@ -8,77 +8,16 @@ and draws are compared with :meth:`HydraulicSystem.solve` on the same problem.
 
 from __future__ import annotations
 
-import dataclasses
-
 import numpy as np
 import pytest
-from hypothesis import assume, given, settings
-from hypothesis import strategies as st
+from hypothesis import assume
 
 from gridflow.hydraulics import HydraulicSystem, SolveOptions
 from gridflow.hydraulics.reduced import ReducedDrawSolver, Reduction
-from gridflow.network import Network
 
-from .netbuild import assert_held, assert_physics, pin_then_hold
+from .netbuild import assert_physics, stringy_network, with_draw
 
 TIGHT = SolveOptions(head_tolerance=1e-9, flow_tolerance=1e-9)
-
-
-def stringy_network(seed: int, n: int) -> Network:
-    """A random looped network shaped like a street export: a spanning tree plus extra links
-    (loops), every link cut into 1-4 pieces (two-link nodes, some with demand, some without),
-    dead-end branches of 1-3 links hung on random nodes, one or two sources."""
-    rng = np.random.default_rng(seed)
-    fr = [int(rng.integers(0, i)) for i in range(1, n)]
-    to = list(range(1, n))
-    for _ in range(int(rng.integers(1, max(2, n // 2)))):
-        a, b = rng.choice(n, 2, replace=False)
-        fr.append(int(a))
-        to.append(int(b))
-    nodes = n
-    F: list[int] = []
-    T: list[int] = []
-    for a, b in zip(fr, to):
-        pieces = int(rng.integers(1, 5))
-        prev = a
-        for _ in range(pieces - 1):
-            F.append(prev)
-            T.append(nodes)
-            prev = nodes
-            nodes += 1
-        F.append(prev)
-        T.append(b)
-    for _ in range(int(rng.integers(0, n))):
-        at = int(rng.integers(0, nodes))
-        for _ in range(int(rng.integers(1, 4))):
-            F.append(at)
-            T.append(nodes)
-            at = nodes
-            nodes += 1
-    # some links drawn against the chain direction
-    F_arr, T_arr = np.array(F), np.array(T)
-    flip = rng.random(len(F)) < 0.3
-    F_arr[flip], T_arr[flip] = T_arr[flip], F_arr[flip]
-    nl = len(F_arr)
-    fixed = np.full(nodes, np.nan)
-    fixed[0] = 60 + 40 * rng.random()
-    if n > 6 and rng.random() < 0.5:
-        fixed[n - 1] = 50 + 40 * rng.random()
-    elev = 20 * rng.random(nodes)
-    demand = np.where(np.isnan(fixed) & (rng.random(nodes) < 0.6),
-                      rng.random(nodes) * 0.004, 0.0)
-    diam = rng.choice([4, 6, 8, 12, 16], nl) * 0.0254
-    return Network.from_arrays(
-        node_id=[f"n{i}" for i in range(nodes)], link_id=[f"l{i}" for i in range(nl)],
-        from_idx=F_arr, to_idx=T_arr, fixed_head_m=fixed, elevation_m=elev,
-        demand_m3s=demand, length_m=20 + 300 * rng.random(nl), diameter_m=diam,
-        roughness=rng.uniform(60, 150, nl))
-
-
-def with_draw(r, k, q):
-    d = r.demand_m3s.copy()
-    d[k] += q
-    return dataclasses.replace(r, demand_m3s=d)
 
 
 def setup(seed, n):
@@ -89,54 +28,6 @@ def setup(seed, n):
     rs = ReducedDrawSolver(system, base)
     assert rs.usable, rs.why_not
     return network, system, base, rs
-
-
-@settings(max_examples=30, deadline=None, derandomize=True, database=None)
-@given(seed=st.integers(0, 10**6), n=st.integers(3, 30), pick=st.integers(0, 10**6),
-       frac=st.floats(0.05, 0.8))
-def test_pinned_draw_matches_full_newton_and_conserves(seed, n, pick, frac):
-    network, system, base, rs = setup(seed, n)
-    free = np.flatnonzero(~network.is_fixed)
-    k = int(free[pick % len(free)])
-    head = base.head_m[k] - frac * (base.head_m[k] - network.elevation_m[k] + 5.0)
-    full = system.solve(pin_idx=np.array([k]), pin_head_m=np.array([head]), warm=base,
-                        raise_on_failure=False)
-    assume(full.converged)
-    out = rs.solve(k, "head", head)
-    assert out.success, out.message
-    assert rs.fallbacks == 0  # answered on the reduced network
-    r = out.result
-    np.testing.assert_allclose(r.head_m, full.head_m, atol=1e-6)
-    np.testing.assert_allclose(r.flow_m3s, full.flow_m3s, atol=1e-7)
-    assert r.head_m[k] == pytest.approx(head, abs=1e-8)
-    draw = r.extra["draw_m3s"]
-    assert draw == pytest.approx(full.node_inflow_m3s[k] - full.demand_m3s[k], rel=1e-6,
-                                 abs=1e-10)
-    assert_physics(network, with_draw(r, k, draw), mass_tol=1e-8, head_tol=1e-6)
-    supply = -r.node_inflow_m3s[network.is_fixed].sum()
-    assert supply == pytest.approx(network.demand_m3s.sum() + draw, rel=1e-7, abs=1e-10)
-
-
-@settings(max_examples=20, deadline=None, derandomize=True, database=None)
-@given(seed=st.integers(0, 10**6), n=st.integers(3, 30), pick=st.integers(0, 10**6),
-       q=st.floats(0.001, 0.04))
-def test_given_draw_matches_full_newton_with_demand(seed, n, pick, q):
-    network, system, base, rs = setup(seed, n)
-    free = np.flatnonzero(~network.is_fixed)
-    k = int(free[pick % len(free)])
-    demand = network.demand_m3s.copy()
-    demand[k] += q
-    full = system.solve(demand_m3s=demand, warm=base, raise_on_failure=False)
-    assume(full.converged)
-    out = rs.solve(k, "draw", q)
-    assert out.success, out.message
-    assert rs.fallbacks == 0
-    r = out.result
-    np.testing.assert_allclose(r.head_m, full.head_m, atol=1e-6)
-    np.testing.assert_allclose(r.flow_m3s, full.flow_m3s, atol=1e-7)
-    assert_physics(network, with_draw(r, k, q), mass_tol=1e-8, head_tol=1e-6)
-    r2 = rs.solve(k, "draw", q, start=rs.blend(r, 0.5)).result
-    np.testing.assert_allclose(r2.head_m, full.head_m, atol=1e-6)
 
 
 def test_reduction_of_a_hand_counted_network():
@@ -205,21 +96,6 @@ def test_hands_over_what_it_does_not_hold():
     system = HydraulicSystem(dw, TIGHT)
     rs = ReducedDrawSolver(system, system.solve())
     assert not rs.usable and "Darcy-Weisbach" in rs.why_not
-
-
-@settings(max_examples=25, deadline=None, derandomize=True, database=None)
-@given(seed=st.integers(0, 10**6), n=st.integers(4, 30), pick=st.integers(0, 10**6),
-       frac=st.floats(0.1, 0.7))
-def test_limit_node_recovers_the_pinned_solution(seed, n, pick, frac):
-    # pin k, read another node c's head; holding c at that head gives back the same draw
-    network, system, base, rs = setup(seed, n)
-    case = pin_then_hold(network, system, base, pick, frac)
-    assume(case is not None)
-    k, c, head, full = case
-    pinned = rs.solve(k, "head", head).result
-    out = rs.solve(k, "limit", full.head_m[c], limit_node=c, start=rs.blend(pinned, 0.7))
-    assert out.success, out.message
-    assert_held(network, out.result, k, c, head, full)
 
 
 def test_limit_on_nodes_of_every_kind_without_falling_back():
