@@ -6,7 +6,8 @@ Modules: ``headloss`` (friction laws), ``links`` (every link's law), ``sparse`` 
 pattern factorization), ``assembly`` (head matrix and residuals, shared by every solve and
 check), ``status`` (device statuses, supplied nodes, zones a shut device leaves dry),
 ``system`` (the steady solve), ``regulating`` (regulating-valve flows), ``draw`` (draw solves
-near a base state), ``pdd`` (pressure-driven demand), ``results`` (options and results).
+near a base state), ``reduction`` (the network reduced to its looped core), ``reduced`` (draw
+solves on it: fire flow), ``pdd`` (pressure-driven demand), ``results`` (options and results).
 """
 
 from gridflow.hydraulics.assembly import Residuals
