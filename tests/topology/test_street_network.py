@@ -196,3 +196,52 @@ def test_solved_street_town_obeys_mass_and_head_loss(town, cleaned):
     assert np.median(r.head_m[harbour]) < np.median(r.head_m[central])
     pipes = net.link_kind == LINK_PIPE
     assert np.all(np.isfinite(r.flow_m3s[pipes]))
+
+
+def test_fire_draws_on_the_reduced_street_town_equal_full_newton(town, cleaned):
+    # the fire-flow solver on real street geometry (bridges, tunnels, near misses, PRVs in
+    # their own layer, a booster digitised against the flow): pinned draws at hydrant nodes of
+    # every zone, answered on the reduced network where no status changes, equal full Newton
+    # solves of the whole network, with mass and head loss balanced by the published formulas
+    from gridflow.demand import allocate, scenario_network
+    from gridflow.hydraulics import HydraulicSystem, SolveOptions
+    from gridflow.hydraulics.reduced import ReducedDrawSolver
+    from tests.hydraulics.netbuild import assert_physics, with_draw
+
+    cfg, _, cn = cleaned
+    alloc = allocate(cfg, cn, Findings())
+    net = scenario_network(cfg, cn, alloc, "max_day")
+    opts = SolveOptions(head_tolerance=1e-8, flow_tolerance=1e-9)
+    system = HydraulicSystem(net, opts)
+    base = system.solve()
+    hyd_nodes = np.unique(cn.hydrants["node_idx"].to_numpy(dtype=np.int64))
+    rs = ReducedDrawSolver(system, base, keep=hyd_nodes)
+    assert rs.usable, rs.why_not
+    assert len(rs.pump_groups) >= 1  # the booster runs
+    # the reduction is a real one: far fewer core nodes than nodes
+    assert rs.K < net.n_nodes / 2
+    from gridflow.units import M_HEAD_PER_PSI
+
+    picks = hyd_nodes[np.linspace(0, len(hyd_nodes) - 1, 30).astype(int)]
+    compared, zones = 0, set()
+    for k in picks:
+        if not base.supplied[k] or net.is_fixed[k]:
+            continue
+        # 20 psi above ground (NFPA 291's rating residual), or 5 m less than static
+        head = max(net.elevation_m[k] + 20 * M_HEAD_PER_PSI, base.head_m[k] - 5.0)
+        if head >= base.head_m[k]:
+            continue
+        full = system.solve(pin_idx=np.array([k]), pin_head_m=np.array([head]), warm=base,
+                            raise_on_failure=False)
+        if not full.converged or not (full.link_state == base.link_state).all():
+            continue
+        n0 = rs.fallbacks
+        out = rs.solve(int(k), "head", float(head))
+        assert out.success and rs.fallbacks == n0, out.message
+        r = out.result
+        np.testing.assert_allclose(r.head_m[r.supplied], full.head_m[r.supplied], atol=1e-5)
+        np.testing.assert_allclose(r.flow_m3s, full.flow_m3s, atol=1e-7)
+        assert_physics(net, with_draw(r, k, r.extra["draw_m3s"]), mass_tol=1e-7, head_tol=1e-5)
+        compared += 1
+        zones.add(str(net.zone[k]))
+    assert compared >= 6 and len(zones) >= 2
