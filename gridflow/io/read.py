@@ -38,6 +38,7 @@ from gridflow.findings import Findings
 from gridflow.io.codes import coded_texts
 from gridflow.io.layerinfo import LayerInfo
 from gridflow.io.paths import require_regular_file
+from gridflow.memory import gc_paused
 
 __all__ = ["LayerInfo", "ReadResult", "ID_COLUMN", "LAYER_COLUMN", "inspect_inputs",
            "working_crs", "read_inputs", "shared_locks"]
@@ -222,7 +223,7 @@ def read_inputs(cfg, findings: Findings) -> ReadResult:
     paths = sorted({cfg.resolve(cfg.inputs[sec.input]) for r in ROLES
                     for sec in layer_sections(cfg.layers, r)
                     if not is_database(cfg.inputs[sec.input])})
-    with shared_locks(paths), snapshots(cfg):
+    with shared_locks(paths), snapshots(cfg), gc_paused():  # see gridflow.memory
         all_infos = inspect_layers(cfg)
         infos = {role: v[0] for role, v in all_infos.items()}
         crs = working_crs(cfg, infos, findings)

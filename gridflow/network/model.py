@@ -366,13 +366,20 @@ def _positions(all_ids: np.ndarray, ids, what: str) -> np.ndarray:
 def _text(values) -> np.ndarray:
     """``values`` as an object array of ``str`` (``str(v)`` of each value)."""
     a = np.asarray(values)
-    if a.dtype == object and all(type(v) is str for v in a.tolist()):
+    if a.dtype == object and _all_str(a.tolist()):
         return a.copy()  # already text: skips a round trip through fixed-width unicode
     return a.astype(str).astype(object)
 
 
+def _all_str(values: list) -> bool:
+    """True when every value is a ``str`` (not a subclass); one pass in C."""
+    return set(map(type, values)) <= {str}
+
+
 def _unique(ids: np.ndarray, what: str) -> None:
-    if len(set(map(str, ids.tolist()))) == len(ids):  # the usual case: one hash pass
+    vals = ids.tolist()
+    text = vals if _all_str(vals) else map(str, vals)
+    if len(set(text)) == len(ids):  # the usual case: one hash pass
         return
     uniq, counts = np.unique(ids.astype(str), return_counts=True)
     if (counts > 1).any():

@@ -34,7 +34,7 @@ import numpy as np
 from gridflow.findings import Findings
 from gridflow.io.dem import sample_dem
 from gridflow.io.read import ReadResult, read_inputs
-from gridflow.memory import release_memory
+from gridflow.memory import gc_paused, release_memory
 from gridflow.topology.assemble import assemble
 from gridflow.topology.attach import attach_points
 from gridflow.topology.clean import CleanNetwork
@@ -78,6 +78,12 @@ def build_network(cfg, findings: Findings, *, read: ReadResult | None = None,
     TopologyError
         No usable main left.
     """
+    with gc_paused():  # the stages make millions of geometries (see gridflow.memory)
+        return _build(cfg, findings, read, timings)
+
+
+def _build(cfg, findings: Findings, read: ReadResult | None,
+           timings: dict[str, float] | None) -> CleanNetwork:
     clock = _StageClock(timings)
     rr = read if read is not None else clock.lap("read", read_inputs(cfg, findings))
     release_memory()  # the reader's Arrow buffers

@@ -16,7 +16,7 @@ __all__ = ["as_text", "all_distinct", "suffixed"]
 def as_text(ids) -> np.ndarray:
     """``ids`` as an object array of ``str`` (``str(v)`` of each value; a copy)."""
     a = np.asarray(ids)
-    if a.dtype == object and all(type(v) is str for v in a.tolist()):
+    if a.dtype == object and set(map(type, a.tolist())) <= {str}:  # one pass in C
         return a.copy()
     return a.astype(str).astype(object)
 

@@ -111,10 +111,26 @@ def nearest_lines(tree: shapely.STRtree, lines: np.ndarray, pts: np.ndarray,
 
 
 def widened_boxes(geoms: np.ndarray, r: float) -> np.ndarray:
-    """Each geometry's bounding box widened by ``r`` [m] on every side (None for a missing
-    or empty geometry): an STRtree query with these finds every line within ``r``."""
+    """A geometry whose envelope is each geometry's bounding box widened by ``r`` [m] on
+    every side (None for a missing or empty geometry): an STRtree query with these finds
+    every line within ``r``.
+
+    Notes
+    -----
+    The tree compares envelopes only, so the box's diagonal (a two-point line) stands for
+    the box: the same pairs, and GEOS makes a line about twice as fast as a polygon.
+    """
     b = shapely.bounds(geoms)
-    return shapely.box(b[:, 0] - r, b[:, 1] - r, b[:, 2] + r, b[:, 3] + r)
+    n = len(b)
+    corners = np.empty((n, 2, 2))
+    corners[:, 0] = b[:, :2] - r
+    corners[:, 1] = b[:, 2:] + r
+    ok = np.isfinite(b).all(axis=1)
+    out = np.full(n, None, dtype=object)
+    if ok.all():
+        return shapely.linestrings(corners)
+    out[ok] = shapely.linestrings(corners[ok])
+    return out
 
 
 def _pairs_within(tree: shapely.STRtree, lines: np.ndarray, pts: np.ndarray,
