@@ -19,7 +19,7 @@ from gridflow.topology.clean import CleanNetwork
 from gridflow.topology.links import CLOSED_WORDS
 from gridflow.topology.points import column
 from gridflow.topology.records import Attached, Context, LinkTable, NodeTable
-from gridflow.topology.zones import zones_and_parts
+from gridflow.topology.zones import zone_names
 
 __all__ = ["assemble"]
 
@@ -33,8 +33,9 @@ def assemble(ctx: Context, at: Attached, nt: NodeTable, lt: LinkTable, elev: np.
     nn = len(nt.keys)
     zone_mapped = "zone" in cfg.layers.pipes.fields or (
         cfg.layers.nodes is not None and "zone" in cfg.layers.nodes.fields)
-    zone = zones_and_parts(nn, c["from"], c["to"], c["kind"], c["status"], c["vt"],
-                           c["speed"], c["zone"], nt.zone, zone_mapped)
+    zone_name, zone_of = zone_names(nn, c["from"], c["to"], c["kind"], c["status"], c["vt"],
+                                    c["speed"], c["zone"], nt.zone, zone_mapped)
+    zone = zone_name[zone_of] if nn else np.zeros(0, dtype=object)
     net = Network.from_arrays(
         node_id=nt.node_id, link_id=c["link_id"], from_idx=c["from"], to_idx=c["to"],
         elevation_m=elev, fixed_head_m=nt.fixed_head_m, node_kind=nt.kind, zone=zone,
@@ -46,12 +47,13 @@ def assemble(ctx: Context, at: Attached, nt: NodeTable, lt: LinkTable, elev: np.
     crs = ctx.crs
     node_pts = _node_points(at, nt)
     nodes_gdf = gpd.GeoDataFrame(
-        {"node_id": net.node_id, "kind": np.asarray(NODE_KINDS, dtype=object)[net.node_kind],
-         "zone": net.zone}, geometry=node_pts, crs=crs)
+        {"node_id": net.node_id, "kind": _text_of_codes(NODE_KINDS, net.node_kind),
+         "zone": _text_of_codes(zone_name, zone_of)},
+        geometry=node_pts, crs=crs)
     year = c["year"]
     links_gdf = gpd.GeoDataFrame(
         {"pipe_id": net.link_id,
-         "kind": np.asarray(LINK_KINDS, dtype=object)[net.link_kind],
+         "kind": _text_of_codes(LINK_KINDS, net.link_kind),
          "material": pd.array(c["material"], dtype="string"),
          "install_year": pd.array(np.where(np.isfinite(year), np.round(year), np.nan),
                                   dtype="Int64"),
@@ -64,6 +66,19 @@ def assemble(ctx: Context, at: Attached, nt: NodeTable, lt: LinkTable, elev: np.
     return CleanNetwork(network=net, nodes=nodes_gdf, links=links_gdf,
                         hydrants=_hydrants_frame(at, nt, net, crs), meters=meters, crs=crs,
                         inputs=list(ctx.read.files), elevation_guessed=guessed)
+
+
+def _text_of_codes(names, codes: np.ndarray) -> pd.api.extensions.ExtensionArray:
+    """``names[codes]`` as pandas' text type (what a column of Python strings becomes),
+    made by Arrow's take: a few names spread over a million rows without a str per row.
+    No rows: an object array, as pandas makes of an empty column."""
+    import pyarrow as pa
+
+    if len(codes) == 0:
+        return np.zeros(0, dtype=object)
+    arr = pa.array([str(x) for x in names], type=pa.large_string()).take(
+        pa.array(np.asarray(codes, dtype=np.int64)))
+    return pd.array(arr, dtype=pd.StringDtype("pyarrow", na_value=np.nan))
 
 
 def _node_points(at: Attached, nt: NodeTable) -> np.ndarray:

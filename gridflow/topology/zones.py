@@ -18,7 +18,7 @@ import shapely
 from gridflow.findings import Findings
 from gridflow.network import LINK_PUMP, NODE_JUNCTION, STATUS_CLOSED, VALVE_PRESSURE_REDUCING
 
-__all__ = ["components", "zones_and_parts", "connectivity_findings", "supplied_nodes",
+__all__ = ["components", "zones_and_parts", "zone_names", "connectivity_findings", "supplied_nodes",
            "NetworkParts", "network_parts"]
 
 
@@ -56,6 +56,14 @@ def components(n: int, a: np.ndarray, b: np.ndarray) -> np.ndarray:
 def zones_and_parts(n: int, frm, to, kind, status, valve_type, speed, link_zone, node_zone,
                     zone_mapped: bool) -> np.ndarray:
     """Zone name per node (see the module notes)."""
+    names, comp = zone_names(n, frm, to, kind, status, valve_type, speed, link_zone, node_zone,
+                             zone_mapped)
+    return names[comp] if n else np.zeros(0, dtype=object)
+
+
+def zone_names(n: int, frm, to, kind, status, valve_type, speed, link_zone, node_zone,
+               zone_mapped: bool) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`zones_and_parts` as the names of the zones and each node's zone (position)."""
     inner = ((status != STATUS_CLOSED) & (valve_type != VALVE_PRESSURE_REDUCING)
              & (kind != LINK_PUMP))
     comp = components(n, frm[inner], to[inner])
@@ -74,7 +82,7 @@ def zones_and_parts(n: int, frm, to, kind, status, valve_type, speed, link_zone,
             names[best["comp"].to_numpy()] = best["zone"].astype(str).to_numpy()
     gen = names == None  # noqa: E711
     names[gen] = [f"zone_{i + 1}" for i in range(int(gen.sum()))]
-    return names[comp] if n else np.zeros(0, dtype=object)
+    return names, comp
 
 
 def supplied_nodes(net, parts: NetworkParts | None = None) -> np.ndarray:
