@@ -30,6 +30,11 @@ log = logging.getLogger("gridflow")
 ROUTINE_SEVERITY: Severity = "info"  # a routine fact: counted, not a row of the run's layer
 
 
+def _all_str(values: list) -> bool:
+    """True when every value is a ``str`` (not a subclass); one pass in C."""
+    return set(map(type, values)) <= {str}
+
+
 @dataclass
 class Findings:
     """An append-only log of findings, column-wise.
@@ -73,8 +78,12 @@ class Findings:
         self.kind.extend([kind] * n)
         self.severity.extend([severity] * n)
         self.layer.extend([layer] * n)
-        self.feature_id.extend("" if f is None else str(f) for f in feature_ids)
-        self.message.extend(str(m) for m in messages)
+        fids = feature_ids.tolist() if isinstance(feature_ids, np.ndarray) else list(feature_ids)
+        msgs = messages.tolist() if isinstance(messages, np.ndarray) else list(messages)
+        # the usual case, every id and message a str already: no conversion per row
+        self.feature_id.extend(fids if _all_str(fids) else
+                               ("" if f is None else str(f) for f in fids))
+        self.message.extend(msgs if _all_str(msgs) else (str(m) for m in msgs))
         self.geometry.extend(list(geometries))
         level = {"info": logging.DEBUG, "warning": logging.INFO, "error": logging.WARNING}
         log.log(level[severity], "%d finding(s) %s on %s", n, kind, layer)

@@ -8,7 +8,7 @@ import pandas as pd
 from gridflow.config.layers import CODE_DEFAULTS, CODE_TARGETS
 from gridflow.findings import Findings
 
-__all__ = ["coded_texts"]
+__all__ = ["coded_texts", "coded_text_parts"]
 
 
 def coded_texts(col: pd.Series, role: str, role_name: str, codes: dict | None, ids, info,
@@ -17,6 +17,13 @@ def coded_texts(col: pd.Series, role: str, role_name: str, codes: dict | None, i
     direction: one that maps to none of :data:`CODE_TARGETS`; for other fields with a codes
     table: one missing from it) is one warning finding per distinct value, with its count,
     and takes the field's default treatment (:data:`CODE_DEFAULTS`; others keep the value)."""
+    return coded_text_parts(col, role, role_name, codes, ids, info, findings, fname)[0]
+
+
+def coded_text_parts(col: pd.Series, role: str, role_name: str, codes: dict | None, ids, info,
+                     findings: Findings, fname: str = ""):
+    """:func:`coded_texts`, and the same values as distinct texts and a position per row:
+    ``(values, texts, code)``, ``values[i] = texts[code[i]]`` (None where ``code[i] < 0``)."""
     # the work below runs once per distinct value (a coded field holds a few), then the
     # answers are spread back to the rows by their factor codes
     if col.dtype == object:  # mixed Python values: 1 and 1.0 hash alike but read apart
@@ -72,4 +79,7 @@ def coded_texts(col: pd.Series, role: str, role_name: str, codes: dict | None, i
              for v, c in zip(vals.tolist(), counts.tolist())])
         if targets is not None:
             out[bad] = default
-    return out
+    final_u = np.asarray(out_u, dtype=object).copy()
+    if targets is not None and len(u):
+        final_u[bad_u] = default
+    return out, final_u, np.where(missing, -1, row_code)

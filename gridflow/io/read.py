@@ -35,7 +35,7 @@ from gridflow.config.layers import (
 )
 from gridflow.errors import ConfigError, InputError
 from gridflow.findings import Findings
-from gridflow.io.codes import coded_texts
+from gridflow.io.codes import coded_text_parts
 from gridflow.io.layerinfo import LayerInfo
 from gridflow.io.paths import require_regular_file
 from gridflow.memory import gc_paused
@@ -430,8 +430,10 @@ def _read_role(cfg, role: str, sec, info: LayerInfo, crs, findings: Findings):
                              layer=info.layer)
         findings.add("empty_layer", "warning", info.layer, "",
                      f"layer {info.layer!r} ({info.key}.layer) has {what}")
-    ids = _ids(gdf[sec.id], role, info, findings)
+    ids, id_column = _id_texts(gdf[sec.id], role, info, findings)
     data = {ID_COLUMN[role]: ids}
+    # the frame's text columns made from Arrow where it holds them (see _arrow_text)
+    columns = {ID_COLUMN[role]: id_column}
     for role_name, fname in sec.fields.items():
         col = gdf[fname]
         if role_name == "direction" and sec.units.get("direction", "").lower() in BEARING_UNITS:
@@ -445,8 +447,9 @@ def _read_role(cfg, role: str, sec, info: LayerInfo, crs, findings: Findings):
                 factor = 1.0  # PRV settings are pressures, throttle settings K: below
             data[role_name] = vals * factor
         else:
-            data[role_name] = coded_texts(col, role, role_name, sec.codes.get(role_name), ids,
-                                          info, findings, fname)
+            data[role_name], texts, code = coded_text_parts(
+                col, role, role_name, sec.codes.get(role_name), ids, info, findings, fname)
+            columns[role_name] = _text_column(texts, code)
     if role == "valves" and "setting" in data and "type" in data:
         prv = np.asarray(data["type"], dtype=object) == "prv"
         fac = unit_factor("valves", "setting", sec.units.get("setting"),
@@ -457,7 +460,11 @@ def _read_role(cfg, role: str, sec, info: LayerInfo, crs, findings: Findings):
     geoms = np.asarray(gdf.geometry.values, dtype=object)
     keep = ~check_layer(cfg, role, sec, info, data, ids, geoms, findings)
     data[LAYER_COLUMN] = np.full(len(ids), info.layer, dtype=object)
-    frame = gpd.GeoDataFrame(data, geometry=gdf.geometry.values, crs=gdf.crs)
+    columns[LAYER_COLUMN] = _text_column(np.array([info.layer], dtype=object),
+                                         np.zeros(len(ids), np.int64))
+    frame = gpd.GeoDataFrame({k: v if columns.get(k) is None else columns[k]
+                              for k, v in data.items()}, geometry=gdf.geometry.values,
+                             crs=gdf.crs)
     if not keep.all():
         frame = frame[keep].reset_index(drop=True)
         ids = ids[keep]
@@ -477,6 +484,13 @@ def _read_role(cfg, role: str, sec, info: LayerInfo, crs, findings: Findings):
 
 def _ids(col: pd.Series, role: str, info: LayerInfo, findings: Findings) -> np.ndarray:
     """Feature ids as text; missing ids get ``<layer>:<row>``, repeated ids a ``#k`` suffix."""
+    return _id_texts(col, role, info, findings)[0]
+
+
+def _id_texts(col: pd.Series, role: str, info: LayerInfo, findings: Findings):
+    """:func:`_ids`, and the ids as the frame's text column when Arrow holds them as they
+    are (text as read, none missing or repeated; else None)."""
+    column = None
     vals = col.to_numpy()
     if col.dtype.kind == "f":
         finite = np.isfinite(vals)
@@ -487,7 +501,9 @@ def _ids(col: pd.Series, role: str, info: LayerInfo, findings: Findings) -> np.n
     else:
         missing = pd.isna(col).to_numpy().copy()
         if isinstance(col.dtype, pd.StringDtype):  # text as read through Arrow: trimmed there
-            txt = col.str.strip().to_numpy(dtype=object, na_value="")
+            stripped = col.str.strip()
+            txt = stripped.to_numpy(dtype=object, na_value="")
+            column = _arrow_text(stripped.array)
         elif col.dtype.kind in "iu":
             txt = vals.astype(str).astype(object)
         else:
@@ -498,8 +514,9 @@ def _ids(col: pd.Series, role: str, info: LayerInfo, findings: Findings) -> np.n
         txt[rows] = [f"{info.layer}:{r}" for r in rows]
         findings.add_many("missing_id", "warning", info.layer, txt[rows],
                           f"feature without {role[:-1]} id; named by its row")
+        column = None
     if len(set(txt.tolist())) == len(txt):  # the usual case: one hash pass, no repeats
-        return txt
+        return txt, column
     s = pd.Series(txt)
     k = s.groupby(s, sort=False).cumcount().to_numpy()
     if (k > 0).any():
@@ -508,7 +525,39 @@ def _ids(col: pd.Series, role: str, info: LayerInfo, findings: Findings) -> np.n
                           [f"id {t!r} is used more than once; this copy renamed "
                            f"{t}#{kk + 1}" for t, kk in zip(txt[rows], k[rows])])
         txt[rows] = [f"{t}#{kk + 1}" for t, kk in zip(txt[rows], k[rows])]
-    return txt
+    return txt, None
+
+
+def _arrow_text(values):
+    """Arrow-held text as the column pandas makes of the same Python strings (its text type
+    on ``large_string``), or None when that is not what pandas would make (no value at all,
+    an empty column) or Arrow does not hold it."""
+    import pyarrow as pa
+
+    arr = getattr(values, "_pa_array", None)
+    if arr is None or len(arr) == 0 or arr.null_count == len(arr):
+        return None
+    if not (pa.types.is_string(arr.type) or pa.types.is_large_string(arr.type)):
+        return None
+    arr = arr.cast(pa.large_string())
+    return pd.array(arr, dtype=pd.StringDtype("pyarrow", na_value=np.nan))
+
+
+def _text_column(texts: np.ndarray, code: np.ndarray):
+    """``texts[code]`` (None where ``code < 0``) as the column pandas makes of such Python
+    strings, by Arrow's take (a few distinct texts over many rows); None when pandas would
+    make something else of them (no text at all, or not every value a str)."""
+    import pyarrow as pa
+
+    code = np.asarray(code, dtype=np.int64)
+    valid = code >= 0
+    vals = np.asarray(texts, dtype=object).tolist()
+    if not valid.any() or not set(map(type, vals)) <= {str, type(None)}:
+        return None
+    arr = pa.array(vals, type=pa.large_string()).take(pa.array(code, mask=~valid))
+    if arr.null_count == len(arr):
+        return None
+    return pd.array(arr, dtype=pd.StringDtype("pyarrow", na_value=np.nan))
 
 
 def _numbers(col: pd.Series, ids: np.ndarray, info: LayerInfo, fname: str) -> np.ndarray:

@@ -186,7 +186,7 @@ def _hydrant_events(ctx, sn, tree, glen, keys, hyd, t_line, t_key, t_s):
     far = dist > tol
     f.add_many("hydrant_attached", "info", layer, ids[pi[far]],
                [f"attached to main {m} {x:.2f} m away" for m, x in
-                zip(sn.ids[li[far]], dist[far])], pts[pi[far]])
+                zip(sn.ids[li[far]].tolist(), dist[far].tolist())], pts[pi[far]])
     s = shapely.line_locate_point(sn.geoms[li], pts[pi])
     L = glen[li]
     at0, at1 = s <= tol, s >= L - tol

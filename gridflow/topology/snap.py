@@ -75,7 +75,7 @@ def snap_ends(ctx: Context, pipes: Pipes) -> Snapped:
         np.minimum.at(first, lab2, np.arange(2 * n) % n)
         f.add_many("end_snapped", "info", layer, ids[first[cl]],
                    [f"{c} pipe ends joined; an end moved {d:.2f} m" for c, d in
-                    zip(k[cl], dmax[cl])], cpts[cl])
+                    zip(k[cl].tolist(), dmax[cl].tolist())], cpts[cl])
         geoms = set_end_points(geoms, cxy[lab_s], cxy[lab_e])
     # z at clusters, for elevation source z
     cluster_z = np.full(len(cxy), np.nan)
