@@ -433,7 +433,7 @@ def _read_role(cfg, role: str, sec, info: LayerInfo, crs, findings: Findings):
     ids, id_column = _id_texts(gdf[sec.id], role, info, findings)
     data = {ID_COLUMN[role]: ids}
     # the frame's text columns made from Arrow where it holds them (see _arrow_text)
-    columns = {ID_COLUMN[role]: id_column}
+    text_cols: dict = {ID_COLUMN[role]: id_column}
     for role_name, fname in sec.fields.items():
         col = gdf[fname]
         if role_name == "direction" and sec.units.get("direction", "").lower() in BEARING_UNITS:
@@ -449,7 +449,7 @@ def _read_role(cfg, role: str, sec, info: LayerInfo, crs, findings: Findings):
         else:
             data[role_name], texts, code = coded_text_parts(
                 col, role, role_name, sec.codes.get(role_name), ids, info, findings, fname)
-            columns[role_name] = _text_column(texts, code)
+            text_cols[role_name] = _text_column(texts, code)
     if role == "valves" and "setting" in data and "type" in data:
         prv = np.asarray(data["type"], dtype=object) == "prv"
         fac = unit_factor("valves", "setting", sec.units.get("setting"),
@@ -460,9 +460,9 @@ def _read_role(cfg, role: str, sec, info: LayerInfo, crs, findings: Findings):
     geoms = np.asarray(gdf.geometry.values, dtype=object)
     keep = ~check_layer(cfg, role, sec, info, data, ids, geoms, findings)
     data[LAYER_COLUMN] = np.full(len(ids), info.layer, dtype=object)
-    columns[LAYER_COLUMN] = _text_column(np.array([info.layer], dtype=object),
+    text_cols[LAYER_COLUMN] = _text_column(np.array([info.layer], dtype=object),
                                          np.zeros(len(ids), np.int64))
-    frame = gpd.GeoDataFrame({k: v if columns.get(k) is None else columns[k]
+    frame = gpd.GeoDataFrame({k: v if text_cols.get(k) is None else text_cols[k]
                               for k, v in data.items()}, geometry=gdf.geometry.values,
                              crs=gdf.crs)
     if not keep.all():
@@ -491,8 +491,8 @@ def _id_texts(col: pd.Series, role: str, info: LayerInfo, findings: Findings):
     """:func:`_ids`, and the ids as the frame's text column when Arrow holds them as they
     are (text as read, none missing or repeated; else None)."""
     column = None
-    vals = col.to_numpy()
     if col.dtype.kind == "f":
+        vals = col.to_numpy()
         finite = np.isfinite(vals)
         whole = finite & (np.floor(np.where(finite, vals, 0)) == np.where(finite, vals, 0))
         txt = np.where(whole, np.where(finite, vals, 0).astype(np.int64).astype(str),
@@ -505,7 +505,7 @@ def _id_texts(col: pd.Series, role: str, info: LayerInfo, findings: Findings):
             txt = stripped.to_numpy(dtype=object, na_value="")
             column = _arrow_text(stripped.array)
         elif col.dtype.kind in "iu":
-            txt = vals.astype(str).astype(object)
+            txt = col.to_numpy().astype(str).astype(object)
         else:
             txt = np.array([str(t).strip() for t in col.to_numpy(dtype=object)], dtype=object)
         missing |= txt == ""

@@ -186,10 +186,14 @@ class Network:
         pump_h2=None,
         pump_speed=None,
         headloss_model: HeadlossModel = "hazen-williams",
+        ids_unique: bool = False,
     ) -> Network:
         """Make a validated network, filling defaults for arrays not given.
 
         ``node_kind`` defaults to source where ``fixed_head_m`` is finite, junction elsewhere.
+        ``ids_unique=True``: the caller has already made the node ids and the link ids unique
+        as text (the topology does, with one hash pass each), so :meth:`validate` skips its
+        own pass over them; every other check runs.
         """
         node_id = _text(node_id)
         link_id = _text(link_id)
@@ -222,7 +226,7 @@ class Network:
             pump_speed=_f(pump_speed, nl, 1.0),
             headloss_model=headloss_model,
         )
-        net.validate()
+        net.validate(ids_unique=ids_unique)
         return net
 
     def replace(self, **changes) -> Network:
@@ -254,8 +258,9 @@ class Network:
         return _positions(self.link_id, ids, "link")
 
     # ------------------------------------------------------------------ validation
-    def validate(self) -> None:
-        """Check shapes and physically impossible values.
+    def validate(self, *, ids_unique: bool = False) -> None:
+        """Check shapes and physically impossible values (``ids_unique``: the ids are known
+        to be unique already; see :meth:`from_arrays`).
 
         Raises
         ------
@@ -276,8 +281,9 @@ class Network:
         if self.headloss_model not in ("hazen-williams", "darcy-weisbach"):
             raise NetworkError(f"unknown head-loss model {self.headloss_model!r}; expected "
                                "'hazen-williams' or 'darcy-weisbach'", field="headloss_model")
-        _unique(self.node_id, "node")
-        _unique(self.link_id, "link")
+        if not ids_unique:
+            _unique(self.node_id, "node")
+            _unique(self.link_id, "link")
         for name in ("from_idx", "to_idx"):
             idx = getattr(self, name)
             bad = (idx < 0) | (idx >= nn)

@@ -43,7 +43,8 @@ def assemble(ctx: Context, at: Attached, nt: NodeTable, lt: LinkTable, elev: np.
         diameter_m=c["diameter"], roughness=c["rough"], minor_k=c["mk"],
         status=c["status"], valve_type=c["vt"], valve_setting=c["vs"], pump_h0=c["pa"],
         pump_h1=c["pb"], pump_h2=c["pc"], pump_speed=c["speed"],
-        headloss_model=cfg.run.headloss_model)
+        headloss_model=cfg.run.headloss_model,
+        ids_unique=nt.ids_distinct and lt.ids_distinct)  # shown by one pass each already
     crs = ctx.crs
     node_pts = _node_points(at, nt)
     nodes_gdf = gpd.GeoDataFrame(

@@ -26,7 +26,7 @@ from gridflow.network import (
     fit_pump_curve,
 )
 from gridflow.topology.idtext import as_text
-from gridflow.topology.nodes import unique_ids
+from gridflow.topology.nodes import unique_ids_checked
 from gridflow.topology.points import column
 from gridflow.topology.records import (
     Attached,
@@ -76,8 +76,8 @@ def link_table(ctx: Context, sn: Snapped, at: Attached, sp: Split, nt: NodeTable
         for k, v in _device_columns(ctx, sn, d, nt).items():
             cols[k].append(v)
     c = {k: np.concatenate(v) for k, v in cols.items()}
-    c["link_id"] = _link_ids(c["link_id"], c["kind"])
-    return LinkTable(cols=c)
+    c["link_id"], distinct = _link_ids_checked(c["link_id"], c["kind"])
+    return LinkTable(cols=c, ids_distinct=distinct)
 
 
 def _device_columns(ctx: Context, sn: Snapped, dev: Device, nt: NodeTable) -> dict:
@@ -167,7 +167,12 @@ def _device_columns(ctx: Context, sn: Snapped, dev: Device, nt: NodeTable) -> di
 
 def _link_ids(ids: np.ndarray, kind: np.ndarray) -> np.ndarray:
     """Link ids made unique: device ids that repeat a pipe id prefixed with their kind, then
-    any id still repeated suffixed (:func:`~gridflow.topology.nodes.unique_ids`).
+    any id still repeated suffixed (:func:`~gridflow.topology.nodes.unique_ids`)."""
+    return _link_ids_checked(ids, kind)[0]
+
+
+def _link_ids_checked(ids: np.ndarray, kind: np.ndarray) -> tuple[np.ndarray, bool]:
+    """:func:`_link_ids`, and whether the ids returned are shown distinct as text.
 
     Notes
     -----
@@ -177,7 +182,7 @@ def _link_ids(ids: np.ndarray, kind: np.ndarray) -> np.ndarray:
     """
     pipe = kind == LINK_PIPE
     if pipe.all():
-        return unique_ids(ids.astype(object))
+        return unique_ids_checked(ids.astype(object))
     pipe_text = as_text(ids[pipe])
     seen = set(pipe_text.tolist())
     dev = np.flatnonzero(~pipe)
@@ -190,5 +195,5 @@ def _link_ids(ids: np.ndarray, kind: np.ndarray) -> np.ndarray:
     dev_final = as_text(out[dev]).tolist()
     dev_set = set(dev_final)
     if len(seen) == len(pipe_text) and len(dev_set) == len(dev) and seen.isdisjoint(dev_set):
-        return out
-    return unique_ids(out)
+        return out, True
+    return unique_ids_checked(out)

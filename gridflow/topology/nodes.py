@@ -18,7 +18,7 @@ from gridflow.topology.pipes import z_factor
 from gridflow.topology.points import column, point_layer
 from gridflow.topology.records import Attached, Context, NodeTable, Snapped, Split
 
-__all__ = ["number_nodes"]
+__all__ = ["number_nodes", "unique_ids", "unique_ids_checked"]
 
 
 def number_nodes(ctx: Context, sn: Snapped, at: Attached, sp: Split) -> NodeTable:
@@ -75,14 +75,14 @@ def number_nodes(ctx: Context, sn: Snapped, at: Attached, sp: Split) -> NodeTabl
             elev[i] = el
     gen = node_id == None  # noqa: E711
     # generated ids never equal a taken one nor each other: only the taken ids can repeat
-    taken = unique_ids(node_id[~gen])
+    taken, distinct = unique_ids_checked(node_id[~gen])
     node_id[gen] = _generated_ids(node_id[~gen], int(gen.sum()))
     node_id[~gen] = taken
     standin = np.zeros(nn, bool)
     standin[idx_of_key[sorted(standin_keys)]] = True
     return NodeTable(keys=keys, idx_of_key=idx_of_key, xy=node_xy,
                      node_id=node_id, kind=kind, fixed_head_m=fixed_head,
-                     elevation_m=elev, standin=standin, zone=zone)
+                     elevation_m=elev, standin=standin, zone=zone, ids_distinct=distinct)
 
 
 def _generated_ids(taken: np.ndarray, n: int) -> np.ndarray:
@@ -221,16 +221,22 @@ def _split_point_elevations(sn: Snapped, at: Attached, elev: np.ndarray, idx_of_
 
 def unique_ids(ids: np.ndarray) -> np.ndarray:
     """Ids made unique with a '#k' suffix on repeats (repeats across layers)."""
+    return unique_ids_checked(ids)[0]
+
+
+def unique_ids_checked(ids: np.ndarray) -> tuple[np.ndarray, bool]:
+    """:func:`unique_ids`, and whether the ids were distinct as text already (the one case
+    where the answer is shown distinct: a suffixed id could still equal another id)."""
     import pandas as pd
 
     ids = np.asarray(ids)
     text = as_text(ids)
     if all_distinct(text):  # the usual case: one hash pass
-        return ids.astype(object)
+        return ids.astype(object), True
     s = pd.Series(text, dtype=object)
     k = s.groupby(s, sort=False).cumcount().to_numpy()
     if (k > 0).any():
         out = text  # a copy of the ids (a Series' array is read-only under copy-on-write)
         out[k > 0] = [f"{a}#{b + 1}" for a, b in zip(out[k > 0], k[k > 0])]
-        return out
-    return ids.astype(object)
+        return out, False
+    return ids.astype(object), False

@@ -141,6 +141,7 @@ class NodeTable:
     elevation_m: np.ndarray  # NaN where not known yet
     standin: np.ndarray  # bool: a source's elevation stands in for its head (no ground known)
     zone: np.ndarray  # zone named by the junction-point layer, or None
+    ids_distinct: bool = False  # node_id shown distinct as text (no need to check again)
 
 
 @dataclass(frozen=True)
@@ -148,3 +149,4 @@ class LinkTable:
     """Every link's columns (pipes, then each device layer), ready for the network arrays."""
 
     cols: dict  # name -> array (see :func:`gridflow.topology.links.link_table`)
+    ids_distinct: bool = False  # cols["link_id"] shown distinct as text
