@@ -55,15 +55,12 @@ def snap_labels(xy: np.ndarray, tolerance: float) -> np.ndarray:
     n = len(xy)
     if n == 0:
         return np.zeros(0, dtype=np.int64)
-    if tolerance > 0:
+    if tolerance > 0:  # pairs at distance <= r: exact duplicates among them
         pairs = cKDTree(xy).query_pairs(r=tolerance, output_type="ndarray")
-    else:
-        pairs = np.zeros((0, 2), dtype=np.int64)
-    # exact duplicates always join, whatever the tolerance
-    order = np.lexsort((xy[:, 1], xy[:, 0]))
-    same = np.all(xy[order[1:]] == xy[order[:-1]], axis=1)
-    dup = np.column_stack([order[:-1][same], order[1:][same]])
-    pairs = np.vstack([pairs, dup]) if len(dup) else pairs
+    else:  # exact duplicates always join, whatever the tolerance
+        order = np.lexsort((xy[:, 1], xy[:, 0]))
+        same = np.all(xy[order[1:]] == xy[order[:-1]], axis=1)
+        pairs = np.column_stack([order[:-1][same], order[1:][same]])
     g = coo_matrix((np.ones(len(pairs), dtype=np.int8), (pairs[:, 0], pairs[:, 1])),
                    shape=(n, n))
     _, labels = connected_components(g, directed=False)
@@ -133,22 +130,32 @@ def split_lines(lines: np.ndarray, ev_line: np.ndarray, ev_s: np.ndarray,
     pos_v = at[p_v] + has_start[p_v] + (np.arange(len(p_v)) - v_first[p_v])
     # positions along a line were compared in global units above: where that disagrees with
     # the local distance by a rounding (a vertex a hair before the event starting its piece),
-    # the general sort below orders the piece as the distances say
+    # the pieces concerned are sorted below as the distances say
+    xy = np.empty((int(size.sum()), 2))
+    xy[pos_v] = coords
+    xy[at[p_end + 1]] = ev_xy
+    xy[at[p_end] + size[p_end] - 1] = ev_xy
+    slot_piece = np.repeat(np.arange(n_all), size)
     starts = k_v > 0
     e_start = ev_before[vline[starts]] + k_v[starts] - 1
-    if np.all(t[starts] >= ev_s[e_start]):
-        xy = np.empty((int(size.sum()), 2))
-        xy[pos_v] = coords
-        xy[at[p_end + 1]] = ev_xy
-        xy[at[p_end] + size[p_end] - 1] = ev_xy
-        pieces = shapely.linestrings(xy, indices=np.repeat(np.arange(n_all), size))
-    else:
-        piece = np.concatenate([p_v, p_end, p_end + 1])
-        along = np.concatenate([t, ev_s, ev_s])
-        tie = np.concatenate([np.zeros(len(t)), np.ones(len(ev_s)), -np.ones(len(ev_s))])
-        xy = np.vstack([coords, ev_xy, ev_xy])
-        order = np.lexsort((tie, along, piece))
-        pieces = shapely.linestrings(xy[order], indices=piece[order])
+    if not np.all(t[starts] >= ev_s[e_start]):
+        # the pieces whose points are not in order of (distance, start event before vertices
+        # before end event) are sorted so; the rest are in that order already
+        along = np.empty(len(xy))
+        tie = np.zeros(len(xy))
+        along[pos_v] = t
+        along[at[p_end + 1]] = ev_s
+        tie[at[p_end + 1]] = -1.0
+        along[at[p_end] + size[p_end] - 1] = ev_s
+        tie[at[p_end] + size[p_end] - 1] = 1.0
+        same = slot_piece[1:] == slot_piece[:-1]
+        down = same & ((along[1:] < along[:-1]) | ((along[1:] == along[:-1]) & (tie[1:] < tie[:-1])))
+        bad = np.zeros(n_all, bool)
+        bad[slot_piece[1:][down]] = True
+        slots = np.flatnonzero(bad[slot_piece])
+        order = np.lexsort((tie[slots], along[slots], slot_piece[slots]))
+        xy[slots] = xy[slots[order]]
+    pieces = shapely.linestrings(xy, indices=slot_piece)
     piece_line = np.repeat(np.arange(n), n_pieces)
     piece_k = np.arange(len(piece_line)) - piece_start[piece_line]
     return pieces, piece_line, piece_k
