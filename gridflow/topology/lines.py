@@ -149,7 +149,8 @@ def split_lines(lines: np.ndarray, ev_line: np.ndarray, ev_s: np.ndarray,
         along[at[p_end] + size[p_end] - 1] = ev_s
         tie[at[p_end] + size[p_end] - 1] = 1.0
         same = slot_piece[1:] == slot_piece[:-1]
-        down = same & ((along[1:] < along[:-1]) | ((along[1:] == along[:-1]) & (tie[1:] < tie[:-1])))
+        down = same & ((along[1:] < along[:-1])
+                       | ((along[1:] == along[:-1]) & (tie[1:] < tie[:-1])))
         bad = np.zeros(n_all, bool)
         bad[slot_piece[1:][down]] = True
         slots = np.flatnonzero(bad[slot_piece])
