@@ -25,7 +25,7 @@ from gridflow.network import (
     VALVE_THROTTLE,
     fit_pump_curve,
 )
-from gridflow.topology.idtext import as_text
+from gridflow.topology.idtext import all_distinct, as_text
 from gridflow.topology.nodes import unique_ids_checked
 from gridflow.topology.points import column
 from gridflow.topology.records import (
@@ -176,13 +176,15 @@ def _link_ids_checked(ids: np.ndarray, kind: np.ndarray) -> tuple[np.ndarray, bo
 
     Notes
     -----
-    One hash set over the pipe ids answers both questions in the usual case (pipe ids
-    distinct, device ids distinct and none a pipe id): the full uniqueness pass over every
-    link runs only when that fails.
+    One hash set over every link's id answers both questions in the usual case (all
+    distinct: no device id is a pipe id, nothing to prefix or suffix); the sets below, and
+    the full uniqueness pass, run only when that fails.
     """
     pipe = kind == LINK_PIPE
     if pipe.all():
         return unique_ids_checked(ids.astype(object))
+    if all_distinct(as_text(ids)):
+        return ids.astype(object).copy(), True
     pipe_text = as_text(ids[pipe])
     seen = set(pipe_text.tolist())
     dev = np.flatnonzero(~pipe)

@@ -71,7 +71,9 @@ def prepare_pipes(ctx: Context) -> Pipes:
         f.add_many("multipart_exploded", "info", layer, ids[rows[multi]],
                    [f"multi-part main split into {n} pipes" for n in nparts[multi]],
                    geoms[rows[multi]])
-    df = pd.DataFrame({"pipe_id": pid, "src": src})
+    # text columns stay Python strings (object): the later stages take them as such, and
+    # pandas' own text type would convert every value there and back
+    df = pd.DataFrame({"pipe_id": _objects(pid), "src": src})
     if cfg.elevation.source == "z" and shapely.has_z(parts).any():
         c3 = shapely.get_coordinates(parts, include_z=True)
         cnt = shapely.get_num_coordinates(parts)
@@ -84,9 +86,9 @@ def prepare_pipes(ctx: Context) -> Pipes:
                 "install_year"):
         df[col] = gdf[col].to_numpy(dtype=float)[src] if col in gdf else np.nan
     for col in ("material", "status", "zone"):
-        df[col] = gdf[col].to_numpy(dtype=object)[src] if col in gdf else None
+        df[col] = _objects(gdf[col].to_numpy(dtype=object)[src]) if col in gdf else None
     lev = gdf["level"].to_numpy(dtype=object)[src] if "level" in gdf else np.full(len(src), None)
-    df["level"] = np.where(pd.isna(lev), "0", lev).astype(str)
+    df["level"] = _objects(np.where(pd.isna(lev), "0", lev).astype(str).astype(object))
     df = _check_diameter(ctx, df, layer)
     df = _roughness(ctx, df, layer)
     glen = shapely.length(df["geom"].to_numpy())
@@ -100,6 +102,11 @@ def prepare_pipes(ctx: Context) -> Pipes:
         _no_pipes_left(ctx, ids, {"abandoned": ab, "without geometry": empty & ~ab,
                                   "not lines": notline & ~ab})
     return Pipes(frame=df, layer=layer, drawn_length_m=shapely.length(df["geom"].to_numpy()))
+
+def _objects(values: np.ndarray) -> pd.Series:
+    """A column of Python objects as they are (no inference of pandas' text type)."""
+    return pd.Series(np.asarray(values, dtype=object), dtype=object, copy=False)
+
 
 def _no_pipes_left(ctx: Context, ids: np.ndarray, masks: dict) -> None:
     """Stop: every main was left out; say why, by reason, with an example id each."""
