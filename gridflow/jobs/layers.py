@@ -26,7 +26,8 @@ def field_name(quantity: str, system: UnitSystem | str, stem: str | None = None)
 
 #: text columns already made, by the identity of their source arrays (the scenarios of a run
 #: share the network's id arrays: each column is made once); a few entries, oldest dropped
-_TEXT: dict[tuple[int, int], tuple[np.ndarray, np.ndarray | None, pd.api.extensions.ExtensionArray]] = {}
+_TEXT: dict[tuple[int, int], tuple[np.ndarray, np.ndarray | None, pd.api.extensions.ExtensionArray]]
+_TEXT = {}
 
 
 def _text(values: np.ndarray, take: np.ndarray | None = None):
