@@ -228,7 +228,8 @@ class Network:
     def replace(self, **changes) -> Network:
         """A validated copy with some arrays replaced; the others are shared, not copied."""
         new = dataclasses.replace(self, **changes)
-        new.validate()
+        # ids shared with this validated network are not checked again
+        new.validate(ids="node_id" in changes or "link_id" in changes)
         return new
 
     # ------------------------------------------------------------------ properties
@@ -254,8 +255,8 @@ class Network:
         return _positions(self.link_id, ids, "link")
 
     # ------------------------------------------------------------------ validation
-    def validate(self) -> None:
-        """Check shapes and physically impossible values.
+    def validate(self, *, ids: bool = True) -> None:
+        """Check shapes and physically impossible values (``ids``: and that ids are unique).
 
         Raises
         ------
@@ -276,8 +277,9 @@ class Network:
         if self.headloss_model not in ("hazen-williams", "darcy-weisbach"):
             raise NetworkError(f"unknown head-loss model {self.headloss_model!r}; expected "
                                "'hazen-williams' or 'darcy-weisbach'", field="headloss_model")
-        _unique(self.node_id, "node")
-        _unique(self.link_id, "link")
+        if ids:
+            _unique(self.node_id, "node")
+            _unique(self.link_id, "link")
         for name in ("from_idx", "to_idx"):
             idx = getattr(self, name)
             bad = (idx < 0) | (idx >= nn)
@@ -376,7 +378,7 @@ def _unique(ids: np.ndarray, what: str) -> None:
         return
     uniq, counts = np.unique(ids.astype(str), return_counts=True)
     if (counts > 1).any():
-        dup = uniq[counts > 1][0]
+        dup = str(uniq[counts > 1][0])
         raise NetworkError(f"{what} id {dup!r} is used {counts[counts > 1][0]} times; ids must "
                            "be unique", **{f"{what}_id": dup, "field": f"{what}_id"})
 
