@@ -11,9 +11,11 @@ measured in the same run), factorizations of the full system and of the reduced 
 core (and its size) and Newton steps per hydrant, hydrants on the
 full-Newton fallback, hydrants per second per core (serial), the speed-ups with 2 local worker
 processes and with a Dask ``LocalCluster`` of 2 single-threaded workers on loopback (cluster
-start-up not timed), and the full sweep's time projected from the serial rate: on one core and
-on two workers. Targets: <= 1 factorization-equivalent per hydrant; a full 100k sweep in
-under 1 h on 2 workers; >= 1.8x with 2 workers. The machine's load average is printed beside
+start-up not timed), each backend's fixed set-up (a sweep of 4 hydrants less their compute) and
+the speed-ups without it, and the full sweep's time projected: on one core from the serial rate,
+on two workers as the set-up plus every hydrant at the sample's 2-worker rate. Targets: <= 1
+factorization-equivalent per hydrant; a full 100k sweep in under 1 h on 2 workers; >= 1.8x with
+2 workers. The machine's load average is printed beside
 the figures (ratios are within one run).
 
 Usage: python scripts/bench_fireflow.py [--sizes 10000,100000] [--sample N] [--no-parallel]
@@ -95,21 +97,35 @@ def one(n_mains: int, sample: int | None, parallel: bool, d: Path) -> dict:
              "two_s": np.nan, "dask_s": np.nan, "x2": np.nan, "xdask": np.nan, "same": None,
              "limits": serial["limited_by"].value_counts().to_dict()}
     if parallel:
-        t0 = time.perf_counter()
-        two = sweep(net, base, hyd, fire, crit, options=opts, workers=2)
-        t2 = time.perf_counter() - t0
+        # fixed set-up of each backend (sending the problem, starting workers, each worker's
+        # reduction): a sweep of 4 hydrants, less their serial compute shared by 2 workers
+        few = hyd.iloc[:4].reset_index(drop=True)
+        per = t1 / n
+
+        def timed(**kw) -> tuple[float, pd.DataFrame, float]:
+            t0 = time.perf_counter()
+            sweep(net, base, few, fire, crit, options=opts, **kw)
+            setup = max(time.perf_counter() - t0 - len(few) * per / 2.0, 0.0)
+            t0 = time.perf_counter()
+            out = sweep(net, base, hyd, fire, crit, options=opts, **kw)
+            return time.perf_counter() - t0, out, setup
+
+        t2, two, s2 = timed(workers=2)
         from distributed import LocalCluster
 
         with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
                           dashboard_address=None) as cluster:
-            t0 = time.perf_counter()
-            dask = sweep(net, base, hyd, fire, crit, options=opts,
-                         scheduler=cluster.scheduler_address)
-            td = time.perf_counter() - t0
+            td, dask, sd = timed(scheduler=cluster.scheduler_address)
         d_out.update(two_s=t2, dask_s=td, x2=t1 / t2, xdask=t1 / td,
+                     setup2=s2, setupd=sd, x2_run=t1 / max(t2 - s2, 1e-9),
+                     xdask_run=t1 / max(td - sd, 1e-9),
                      same=bool(serial.equals(two) and serial.equals(dask)))
     x2 = d_out["x2"] if np.isfinite(d_out["x2"]) else 1.8
     d_out["full_2w_h"] = d_out["full_1core_h"] / x2
+    if "x2_run" in d_out:
+        # a whole sweep: the set-up once, then the sample's rate on 2 workers
+        d_out["full_2w_h"] = (d_out["setup2"] + n_all * t1 / n / d_out["x2_run"]) / 3600.0
+        d_out["full_dask_h"] = (d_out["setupd"] + n_all * t1 / n / d_out["xdask_run"]) / 3600.0
     d_out["load_end"] = os.getloadavg()[0]
     return d_out
 
@@ -134,6 +150,11 @@ def main() -> None:
                   f"{d['core_nodes']:>10} {d['iters']:>8.2f} "
                   f"{d['fallback']:>6} {d['x2']:>5.2f} {d['xdask']:>7.2f} "
                   f"{d['full_2w_h']:>9.2f} {d['load']:>4.1f}-{d['load_end']:<4.1f}", flush=True)
+            if "x2_run" in d:
+                print(f"        fixed set-up: 2 processes {d['setup2']:.1f} s, Dask "
+                      f"{d['setupd']:.1f} s; without it: x2 {d['x2_run']:.2f}, Dask "
+                      f"{d['xdask_run']:.2f}; full sweep on 2 workers: processes "
+                      f"{d['full_2w_h']:.2f} h, Dask {d['full_dask_h']:.2f} h", flush=True)
             print(f"        limits: {d['limits']}; failed: {d['failed']}; serial, 2 processes "
                   f"and Dask identical: {d['same']}; full sweep on 1 core "
                   f"{d['full_1core_h']:.2f} h (x2 assumed 1.8 where not measured)",

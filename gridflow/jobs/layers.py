@@ -24,6 +24,29 @@ def field_name(quantity: str, system: UnitSystem | str, stem: str | None = None)
     return f"{stem or quantity}_{suffix}"
 
 
+#: text columns already made, by the identity of their source arrays (the scenarios of a run
+#: share the network's id arrays: each column is made once); a few entries, oldest dropped
+_TEXT: dict[tuple[int, int], tuple[np.ndarray, np.ndarray | None, pd.api.extensions.ExtensionArray]]
+_TEXT = {}
+
+
+def _text(values: np.ndarray, take: np.ndarray | None = None):
+    """``values`` (``values[take]``) as a pandas text array, equal to ``astype(str)``: made
+    straight from Python strings, and once per source array (shared by the scenarios)."""
+    key = (id(values), id(take))
+    hit = _TEXT.get(key)
+    if hit is not None and hit[0] is values and hit[1] is take:
+        return hit[2]
+    v = values if take is None else values[take]
+    col = pd.array(v, dtype="str") if v.dtype == object else None
+    if col is None or bool(col.isna().any()):
+        col = pd.array(v.astype(str), dtype="str")  # not all text: as astype(str) spells it
+    while len(_TEXT) >= 8:
+        _TEXT.pop(next(iter(_TEXT)))
+    _TEXT[key] = (values, take, col)
+    return col
+
+
 def _conv(values, quantity: str, system: UnitSystem | str) -> np.ndarray:
     _, factor = out_field(quantity, system)
     return np.asarray(values, dtype=float) * factor
@@ -42,10 +65,10 @@ def nodes_layer(net: Network, r: HydraulicResult, geometry, crs, criteria: Crite
     """``nodes_<scenario>``: one row per node, in network order."""
     flags = node_flags(net, r, criteria)
     cols = {
-        "node_id": net.node_id.astype(str),
+        "node_id": _text(net.node_id),
         "kind": np.asarray(NODE_KINDS, dtype=object)[net.node_kind],
         "fixed_head": net.is_fixed.astype(np.int32),
-        "zone": net.zone.astype(str),
+        "zone": _text(net.zone),
         field_name("elevation", system): _conv(net.elevation_m, "elevation", system),
         field_name("demand", system, "required_demand"): _conv(r.required_demand_m3s, "demand",
                                                                system),
@@ -63,10 +86,10 @@ def pipes_layer(net: Network, r: HydraulicResult, geometry, crs, criteria: Crite
     flags = pipe_flags(net, r, criteria)
     rough = roughness_out(net, system)
     cols = {
-        "pipe_id": net.link_id.astype(str),
+        "pipe_id": _text(net.link_id),
         "kind": np.asarray(LINK_KINDS, dtype=object)[net.link_kind],
-        "from_node": net.node_id[net.from_idx].astype(str),
-        "to_node": net.node_id[net.to_idx].astype(str),
+        "from_node": _text(net.node_id, net.from_idx),
+        "to_node": _text(net.node_id, net.to_idx),
         field_name("length", system): _conv(net.length_m, "length", system),
         field_name("diameter", system): _conv(net.diameter_m, "diameter", system),
         "roughness": rough,

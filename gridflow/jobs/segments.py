@@ -63,21 +63,29 @@ def segment_ids(n: int) -> np.ndarray:
 
 def _joined(groups: np.ndarray, values: np.ndarray, n: int,
             most: int | None = _MAX_LISTED) -> np.ndarray:
-    """Per group, the values joined by ', ' (at most ``most``, then 'and N more')."""
+    """Per group, the values joined by ', ' in their given order (at most ``most``, then
+    'and N more'); groups without values get ''. Array work: a stable sort by group, each
+    kept value prefixed by its separator, one concatenating ``reduceat``."""
     out = np.full(n, "", dtype=object)
     if len(values) == 0:
         return out
-    s = pd.Series(np.asarray(values, dtype=object)).groupby(np.asarray(groups))
-
-    def join(v: pd.Series) -> str:
-        items = list(v)
-        keep = len(items) if most is None else most
-        more = len(items) - keep
-        head = ", ".join(map(str, items[:keep]))
-        return head + (f" and {more} more" if more > 0 else "")
-
-    agg = s.agg(join)
-    out[agg.index.to_numpy(dtype=np.int64)] = agg.to_numpy()
+    g = np.asarray(groups, dtype=np.int64)
+    order = np.argsort(g, kind="stable")
+    g = g[order]
+    v = np.asarray(values).astype(str).astype(object)[order]
+    start = np.flatnonzero(np.r_[True, g[1:] != g[:-1]])
+    count = np.diff(np.append(start, len(g)))
+    rank = np.arange(len(g)) - np.repeat(start, count)
+    keep = rank < (len(g) if most is None else most)
+    kept = np.minimum(count, len(g) if most is None else most)
+    v, rank = v[keep], rank[keep]
+    v[rank > 0] = ", " + v[rank > 0]
+    text = np.add.reduceat(v, np.append(0, np.cumsum(kept)[:-1]))
+    more = count - kept
+    if (more > 0).any():
+        tail = np.flatnonzero(more > 0)
+        text[tail] = text[tail] + np.array([f" and {m} more" for m in more[tail]], dtype=object)
+    out[g[start]] = text
     return out
 
 

@@ -226,13 +226,14 @@ class Network:
             pump_speed=_f(pump_speed, nl, 1.0),
             headloss_model=headloss_model,
         )
-        net.validate(ids_unique=ids_unique)
+        net.validate(ids=not ids_unique)
         return net
 
     def replace(self, **changes) -> Network:
         """A validated copy with some arrays replaced; the others are shared, not copied."""
         new = dataclasses.replace(self, **changes)
-        new.validate()
+        # ids shared with this validated network are not checked again
+        new.validate(ids="node_id" in changes or "link_id" in changes)
         return new
 
     # ------------------------------------------------------------------ properties
@@ -258,9 +259,8 @@ class Network:
         return _positions(self.link_id, ids, "link")
 
     # ------------------------------------------------------------------ validation
-    def validate(self, *, ids_unique: bool = False) -> None:
-        """Check shapes and physically impossible values (``ids_unique``: the ids are known
-        to be unique already; see :meth:`from_arrays`).
+    def validate(self, *, ids: bool = True) -> None:
+        """Check shapes and physically impossible values (``ids``: and that ids are unique).
 
         Raises
         ------
@@ -281,7 +281,7 @@ class Network:
         if self.headloss_model not in ("hazen-williams", "darcy-weisbach"):
             raise NetworkError(f"unknown head-loss model {self.headloss_model!r}; expected "
                                "'hazen-williams' or 'darcy-weisbach'", field="headloss_model")
-        if not ids_unique:
+        if ids:
             _unique(self.node_id, "node")
             _unique(self.link_id, "link")
         for name in ("from_idx", "to_idx"):
@@ -389,7 +389,7 @@ def _unique(ids: np.ndarray, what: str) -> None:
         return
     uniq, counts = np.unique(ids.astype(str), return_counts=True)
     if (counts > 1).any():
-        dup = uniq[counts > 1][0]
+        dup = str(uniq[counts > 1][0])
         raise NetworkError(f"{what} id {dup!r} is used {counts[counts > 1][0]} times; ids must "
                            "be unique", **{f"{what}_id": dup, "field": f"{what}_id"})
 

@@ -93,3 +93,17 @@ def test_criticality_counts_are_consistent(out):
     kv = dict(zip(info["key"], info["value"]))
     assert kv["segments:closures_not_converged"] == "0"
     assert int(kv["segments:count"]) == len(seg)
+
+
+def test_ids_are_joined_per_segment_in_their_order():
+    """The text fields list each segment's ids in network order, ', '-separated, at most the
+    listed number and then how many more (hand-made cases)."""
+    from gridflow.jobs.segments import _joined
+
+    groups = np.array([2, 0, 2, 2, 0, 4])
+    values = np.array(["V7", "V1", "V3", "V9", "V2", "V5"])
+    got = _joined(groups, values, 5, most=None)
+    assert list(got) == ["V1, V2", "", "V7, V3, V9", "", "V5"]
+    got = _joined(groups, values, 5, most=2)
+    assert list(got) == ["V1, V2", "", "V7, V3 and 1 more", "", "V5"]
+    assert list(_joined(groups[:0], values[:0], 3)) == ["", "", ""]

@@ -390,3 +390,19 @@ def test_scenarios_share_one_symbolic_analysis():
     r_fresh = HydraulicSystem(n2).solve()
     np.testing.assert_allclose(r_shared.head_m, r_fresh.head_m, atol=1e-9)
     assert_physics(n2, r_shared)
+
+
+def test_replaced_ids_are_checked_again():
+    """A copy with new ids is checked for repeats; a copy sharing the ids (a scenario's new
+    demand) is not checked again, and its other arrays still are."""
+    import numpy as np
+
+    n = net([("R", 0, 0, 50.0), ("A", 0, 0.01, None), ("B", 0, 0.02, None)],
+            [pipe("1", "R", "A", 100, 0.2), pipe("2", "A", "B", 100, 0.1)])
+    with pytest.raises(NetworkError, match="node id 'A' is used 2 times"):
+        n.replace(node_id=np.array(["R", "A", "A"], dtype=object))
+    with pytest.raises(NetworkError, match="link id '1' is used 2 times"):
+        n.replace(link_id=np.array(["1", "1"], dtype=object))
+    assert n.replace(demand_m3s=np.array([0.0, 0.02, 0.04])).node_id is n.node_id
+    with pytest.raises(NetworkError, match="diameter_m"):
+        n.replace(diameter_m=np.array([0.2, -0.1]))
