@@ -54,7 +54,8 @@ def link_table(ctx: Context, sn: Snapped, at: Attached, sp: Split, nt: NodeTable
     frac = plen / np.maximum(glen[pl], 1e-12)
     length = np.where(np.isfinite(attr_len) & (attr_len > 0), attr_len * frac, plen)
     length = np.maximum(length, _EPS)
-    pstat = df["status"].to_numpy(dtype=object)[pl]
+    # closed per main, then spread to its pieces (the text work once per main, not per piece)
+    closed = np.isin(df["status"].to_numpy(dtype=object).astype(str), CLOSED_WORDS)[pl]
     m = len(pl)
     cols: dict[str, list] = {
         "link_id": [sp.pipe_id], "from": [nt.idx_of_key[sp.from_key]],
@@ -62,8 +63,7 @@ def link_table(ctx: Context, sn: Snapped, at: Attached, sp: Split, nt: NodeTable
         "length": [length], "diameter": [df["diameter"].to_numpy(dtype=float)[pl]],
         "rough": [df["roughness"].to_numpy(dtype=float)[pl]],
         "mk": [np.nan_to_num(df["minor_loss_k"].to_numpy(dtype=float)[pl], nan=0.0)],
-        "status": [np.where(np.isin(pstat.astype(str), CLOSED_WORDS), STATUS_CLOSED,
-                            STATUS_OPEN)],
+        "status": [np.where(closed, STATUS_CLOSED, STATUS_OPEN)],
         "vt": [np.zeros(m, int)], "vs": [np.full(m, np.nan)], "pa": [np.full(m, np.nan)],
         "pb": [np.full(m, np.nan)], "pc": [np.full(m, np.nan)], "speed": [np.ones(m)],
         "geom": [sp.pieces], "material": [df["material"].to_numpy(dtype=object)[pl]],
