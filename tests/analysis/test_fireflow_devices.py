@@ -10,7 +10,7 @@ import pandas as pd
 import pytest
 
 from gridflow.analysis.fireflow import FireflowProblem
-from gridflow.analysis.fireflow.search import DrawRoute, FullRoute, search_hydrant
+from gridflow.analysis.fireflow.search import DrawRoute, FullRoute, run_rows, search_hydrant
 from gridflow.config import load_config
 from gridflow.demand import allocate
 from gridflow.demand.scenarios import scenario_network
@@ -48,6 +48,9 @@ def test_status_changes_answered_on_the_reduced_network_equal_full_newton(proble
             hopped.append((j, fast))
     # the sample's hill zone: dozens of hydrants whose draw opens or shuts a device
     assert len(hopped) >= 20
+    rows = np.array([j for j, _ in hopped[:10]])
+    rec = run_rows(p, rows)  # a batch counts them, none goes to the full route
+    assert rec["status_variant"].all() and not rec["fallback"].any()
     for j, fast in hopped[::3]:
         full = search_hydrant(p, j, FullRoute(p))
         assert fast.limit == full.limit and fast.limit_idx == full.limit_idx, j
