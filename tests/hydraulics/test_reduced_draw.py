@@ -224,3 +224,24 @@ def test_status_changes_at_the_draw_are_solved_by_a_variant(draw_m4):
     assert cases >= 6 and answered >= cases - 1 and compared >= answered - 1, \
         (cases, answered, compared)
     assert 1 <= len(rs._variants) <= 8
+
+
+def test_status_variants_kept_within_their_memory(monkeypatch):
+    # with room for one variant only, a second set of statuses is not made into a variant:
+    # that solve is handed on (counted), the kept variant still answers its own draws
+    import gridflow.hydraulics.reduced as reduced
+
+    from .test_hill_zone import OPTS, hill_zone
+
+    monkeypatch.setattr(reduced, "VARIANT_BYTES", 1)
+    n = hill_zone(draw_m4=0.15)
+    system = HydraulicSystem(n, OPTS)
+    base = system.solve()
+    rs = ReducedDrawSolver(system, base)
+    for k in np.flatnonzero(~n.is_fixed):
+        if n.node_id[k] == "M4":
+            continue
+        for drop in (8.0, 30.0):
+            rs.solve(int(k), "head", base.head_m[k] - drop)
+    assert len(rs._variants) == 1
+    assert rs.fallbacks >= 1 and rs.variant_solves >= 1
