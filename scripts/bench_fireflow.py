@@ -92,6 +92,7 @@ def one(n_mains: int, sample: int | None, parallel: bool, d: Path) -> dict:
              "fact_eq": t1 / n / t_fact, "facts": s["factorizations"] / n,
              "core_facts": s["core_factorizations"] / n, "core_nodes": core_nodes,
              "iters": s["iterations"] / n, "fallback": s["fallback"],
+             "variant": s.get("status_variant", 0),
              "failed": s.get("limited_by_not_converged", 0),
              "full_1core_h": n_all * t1 / n / 3600.0, "load": load0,
              "two_s": np.nan, "dask_s": np.nan, "x2": np.nan, "xdask": np.nan, "same": None,
@@ -155,7 +156,8 @@ def main() -> None:
                       f"{d['setupd']:.1f} s; without it: x2 {d['x2_run']:.2f}, Dask "
                       f"{d['xdask_run']:.2f}; full sweep on 2 workers: processes "
                       f"{d['full_2w_h']:.2f} h, Dask {d['full_dask_h']:.2f} h", flush=True)
-            print(f"        limits: {d['limits']}; failed: {d['failed']}; serial, 2 processes "
+            print(f"        limits: {d['limits']}; failed: {d['failed']}; on a status variant: "
+                  f"{d['variant']}; serial, 2 processes "
                   f"and Dask identical: {d['same']}; full sweep on 1 core "
                   f"{d['full_1core_h']:.2f} h (x2 assumed 1.8 where not measured)",
                   flush=True)

@@ -32,10 +32,14 @@ with :func:`gridflow.hydraulics.assembly.residuals`).
 Scope: Hazen-Williams networks; modes ``"head"``, ``"draw"`` and ``"limit"`` (a held node at
 a core node, inside another chain, or on a tree away from the draw). Running pumps are chains
 of their own on their curves; a regulating valve's outlet is a node of known head and its
-inlet a core node that gives what the zone below it takes. Anything else (Darcy-Weisbach,
-pressure-driven demand, a held node in the draw's own chain or tree, a status change, no
-convergence) goes to :class:`gridflow.hydraulics.DrawSolver`, which this class holds and builds
-when first needed, and is counted (``fallbacks``).
+inlet a core node that gives what the zone below it takes. Where a device changes status at
+the draw (a pressure-reducing valve opens fully or shuts, a check valve shuts, a pump stops),
+the solve is made again by a *status variant*: a solver of this class for the statuses found at
+that draw, made once per process from the base state with those statuses (so the same for
+every hydrant and every backend) and kept. Anything else (Darcy-Weisbach, pressure-driven
+demand, a held node in the draw's own chain or tree, statuses still changing after
+``MAX_HOPS`` variants, no convergence) goes to :class:`gridflow.hydraulics.DrawSolver`, which
+this class holds and builds when first needed, and is counted (``fallbacks``).
 
 Size: about 750 lines on purpose: the Newton iteration, its bordered draw and held-node steps,
 the energy-balanced first step and the rebuild onto the network all read the solver's kept
@@ -53,11 +57,21 @@ import numpy as np
 from gridflow.hydraulics.draw import DrawSolver
 from gridflow.hydraulics.links import G_FLOOR
 from gridflow.hydraulics.reduction import Reduction
-from gridflow.hydraulics.results import DRAW_MODES, DrawOutcome, HydraulicResult
+from gridflow.hydraulics.results import CLOSED, DRAW_MODES, OPEN, DrawOutcome, HydraulicResult
 from gridflow.hydraulics.sparse import FixedPatternSPD
+from gridflow.hydraulics.status import update_status
 from gridflow.hydraulics.system import HydraulicSystem
 
 __all__ = ["Reduction", "ReducedDrawSolver"]
+
+#: status variants kept per solver, and the variants one solve may pass through
+MAX_VARIANTS = 8
+MAX_HOPS = 3
+#: memory the variants of one solver may hold [bytes], at about 400 bytes a link each
+#: (measured: 175 MB at 100k mains, 491k links with the hydrants' outlets; built in about 2 s
+#: there, the cost of a few hydrants on the full-Newton route)
+VARIANT_BYTES = 1_000_000_000
+_BYTES_PER_LINK = 400
 
 
 def _sum_at(idx: np.ndarray, weights: np.ndarray, n: int) -> np.ndarray:
@@ -170,8 +184,15 @@ class ReducedDrawSolver:
         self._full: DrawSolver | None = None
         self.red: Reduction
         self.fallbacks = 0
-        #: factorizations of the core matrix made so far
+        #: factorizations of the core matrix made so far (a variant's counted on its root)
         self.factorizations = 0
+        #: solves answered by a variant: a device's status changed at the draw
+        self.variant_solves = 0
+        self._keep = keep
+        self._root: ReducedDrawSolver = self
+        self._variants: dict[bytes, ReducedDrawSolver] = {}
+        self._state_key = np.asarray(base.link_state, dtype=np.int8).tobytes()
+        self._changed: np.ndarray | None = None
         self.refactor_ratio = float(refactor_ratio)
         self.chord_within = float(chord_within)
         self._w: dict[str, np.ndarray] = {}
@@ -285,6 +306,8 @@ class ReducedDrawSolver:
         self._work_owner = (-1, -1)
         self._w.pop("work", None)
         self._g.pop("work", None)
+        for v in self._variants.values():
+            v.reset()
 
     def full(self) -> DrawSolver:
         """The whole-network draw solver (built when first needed)."""
@@ -297,6 +320,9 @@ class ReducedDrawSolver:
         """As :meth:`DrawSolver.blend`. A result of this solver is blended in reduced form
         (chain flows, core heads, draw); its whole-network arrays are those of ``result``
         and the blend is made on them only if the whole-network solver takes the start."""
+        owner = result.extra.get("reduced_by", self)
+        if owner is not self:
+            return owner.blend(result, t)  # made by a variant of this solver
         got = result.extra.get("reduced")
         if got is None:
             return self.full().blend(result, t)
@@ -304,6 +330,7 @@ class ReducedDrawSolver:
         Q, H, d = got
         n = self.sys.laws.flow_exponent
         extra = {"draw_m3s": t * d, "factor_token": None, "blend": (result, t),
+                 "reduced_by": self,
                  "reduced": (self.Q0 + t * (Q - self.Q0),
                              self.h_core0 + t ** n * (H - self.h_core0), t * d)}
         if isinstance(result, _LazyResult):
@@ -383,16 +410,29 @@ class ReducedDrawSolver:
         pat.factor(data, slot)
         self._w[slot] = w
         self._g[slot] = gg
-        self.factorizations += 1
+        self._root.factorizations += 1
 
     # ------------------------------------------------------------------ the solve
     def solve(self, node: int, mode: str, value: float, *, limit_node: int | None = None,
-              start: HydraulicResult | None = None) -> DrawOutcome:
-        """As :meth:`DrawSolver.solve`."""
+              start: HydraulicResult | None = None, _hops: int = 0) -> DrawOutcome:
+        """As :meth:`DrawSolver.solve`.
+
+        Where a device changes status at the draw (a pressure-reducing valve opens fully or
+        shuts, a check valve shuts, a pump stops), the solve is made again by a *variant*: a
+        solver of this kind on the same network with the statuses found at that draw, made
+        once per process from this solver's base state with those statuses (the same for every
+        hydrant, so results do not depend on the order of the sweep) and kept (at most
+        ``MAX_VARIANTS``, and no more than ``VARIANT_BYTES`` of them: one at 500k mains); again
+        while statuses change, at most ``MAX_HOPS`` times. A start
+        made by a variant is solved from by that variant."""
         if mode not in DRAW_MODES:
             raise ValueError(f"draw-solve mode {mode!r}: expected one of {DRAW_MODES}")
         if (mode == "limit") != (limit_node is not None):
             raise ValueError("limit_node is given with mode 'limit' and only then")
+        owner = start.extra.get("reduced_by", self) if start is not None else self
+        if _hops == 0 and owner is not self and getattr(owner, "_root", None) is self._root:
+            return owner.solve(node, mode, value, limit_node=limit_node, start=start,
+                               _hops=_hops)
         ent = probe = None
         if self.usable:
             ent = self._entry(int(node))
@@ -401,11 +441,55 @@ class ReducedDrawSolver:
                 if probe is None:
                     ent = None
         if ent is None:
+            if mode == "head" and self.usable and _hops < MAX_HOPS:
+                # pinned where a regulating valve holds the head: the valve cannot hold it
+                # there, it is open (pinned below its setting) or shut (above)
+                full = self.full()
+                valves = self.prv_links[self.sys.to[self.prv_links] == int(node)]
+                if len(valves):
+                    state = full.state.copy()
+                    state[valves] = OPEN if float(value) < full.h0[int(node)] else CLOSED
+                    return self._hop(state, node, mode, value, limit_node, start, _hops)
             return self._fallback(node, mode, value, limit_node, start)
+        self._changed = None
         out = self._solve(ent, mode, float(value), start, probe)
         if out.success:
             return out
+        changed, self._changed = self._changed, None
+        if out.status == 4 and changed is not None and _hops < MAX_HOPS:
+            return self._hop(changed, node, mode, value, limit_node, start, _hops)
         return self._fallback(node, mode, value, limit_node, start)
+
+    def _hop(self, state, node, mode, value, limit_node, start, hops: int) -> DrawOutcome:
+        """The solve made again by the variant whose base statuses are ``state``."""
+        other = self._root._variant(state)
+        if other is None or other is self:
+            return self._fallback(node, mode, value, limit_node, start)
+        got = other.solve(node, mode, value, limit_node=limit_node, start=start,
+                          _hops=hops + 1)
+        if got.success and hops == 0:
+            self._root.variant_solves += 1
+        return got
+
+    def _variant(self, state: np.ndarray) -> ReducedDrawSolver | None:
+        """The solver of this family whose base statuses are ``state`` (made when first
+        needed: this solver's base state with those statuses, its own reduction); None where
+        none can be made or kept."""
+        key = np.asarray(state, dtype=np.int8).tobytes()
+        if key == self._state_key:
+            return self
+        v = self._variants.get(key)
+        if v is None:
+            most = min(MAX_VARIANTS, VARIANT_BYTES // (_BYTES_PER_LINK * max(self.sys.nl, 1)))
+            if len(self._variants) >= max(1, most):
+                return None  # kept ones only: the full-Newton route answers the rest
+            base = dataclasses.replace(self.base, link_state=np.asarray(state, dtype=np.int8))
+            v = ReducedDrawSolver(self.sys, base, keep=self._keep,
+                                  refactor_ratio=self.refactor_ratio,
+                                  chord_within=self.chord_within)
+            v._root = self
+            self._variants[key] = v
+        return v if v.usable else None
 
     def _probe(self, c: int, ent: _Entry) -> _Probe | None:
         """How node ``c``'s head follows from the reduced state, or None where this solver
@@ -442,7 +526,7 @@ class ReducedDrawSolver:
         return g0, g1
 
     def _fallback(self, node, mode, value, limit_node, start) -> DrawOutcome:
-        self.fallbacks += 1
+        self._root.fallbacks += 1
         full = self.full()
         full.ensure_factor()
         if start is not None and "blend" in start.extra:
@@ -453,11 +537,13 @@ class ReducedDrawSolver:
                start: HydraulicResult | None, probe: _Probe | None = None) -> DrawOutcome:
         t0 = time.perf_counter()
         red, s, opt = self.red, self.sys, self.sys.opt
-        f0 = self.factorizations
+        f0 = self._root.factorizations
         K = self.K
         ca, cb = red.ca, red.cb
         pin = mode == "head"
         held = mode == "limit"
+        if start is not None and start.extra.get("reduced_by", self) is not self:
+            start = None  # another variant's state: from this one's base state instead
         if start is None:
             Q, H, d = self.Q0.copy(), self.h_core0.copy(), 0.0
             self._episode += 1
@@ -601,7 +687,11 @@ class ReducedDrawSolver:
             valves = np.zeros(0)
         if full.may_change_status:
             q, h = self._rebuild(Q, H, d, ent, hg, valves)
-            if not s.statuses_hold(full.state, q, h, full.supplied, full.held_fixed):
+            changed = full.state.copy()
+            if update_status(s.laws, changed, q, h, full.supplied, full.held_fixed,
+                             s.always_closed, s.components, tol=opt.status_tolerance,
+                             qtol=opt.flow_tolerance):
+                self._changed = changed
                 return DrawOutcome(success=False, status=4, nit=it,
                                    message="a device would change status at this draw")
             made = (q, h)
@@ -618,8 +708,9 @@ class ReducedDrawSolver:
             head_residual_m=head, worst_node_idx=0, worst_link_idx=0, converged=True,
             status="converged",
             mass_tolerance_m3s=opt.flow_tolerance, seconds=time.perf_counter() - t0,
-            factorizations=self.factorizations - f0, message=msg,
+            factorizations=self._root.factorizations - f0, message=msg,
             extra={"draw_m3s": d, "factor_token": None, "reduced": (Q, H, d),
+                   "reduced_by": self,
                    "node": ent.k, "node_head_m": hk})
         return DrawOutcome(success=True, status=0, message=msg, result=r,
                            draw_m3s=float(d), nit=it)
@@ -650,7 +741,7 @@ class ReducedDrawSolver:
         """``(Q, H, d)``: chain flows, core heads and draw of a start."""
         red = self.red
         got = start.extra.get("reduced")
-        if got is not None:
+        if got is not None and start.extra.get("reduced_by", self) is self:
             return got[0].copy(), got[1].copy(), float(got[2])
         Q = red.chain_first_sign * start.flow_m3s[red.chain_first_link]
         H = np.nan_to_num(start.head_m)[red.core_nodes]

@@ -461,6 +461,7 @@ def _fireflow(cfg, clean, results, opts, workers, scheduler, findings, info):
              ("fireflow:required_not_achievable", str(summary["required_not_achievable"])),
              ("fireflow:high_velocity", str(summary["high_velocity"])),
              ("fireflow:full_newton_fallback", str(summary["fallback"])),
+             ("fireflow:status_variant", str(summary["status_variant"])),
              ("fireflow:factorizations", str(summary["factorizations"])),
              ("fireflow:seconds", f"{time.perf_counter() - t0:.2f}")]
     return layer

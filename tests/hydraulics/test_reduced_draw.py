@@ -172,3 +172,76 @@ def test_pump_and_regulating_valve_on_the_reduced_network(draw_m4):
             assert_physics(n, with_draw(r, k, draw), mass_tol=1e-8, head_tol=1e-6)
             compared += 1
     assert compared >= 8
+
+
+@pytest.mark.parametrize("draw_m4", [0.0, 0.15])
+def test_status_changes_at_the_draw_are_solved_by_a_variant(draw_m4):
+    # draws in the hill zone that change a device's status (the pressure-reducing valve opens
+    # fully or shuts, the booster stops): the reduced solver makes the solve again on a
+    # variant with the statuses found at that draw, and the answer equals the full Newton
+    # solve with its status rounds (the whole-network reference) with mass and head loss
+    # balanced. Where the statuses keep changing (the booster and the valve in turn) the
+    # solve is given up and counted, and the fire-flow search takes its full-Newton route.
+    from .test_hill_zone import OPTS, hill_zone
+
+    n = hill_zone(draw_m4=draw_m4)
+    system = HydraulicSystem(n, OPTS)
+    base = system.solve()
+    rs = ReducedDrawSolver(system, base)
+    cases = answered = compared = 0
+    for k in np.flatnonzero(~n.is_fixed):
+        if draw_m4 and n.node_id[k] == "M4":
+            continue
+        for drop in (2.0, 8.0, 14.0, 20.0, 30.0):
+            head = base.head_m[k] - drop
+            full = system.solve(pin_idx=np.array([k]), pin_head_m=np.array([head]), warm=base,
+                                raise_on_failure=False)
+            if not full.converged or (full.link_state == base.link_state).all():
+                continue
+            cases += 1
+            v0 = rs.variant_solves
+            out = rs.solve(int(k), "head", head)
+            if not out.success:
+                assert out.status == 4, out.message  # statuses still changing: given up
+                continue
+            answered += 1
+            assert rs.variant_solves == v0 + 1
+            r = out.result
+            assert (r.link_state == full.link_state).all()
+            np.testing.assert_allclose(r.head_m, full.head_m, atol=1e-6)
+            np.testing.assert_allclose(r.flow_m3s, full.flow_m3s, atol=1e-8)
+            assert_physics(n, with_draw(r, k, r.extra["draw_m3s"]), mass_tol=1e-8,
+                           head_tol=1e-6)
+            # a solve started from the variant's answer is made by the variant (or by the
+            # one its statuses lead to) and equals the full solve at that draw
+            q = 0.9 * r.extra["draw_m3s"]
+            again = rs.solve(int(k), "draw", q, start=rs.blend(r, 0.9))
+            if again.success:
+                ref = system.solve(demand_m3s=n.demand_m3s + q * (np.arange(n.n_nodes) == k),
+                                   warm=base)
+                np.testing.assert_allclose(again.result.head_m, ref.head_m, atol=1e-6)
+                compared += 1
+    assert cases >= 6 and answered >= cases - 1 and compared >= answered - 1, \
+        (cases, answered, compared)
+    assert 1 <= len(rs._variants) <= 8
+
+
+def test_status_variants_kept_within_their_memory(monkeypatch):
+    # with room for one variant only, a second set of statuses is not made into a variant:
+    # that solve is handed on (counted), the kept variant still answers its own draws
+    import gridflow.hydraulics.reduced as reduced
+
+    from .test_hill_zone import OPTS, hill_zone
+
+    monkeypatch.setattr(reduced, "VARIANT_BYTES", 1)
+    n = hill_zone(draw_m4=0.15)
+    system = HydraulicSystem(n, OPTS)
+    base = system.solve()
+    rs = ReducedDrawSolver(system, base)
+    for k in np.flatnonzero(~n.is_fixed):
+        if n.node_id[k] == "M4":
+            continue
+        for drop in (8.0, 30.0):
+            rs.solve(int(k), "head", base.head_m[k] - drop)
+    assert len(rs._variants) == 1
+    assert rs.fallbacks >= 1 and rs.variant_solves >= 1

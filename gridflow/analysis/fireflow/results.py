@@ -140,5 +140,6 @@ def summarise(out: pd.DataFrame, records: list[dict]) -> dict:
         "factorizations": int(sum(int(r["factorizations"].sum()) for r in records)),
         "core_factorizations": int(sum(int(r["core_factorizations"].sum()) for r in records)),
         "fallback": int(sum(int(r["fallback"].sum()) for r in records)),
+        "status_variant": int(sum(int(r["status_variant"].sum()) for r in records)),
     })
     return summary

@@ -324,11 +324,13 @@ def run_rows(p: FireflowProblem, rows: np.ndarray) -> dict[str, np.ndarray]:
     fallback = np.zeros(m, dtype=bool)
     factorizations = np.zeros(m, dtype=np.int64)
     core_factorizations = np.zeros(m, dtype=np.int64)
+    status_variant = np.zeros(m, dtype=bool)
     sysm = p.system()
     ds = p.draw_solver()
     for i, j in enumerate(rows):
         f0 = sysm.pattern.factorizations
         c0 = ds.factorizations
+        v0 = getattr(ds, "variant_solves", 0)
         rec = None
         if ds.usable:
             try:
@@ -346,7 +348,9 @@ def run_rows(p: FireflowProblem, rows: np.ndarray) -> dict[str, np.ndarray]:
         recs.append(rec)
         factorizations[i] = sysm.pattern.factorizations - f0
         core_factorizations[i] = ds.factorizations - c0
+        status_variant[i] = not fallback[i] and getattr(ds, "variant_solves", 0) > v0
     out: dict[str, np.ndarray] = {"row": rows, "fallback": fallback,
+                                  "status_variant": status_variant,
                                   "factorizations": factorizations,
                                   "core_factorizations": core_factorizations}
     for name in fields:
