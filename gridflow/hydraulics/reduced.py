@@ -68,7 +68,7 @@ __all__ = ["Reduction", "ReducedDrawSolver"]
 MAX_VARIANTS = 8
 MAX_HOPS = 3
 #: memory the variants of one solver may hold [bytes], at about 400 bytes a link each
-#: (measured: 175 MB at 100k mains, 491k links with the hydrants' outlets; built in about 2 s
+#: (measured: 175 MB at 100k mains, 491k links with the hydrants' outlets; built in about 3 s
 #: there, the cost of a few hydrants on the full-Newton route)
 VARIANT_BYTES = 1_000_000_000
 _BYTES_PER_LINK = 400
