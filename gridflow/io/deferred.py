@@ -12,7 +12,35 @@ from __future__ import annotations
 
 from collections.abc import Callable
 
-__all__ = ["DeferredLayer", "materialize", "attributes"]
+__all__ = ["DeferredLayer", "RowGeometry", "materialize", "attributes"]
+
+
+class RowGeometry:
+    """A layer's geometry made on demand, a few rows at a time.
+
+    ``geom[rows]`` (``rows`` a slice or an array of positions) makes and returns those rows'
+    geometries (an object array of shapely geometries, None where a row has none);
+    ``present`` says which rows have one, without making any.
+
+    Parameters
+    ----------
+    make : callable
+        ``make(rows)`` as above.
+    present : ndarray of bool
+        Per row, whether it has a geometry.
+    """
+
+    __slots__ = ("_make", "present")
+
+    def __init__(self, make: Callable[[object], object], present) -> None:
+        self._make = make
+        self.present = present
+
+    def __getitem__(self, rows):
+        return self._make(rows)
+
+    def __len__(self) -> int:
+        return len(self.present)
 
 
 class DeferredLayer:
@@ -28,14 +56,30 @@ class DeferredLayer:
     attributes : DataFrame, optional
         The layer's fields without its geometry, where they are small enough to hold: what
         summaries and the report read, without building the layer.
+    geometry : RowGeometry or array, optional
+        The rows' geometries, by slice (``geometry[start:stop]``; a :class:`RowGeometry`
+        makes them on each call). With ``attributes``, writers stream the layer in parts
+        without ever holding all of its geometry (:func:`gridflow.io.write.write_layers`).
+    crs : optional
+        The geometry's CRS (with ``geometry``).
+    geometry_type : str
+        The layer's geometry type as ``pyogrio`` names it (with ``geometry``), e.g.
+        ``"MultiLineString Z"``; ``"Unknown"`` where rows have several types or none.
     """
 
-    __slots__ = ("_build", "rows", "attributes")
+    __slots__ = ("_build", "rows", "attributes", "geometry", "crs", "geometry_type")
 
-    def __init__(self, build: Callable[[], object], rows: int, attributes=None) -> None:
+    def __init__(self, build: Callable[[], object], rows: int, attributes=None, *,
+                 geometry=None, crs=None,
+                 geometry_type: str = "Unknown") -> None:
+        if geometry is not None and attributes is None:
+            raise ValueError("a DeferredLayer with a geometry function needs its attributes")
         self._build = build
         self.rows = int(rows)
         self.attributes = attributes
+        self.geometry = geometry
+        self.crs = crs
+        self.geometry_type = geometry_type
 
     def build(self):
         """The layer's frame, built now."""

@@ -471,7 +471,7 @@ def _report(cfg, html, clean, results, layers, info, routine, rating):
     """The HTML report, from the results in memory (SI arrays, typed criteria)."""
     import shapely
 
-    from gridflow.io.deferred import materialize
+    from gridflow.io.deferred import DeferredLayer, materialize
     from gridflow.report import ReportData, ScenarioData, write_report
     from gridflow.report.fireflow import in_service, limiting_nodes_table
     from gridflow.report.flowtests import flow_tests_table
@@ -480,6 +480,11 @@ def _report(cfg, html, clean, results, layers, info, routine, rating):
     scenarios = [ScenarioData.solved(name, net, r, cfg.criteria)
                  for name, (net, r) in results.items()]
     geoms = clean.nodes.geometry.values
+    seg = layers.get("segments")
+    seg_geometry = None
+    if isinstance(seg, DeferredLayer) and seg.geometry is not None:
+        # the map draws a few hundred segments: their geometry is made for those alone
+        seg, seg_geometry = seg.attributes, seg.geometry
     xy = None
     if len(geoms) == scenarios[0].network.n_nodes:
         xy = shapely.get_coordinates(geoms)
@@ -491,7 +496,7 @@ def _report(cfg, html, clean, results, layers, info, routine, rating):
                       hydrants=in_service(layers.get("hydrants_fireflow")),
                       findings=layers.get("findings"), changes=layers.get("changes"),
                       flow_tests=layers.get("flow_tests"),
-                      segments=materialize(layers.get("segments")),  # its map draws them
+                      segments=materialize(seg), segment_geometry=seg_geometry,
                       routine=routine, run_info=list(info),
                       hgl_path=cfg.report.hgl_path or None, worst_rows=cfg.report.worst_rows)
     write_report(html, data, extra_tables=[limiting_nodes_table, flow_tests_table,

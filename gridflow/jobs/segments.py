@@ -17,7 +17,7 @@ import shapely
 from gridflow.analysis.criticality import ClosureProblem, closure_sweep
 from gridflow.analysis.segments import Segments, find_segments, segment_members
 from gridflow.findings import Findings
-from gridflow.io.deferred import DeferredLayer
+from gridflow.io.deferred import DeferredLayer, RowGeometry
 from gridflow.jobs.layers import field_name
 from gridflow.network import LINK_PIPE, LINK_VALVE, VALVE_ISOLATION, Network
 from gridflow.units import out_field
@@ -129,22 +129,10 @@ def segments_step(cfg, clean, alloc, net: Network, base, opts, *, workers=None, 
     zone = net.zone.astype(str)[first_node]
 
     # geometry: the segment's mains as one multi-line (made for the findings' few segments
-    # now, for all of them when the layer is written)
-    link_geoms = clean.links.geometry.values
-    inside = np.flatnonzero(pipe & (seg.link_segment >= 0) & (net.length_m > 0))
-    order = inside[np.argsort(seg.link_segment[inside], kind="stable")]
-    link_segment = seg.link_segment
-    del inside
-
-    def multi_of(wanted: np.ndarray | None = None) -> np.ndarray:
-        """Per segment, its mains as one multi-line (None: no main, or not ``wanted``)."""
-        o = order if wanted is None else order[wanted[link_segment[order]]]
-        out = np.full(n, None, dtype=object)
-        if o.size:
-            owners, compact = np.unique(link_segment[o], return_inverse=True)
-            out[owners] = shapely.multilinestrings(
-                np.asarray(link_geoms[o], dtype=object), indices=compact)
-        return out
+    # now, a batch of segments at a time when the layer is written)
+    geometry = _segment_geometry(clean.links.geometry.values, pipe & (net.length_m > 0),
+                                 seg.link_segment, n)
+    multi_of = geometry.masked
 
     max_len = sec.max_length if sec.max_length > 0 else np.inf
     max_met = sec.max_meters if sec.max_meters > 0 else np.inf
@@ -176,8 +164,8 @@ def segments_step(cfg, clean, alloc, net: Network, base, opts, *, workers=None, 
     crs = clean.crs
 
     def build() -> gpd.GeoDataFrame:
-        return gpd.GeoDataFrame(attrs.copy(deep=False), geometry=gpd.GeoSeries(multi_of(),
-                                                                             crs=crs), crs=crs)
+        return gpd.GeoDataFrame(attrs.copy(deep=False), geometry=gpd.GeoSeries(
+            geometry[0:n], crs=crs), crs=crs)
 
     multi = multi_of(oversized | lonely | cuts)  # the findings' segments only
 
@@ -207,7 +195,67 @@ def segments_step(cfg, clean, alloc, net: Network, base, opts, *, workers=None, 
              ("segments:cannot_isolate", str(int(lonely.sum()))),
              ("segments:closure_cuts_off", str(int(cuts.sum()))),
              ("segments:not_supplied", str(int((~seg.supplied).sum())))]
-    return DeferredLayer(build, n, attributes=attrs)
+    # as pyogrio names it for the layer: Z when any main has Z; no segment with mains: Unknown
+    gtype = ("MultiLineString Z" if geometry.has_z() else "MultiLineString") \
+        if geometry.present.any() else "Unknown"
+    return DeferredLayer(build, n, attributes=attrs, geometry=geometry, crs=crs,
+                         geometry_type=gtype)
+
+
+class _SegmentGeometry(RowGeometry):
+    """Per segment, its mains as one multi-line (None: no main), made for the rows asked."""
+
+    __slots__ = ("_geoms", "_order", "_owner", "n")
+
+    def __init__(self, link_geoms, order: np.ndarray, owner: np.ndarray, n: int) -> None:
+        self._geoms, self._order, self._owner, self.n = link_geoms, order, owner, n
+        super().__init__(self._rows, np.bincount(owner, minlength=n) > 0)
+
+    def _multi(self, take: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Segments owning the mains ``order[take]`` and their multi-lines."""
+        o = self._order[take]
+        if not o.size:
+            return np.empty(0, np.int64), np.empty(0, object)
+        owners, compact = np.unique(self._owner[take], return_inverse=True)
+        return owners, shapely.multilinestrings(np.asarray(self._geoms[o], dtype=object),
+                                                indices=compact)
+
+    def _rows(self, rows) -> np.ndarray:
+        if isinstance(rows, slice):
+            a, b, step = rows.indices(self.n)
+            if step == 1:
+                lo, hi = np.searchsorted(self._owner, [a, max(a, b)])
+                out = np.full(max(b - a, 0), None, dtype=object)
+                owners, multi = self._multi(np.arange(lo, hi))
+                out[owners - a] = multi
+                return out
+            rows = np.arange(a, b, step)
+        rows = np.asarray(rows, dtype=np.int64)
+        wanted = np.zeros(self.n, dtype=bool)
+        wanted[rows] = True
+        return self.masked(wanted)[rows]
+
+    def has_z(self) -> bool:
+        """Whether any segment's geometry has Z (any of its mains)."""
+        return bool(shapely.has_z(np.asarray(self._geoms[self._order], dtype=object)).any())
+
+    def masked(self, wanted: np.ndarray | None = None) -> np.ndarray:
+        """All segments (None where not ``wanted``)."""
+        out = np.full(self.n, None, dtype=object)
+        take = np.arange(len(self._order)) if wanted is None else \
+            np.flatnonzero(wanted[self._owner])
+        owners, multi = self._multi(take)
+        out[owners] = multi
+        return out
+
+
+def _segment_geometry(link_geoms, mains: np.ndarray, link_segment: np.ndarray,
+                      n: int) -> _SegmentGeometry:
+    """The segments' geometry from their mains (``mains``: links drawn), ordered by segment
+    and, within one, by link position."""
+    inside = np.flatnonzero(mains & (link_segment >= 0))
+    order = inside[np.argsort(link_segment[inside], kind="stable")]
+    return _SegmentGeometry(link_geoms, order, link_segment[order], n)
 
 
 def _criticality(cfg, clean, net, base, opts, seg: Segments, m_node, h_node, workers,

@@ -202,10 +202,22 @@ def _segments(d: ReportData, x0: float, y0: float) -> dict | None:
     import shapely
 
     sg = d.segments
-    if sg is None or not len(sg) or "geometry" not in sg:
+    if sg is None or not len(sg):
         return None
-    geom = np.asarray(sg.geometry.values, dtype=object)
-    has = ~(shapely.is_missing(geom) | shapely.is_empty(geom))
+    if "geometry" in sg:
+        geom = np.asarray(sg.geometry.values, dtype=object)
+        has = ~(shapely.is_missing(geom) | shapely.is_empty(geom))
+
+        def geometry_at(idx: np.ndarray) -> np.ndarray:
+            return geom[idx]
+    elif d.segment_geometry is not None:  # made for the drawn segments only
+        lazy = d.segment_geometry
+        has = np.asarray(lazy.present, dtype=bool)
+
+        def geometry_at(idx: np.ndarray) -> np.ndarray:
+            return np.asarray(lazy[idx], dtype=object)
+    else:
+        return None
     cut = sg["cut_off_segments"].to_numpy() > 0
     over = sg["oversized"].to_numpy() == 1
     lone = sg["cannot_isolate"].to_numpy() == 1
@@ -216,7 +228,8 @@ def _segments(d: ReportData, x0: float, y0: float) -> dict | None:
     if not len(idx):
         return None
     sub = sg.iloc[idx]
-    parts, owner = shapely.get_parts(shapely.simplify(geom[idx], 2.0), return_index=True)
+    parts, owner = shapely.get_parts(shapely.simplify(geometry_at(idx), 2.0),
+                                     return_index=True)
     xy, pidx = shapely.get_coordinates(parts, return_index=True)
     xy = xy - [x0, y0]
     lines: list[list[list[float]]] = [[] for _ in idx]
