@@ -35,10 +35,12 @@ log = logging.getLogger("gridflow")
 
 #: GDAL config options for writing a fresh GeoPackage that is synced and renamed when complete:
 #: no per-commit sync and no rollback journal (a failed write is discarded whole), and a
-#: larger page cache for building the spatial index [MB]
+#: page cache large enough that SQLite does not write and read back pages it evicted [MB]
+#: (with the default 2 MB, writing 1M points and 1M lines wrote 5.1 GB and read 4.8 GB
+#: for a 469 MB file; from 32 MB on, it writes the file once)
 GPKG_WRITE_OPTIONS: dict[str, str] = {"OGR_SQLITE_SYNCHRONOUS": "OFF",
                                       "OGR_SQLITE_JOURNAL": "OFF",
-                                      "OGR_SQLITE_CACHE": "512"}
+                                      "OGR_SQLITE_CACHE": "32"}
 #: rows per Arrow record batch handed to GDAL (the WKB of one batch exists at a time)
 BATCH_ROWS = 262_144
 

@@ -16,7 +16,8 @@ from gridflow.hydraulics import LINK_STATE_NAMES, HydraulicResult
 from gridflow.network import LINK_KINDS, NODE_KINDS, Network
 from gridflow.units import FT, UnitSystem, out_field
 
-__all__ = ["nodes_layer", "pipes_layer", "hydrants_layer", "field_name", "roughness_out"]
+__all__ = ["nodes_layer", "pipes_layer", "hydrants_layer", "field_name", "roughness_out",
+           "forget_text_columns"]
 
 
 def field_name(quantity: str, system: UnitSystem | str, stem: str | None = None) -> str:
@@ -45,6 +46,11 @@ def _text(values: np.ndarray, take: np.ndarray | None = None):
         _TEXT.pop(next(iter(_TEXT)))
     _TEXT[key] = (values, take, col)
     return col
+
+
+def forget_text_columns() -> None:
+    """Let go of the text columns kept for the scenarios' layers (once they are written)."""
+    _TEXT.clear()
 
 
 def _conv(values, quantity: str, system: UnitSystem | str) -> np.ndarray:

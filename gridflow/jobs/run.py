@@ -407,6 +407,10 @@ def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
             gpkg = outputs["output GeoPackage"]
             outs.write(gpkg, lambda tmp: write_layers(tmp, layers, styles=True))
             log.info("wrote %s", gpkg)
+            from gridflow.jobs.layers import forget_text_columns
+
+            forget_text_columns()  # the layers' id columns: not needed by the report
+            _released("writing the GeoPackage")
         if cfg.report.enabled:
             html = outputs["report"]
             outs.write(html, lambda tmp: _report(cfg, tmp, clean, results, layers, info,

@@ -107,3 +107,32 @@ def test_ids_are_joined_per_segment_in_their_order():
     got = _joined(groups, values, 5, most=2)
     assert list(got) == ["V1, V2", "", "V7, V3 and 1 more", "", "V5"]
     assert list(_joined(groups[:0], values[:0], 3)) == ["", "", ""]
+
+
+def test_segment_geometry_made_by_rows_equals_whole():
+    """Each segment's mains as one multi-line, in link order, made for any rows asked (a
+    batch, a few positions, a mask) the same as for all of them (hand-made case: segment 3
+    has no main; link 2 belongs to no segment; link 6 is not drawn)."""
+    import shapely
+
+    from gridflow.jobs.segments import _segment_geometry
+
+    lines = shapely.linestrings([[(k, 0, 5.0), (k, 1, 6.0)] for k in range(7)])
+    link_segment = np.array([0, 2, -1, 0, 2, 1, 1])
+    drawn = np.array([True] * 6 + [False])
+    g = _segment_geometry(lines, drawn, link_segment, 4)
+    want = [shapely.multilinestrings([lines[0], lines[3]]), shapely.multilinestrings([lines[5]]),
+            shapely.multilinestrings([lines[1], lines[4]]), None]
+    assert g.present.tolist() == [True, True, True, False]
+    assert g.has_z()
+
+    def same(got, exp):
+        return all((a is None and b is None) or (a is not None and b is not None and
+                                                 shapely.equals_exact(a, b, tolerance=0))
+                   for a, b in zip(got, exp, strict=True))
+
+    assert same(g[0:4], want)
+    assert same(g[1:3], want[1:3]) and same(g[3:4], [None]) and same(g[2:2], [])
+    assert same(g[np.array([3, 0, 2])], [want[3], want[0], want[2]])
+    assert same(g.masked(np.array([False, True, False, True])), [None, want[1], None, None])
+    assert same(g.masked(), want)

@@ -555,6 +555,36 @@ def test_map_payload_carries_segments_to_look_at(run_us):
     assert payload["flowTests"] is None  # none mapped: no layer
 
 
+def test_map_payload_same_with_segment_geometry_made_on_demand(run_us):
+    """Segments handed over as fields plus geometry made for the drawn rows only (as a large
+    run does) give the map the same layer as the whole frame; only drawn rows are made."""
+    from dataclasses import replace
+
+    import pandas as pd
+
+    from gridflow.io.deferred import RowGeometry
+    from gridflow.report.interactive import map_payload
+
+    data, _, _, net = run_us
+    frame, _ = _segments_frame(data, net)
+    geoms = np.asarray(frame.geometry.values, dtype=object)
+    asked = []
+
+    def make(rows):
+        asked.append(np.asarray(rows).tolist())
+        return geoms[rows]
+
+    lazy = RowGeometry(make, np.array([True, True]))
+    whole = map_payload(replace(data, segments=frame))["segments"]
+    made = map_payload(replace(data, segments=pd.DataFrame(frame.drop(columns="geometry")),
+                               segment_geometry=lazy))["segments"]
+    assert made == whole and asked == [[0, 1]]
+    absent = RowGeometry(make, np.array([False, True]))  # no geometry: not drawn, not made
+    got = map_payload(replace(data, segments=pd.DataFrame(frame.drop(columns="geometry")),
+                              segment_geometry=absent))["segments"]
+    assert got["id"] == ["SEG-2"] and asked[-1] == [1]
+
+
 def test_browser_map_draws_the_segment_layer(run_us, tmp_path):
     """With segments, the map offers their layer; turning it on and opening a segment's
     popup works without a script error."""
