@@ -351,6 +351,7 @@ def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
             del system
             log.info("scenario %s: %s", name, r.message)
 
+        shared = None  # the symbolic analysis: no more systems are built from here on
         if failure is None and cfg.fireflow.enabled and len(clean.hydrants):
             layers["hydrants_fireflow"] = _fireflow(cfg, clean, results, opts, workers,
                                                     scheduler, findings, info)
@@ -374,6 +375,7 @@ def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
                 findings=findings, info=info, progress=terminal_progress("segment closures"))
             _released("valve segments")
             info.append(("seconds_segments", f"{time.perf_counter() - t0:.2f}"))
+        del alloc  # the meters' allocation served the scenarios, flow tests and segments
 
         # the layer holds what someone should look at; routine facts become counts
         findings_gdf = findings.to_geodataframe(crs=clean.crs, routine=False)
@@ -403,6 +405,8 @@ def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
             raise failure
         published = None
         _released("the analyses")
+        # what the report takes from the GIS layers: node coordinates, the drawn segments
+        parts = _report_parts(clean, layers) if cfg.report.enabled else None
         if db_out is None:
             gpkg = outputs["output GeoPackage"]
             outs.write(gpkg, lambda tmp: write_layers(tmp, layers, styles=True))
@@ -410,11 +414,13 @@ def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
             from gridflow.jobs.layers import forget_text_columns
 
             forget_text_columns()  # the layers' id columns: not needed by the report
+            if parts is not None:
+                _let_go_of_geometry(clean, layers)
             _released("writing the GeoPackage")
         if cfg.report.enabled:
             html = outputs["report"]
             outs.write(html, lambda tmp: _report(cfg, tmp, clean, results, layers, info,
-                                                  routine, rating))
+                                                  routine, rating, parts))
             log.info("wrote %s", html)
             _released("the report")
         if handler is not None:
@@ -471,11 +477,48 @@ def _fireflow(cfg, clean, results, opts, workers, scheduler, findings, info):
     return layer
 
 
-def _report(cfg, html, clean, results, layers, info, routine, rating):
-    """The HTML report, from the results in memory (SI arrays, typed criteria)."""
+def _report_parts(clean, layers) -> dict:
+    """What the report takes from the GIS layers, made before they are let go: the node
+    coordinates and the segments' fields with the geometry of the segments the map draws."""
+    import geopandas as gpd
     import shapely
 
     from gridflow.io.deferred import DeferredLayer, materialize
+    from gridflow.report.interactive import segments_to_draw
+
+    geoms = clean.nodes.geometry.values
+    xy = shapely.get_coordinates(geoms)
+    xy = xy if len(xy) == len(geoms) else None
+    seg = layers.get("segments")
+    if isinstance(seg, DeferredLayer) and seg.geometry is not None:
+        # the map draws a few hundred segments: their geometry is made for those alone
+        attrs = seg.attributes
+        drawn = segments_to_draw(attrs, seg.geometry.present)
+        geom = np.full(len(attrs), None, dtype=object)
+        geom[drawn] = seg.geometry[drawn]
+        seg = gpd.GeoDataFrame(attrs.copy(deep=False), geometry=gpd.GeoSeries(
+            geom, crs=seg.crs), crs=seg.crs)
+    else:
+        seg = materialize(seg)
+    return {"node_xy": xy, "segments": seg}
+
+
+def _let_go_of_geometry(clean, layers) -> None:
+    """Drop the nodes' and links' geometry once the GeoPackage is written (the report has
+    its parts): at the scale of a large utility, shapely objects for millions of features.
+    The scenario layers cannot be built again after this."""
+    from gridflow.io.deferred import DeferredLayer
+
+    for name in ("nodes", "links"):
+        frame = getattr(clean, name)
+        setattr(clean, name, pd.DataFrame(frame.drop(columns=frame.geometry.name)))
+    seg = layers.get("segments")
+    if isinstance(seg, DeferredLayer) and seg.geometry is not None:
+        layers["segments"] = seg.attributes
+
+
+def _report(cfg, html, clean, results, layers, info, routine, rating, parts):
+    """The HTML report, from the results in memory (SI arrays, typed criteria)."""
     from gridflow.report import ReportData, ScenarioData, write_report
     from gridflow.report.fireflow import in_service, limiting_nodes_table
     from gridflow.report.flowtests import flow_tests_table
@@ -483,24 +526,16 @@ def _report(cfg, html, clean, results, layers, info, routine, rating):
 
     scenarios = [ScenarioData.solved(name, net, r, cfg.criteria)
                  for name, (net, r) in results.items()]
-    geoms = clean.nodes.geometry.values
-    seg = layers.get("segments")
-    seg_geometry = None
-    if isinstance(seg, DeferredLayer) and seg.geometry is not None:
-        # the map draws a few hundred segments: their geometry is made for those alone
-        seg, seg_geometry = seg.attributes, seg.geometry
-    xy = None
-    if len(geoms) == scenarios[0].network.n_nodes:
-        xy = shapely.get_coordinates(geoms)
-        xy = xy if len(xy) == len(geoms) else None
+    xy = parts["node_xy"]
+    if xy is not None and len(xy) != scenarios[0].network.n_nodes:
+        xy = None
     data = ReportData(scenarios=scenarios, criteria=cfg.criteria, units=cfg.run.units,
                       name=cfg.run.name, node_xy=xy,
                       crs=clean.crs.name if clean.crs is not None else "",
                       pressure_rating_m=rating,
                       hydrants=in_service(layers.get("hydrants_fireflow")),
                       findings=layers.get("findings"), changes=layers.get("changes"),
-                      flow_tests=layers.get("flow_tests"),
-                      segments=materialize(seg), segment_geometry=seg_geometry,
+                      flow_tests=layers.get("flow_tests"), segments=parts["segments"],
                       routine=routine, run_info=list(info),
                       hgl_path=cfg.report.hgl_path or None, worst_rows=cfg.report.worst_rows)
     write_report(html, data, extra_tables=[limiting_nodes_table, flow_tests_table,

@@ -73,11 +73,8 @@ class ReportData:
         as the run wrote them; geometry, where present, locates them on the maps.
     flow_tests, segments : DataFrame, optional
         The ``flow_tests`` and ``segments`` layers as the run wrote them (run units); the
-        segments' geometry may be left out and given as ``segment_geometry``.
-    segment_geometry : RowGeometry, optional
-        The segments' geometry made on demand (:class:`gridflow.io.deferred.RowGeometry`:
-        ``present`` per segment, ``geometry[positions]``), for the few segments the map
-        draws; used when ``segments`` has no geometry column.
+        segments' geometry may be left empty (None) but for the segments the map draws
+        (:func:`gridflow.report.interactive.segments_to_draw`).
     routine : dict of str to int
         Routine facts counted by kind (not findings rows).
     run_info : list of (str, str)
@@ -96,7 +93,6 @@ class ReportData:
     changes: pd.DataFrame | None = None
     flow_tests: pd.DataFrame | None = None
     segments: pd.DataFrame | None = None
-    segment_geometry: object | None = None
     routine: dict[str, int] = field(default_factory=dict)
     run_info: list[tuple[str, str]] = field(default_factory=list)
     hgl_path: list[str] | None = None

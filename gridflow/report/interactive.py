@@ -196,40 +196,37 @@ def _findings(d: ReportData, x0: float, y0: float) -> dict | None:
 MAX_MAP_SEGMENTS = 400
 
 
-def _segments(d: ReportData, x0: float, y0: float) -> dict | None:
-    """Valve segments that need a look: closure cuts off others, oversized, cannot be
-    isolated, then the most critical; geometry simplified to about 2 m."""
-    import shapely
-
-    sg = d.segments
-    if sg is None or not len(sg):
-        return None
-    if "geometry" in sg:
-        geom = np.asarray(sg.geometry.values, dtype=object)
-        has = ~(shapely.is_missing(geom) | shapely.is_empty(geom))
-
-        def geometry_at(idx: np.ndarray) -> np.ndarray:
-            return geom[idx]
-    elif d.segment_geometry is not None:  # made for the drawn segments only
-        lazy = d.segment_geometry
-        has = np.asarray(lazy.present, dtype=bool)
-
-        def geometry_at(idx: np.ndarray) -> np.ndarray:
-            return np.asarray(lazy[idx], dtype=object)
-    else:
-        return None
+def segments_to_draw(sg: pd.DataFrame, present: np.ndarray) -> np.ndarray:
+    """Positions of the segments the map draws, among those with geometry (``present``):
+    those whose closure cuts off others, oversized or that cannot be isolated first, then by
+    criticality rank; at most :data:`MAX_MAP_SEGMENTS`."""
     cut = sg["cut_off_segments"].to_numpy() > 0
     over = sg["oversized"].to_numpy() == 1
     lone = sg["cannot_isolate"].to_numpy() == 1
     rank = (sg["criticality_rank"].to_numpy(dtype=float) if "criticality_rank" in sg
             else np.full(len(sg), np.nan))
     score = np.where(cut | over | lone, -1e9, np.where(np.isfinite(rank), rank, 1e9))
-    idx = pick(score, has, MAX_MAP_SEGMENTS)
+    return pick(score, np.asarray(present, dtype=bool), MAX_MAP_SEGMENTS)
+
+
+def _segments(d: ReportData, x0: float, y0: float) -> dict | None:
+    """Valve segments that need a look: closure cuts off others, oversized, cannot be
+    isolated, then the most critical; geometry simplified to about 2 m."""
+    import shapely
+
+    sg = d.segments
+    if sg is None or not len(sg) or "geometry" not in sg:
+        return None
+    geom = np.asarray(sg.geometry.values, dtype=object)
+    has = ~(shapely.is_missing(geom) | shapely.is_empty(geom))
+    idx = segments_to_draw(sg, has)
     if not len(idx):
         return None
+    cut = sg["cut_off_segments"].to_numpy() > 0
+    over = sg["oversized"].to_numpy() == 1
+    lone = sg["cannot_isolate"].to_numpy() == 1
     sub = sg.iloc[idx]
-    parts, owner = shapely.get_parts(shapely.simplify(geometry_at(idx), 2.0),
-                                     return_index=True)
+    parts, owner = shapely.get_parts(shapely.simplify(geom[idx], 2.0), return_index=True)
     xy, pidx = shapely.get_coordinates(parts, return_index=True)
     xy = xy - [x0, y0]
     lines: list[list[list[float]]] = [[] for _ in idx]

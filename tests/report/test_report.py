@@ -555,34 +555,29 @@ def test_map_payload_carries_segments_to_look_at(run_us):
     assert payload["flowTests"] is None  # none mapped: no layer
 
 
-def test_map_payload_same_with_segment_geometry_made_on_demand(run_us):
-    """Segments handed over as fields plus geometry made for the drawn rows only (as a large
-    run does) give the map the same layer as the whole frame; only drawn rows are made."""
+def test_map_payload_same_with_only_the_drawn_segments_geometry(run_us):
+    """A large run hands the report the segments' fields with geometry for the segments the
+    map draws only (None elsewhere): the map's segment layer is the same as with all of it."""
     from dataclasses import replace
 
-    import pandas as pd
-
-    from gridflow.io.deferred import RowGeometry
-    from gridflow.report.interactive import map_payload
+    from gridflow.report.interactive import MAX_MAP_SEGMENTS, map_payload, segments_to_draw
 
     data, _, _, net = run_us
     frame, _ = _segments_frame(data, net)
-    geoms = np.asarray(frame.geometry.values, dtype=object)
-    asked = []
-
-    def make(rows):
-        asked.append(np.asarray(rows).tolist())
-        return geoms[rows]
-
-    lazy = RowGeometry(make, np.array([True, True]))
-    whole = map_payload(replace(data, segments=frame))["segments"]
-    made = map_payload(replace(data, segments=pd.DataFrame(frame.drop(columns="geometry")),
-                               segment_geometry=lazy))["segments"]
-    assert made == whole and asked == [[0, 1]]
-    absent = RowGeometry(make, np.array([False, True]))  # no geometry: not drawn, not made
-    got = map_payload(replace(data, segments=pd.DataFrame(frame.drop(columns="geometry")),
-                              segment_geometry=absent))["segments"]
-    assert got["id"] == ["SEG-2"] and asked[-1] == [1]
+    n = MAX_MAP_SEGMENTS + 40  # more segments than the map draws
+    many = frame.iloc[np.arange(n) % 2].reset_index(drop=True)
+    many["segment_id"] = [f"SEG-{k}" for k in range(n)]
+    many["criticality_rank"] = np.arange(n, 0, -1, dtype=float)
+    many["cut_off_segments"] = np.where(np.arange(n) % 5 == 0, 1, 0)
+    many["oversized"] = 0
+    whole = map_payload(replace(data, segments=many))["segments"]
+    drawn = segments_to_draw(many, np.ones(n, bool))
+    assert len(drawn) == MAX_MAP_SEGMENTS and whole["id"] == many["segment_id"][drawn].tolist()
+    sparse = many.copy()
+    keep = np.zeros(n, bool)
+    keep[drawn] = True
+    sparse.loc[~keep, "geometry"] = None
+    assert map_payload(replace(data, segments=sparse))["segments"] == whole
 
 
 def test_browser_map_draws_the_segment_layer(run_us, tmp_path):
