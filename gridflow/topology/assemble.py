@@ -25,8 +25,10 @@ __all__ = ["assemble"]
 
 
 def assemble(ctx: Context, at: Attached, nt: NodeTable, lt: LinkTable, elev: np.ndarray,
-             guessed: np.ndarray) -> CleanNetwork:
-    """Stage 8: zones named, the frozen :class:`Network` built, nodes/links/hydrants frames."""
+             guessed: np.ndarray) -> tuple[CleanNetwork, np.ndarray]:
+    """Stage 8: zones named, the frozen :class:`Network` built, nodes/links/hydrants frames;
+    and each node's zone part (:func:`~gridflow.topology.zones.zone_names`), from which the
+    checks find the network's parts."""
     import geopandas as gpd
 
     cfg, c = ctx.cfg, lt.cols
@@ -66,7 +68,7 @@ def assemble(ctx: Context, at: Attached, nt: NodeTable, lt: LinkTable, elev: np.
     _prv_reach(ctx, net, c["geom"])
     return CleanNetwork(network=net, nodes=nodes_gdf, links=links_gdf,
                         hydrants=_hydrants_frame(at, nt, net, crs), meters=meters, crs=crs,
-                        inputs=list(ctx.read.files), elevation_guessed=guessed)
+                        inputs=list(ctx.read.files), elevation_guessed=guessed), zone_of
 
 
 def _text_of_codes(names, codes: np.ndarray) -> pd.api.extensions.ExtensionArray:
