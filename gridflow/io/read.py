@@ -563,7 +563,7 @@ def _id_texts(col: pd.Series, role: str, info: LayerInfo, findings: Findings):
         findings.add_many("missing_id", "warning", info.layer, txt[rows],
                           f"feature without {role[:-1]} id; named by its row")
         column = None
-    if _distinct(txt, column):  # the usual case: one hash pass, no repeats
+    if len(set(txt.tolist())) == len(txt):  # the usual case: one hash pass, no repeats
         return txt, column
     s = pd.Series(txt)
     k = s.groupby(s, sort=False).cumcount().to_numpy()
@@ -574,17 +574,6 @@ def _id_texts(col: pd.Series, role: str, info: LayerInfo, findings: Findings):
                            f"{t}#{kk + 1}" for t, kk in zip(txt[rows], k[rows])])
         txt[rows] = [f"{t}#{kk + 1}" for t, kk in zip(txt[rows], k[rows])]
     return txt, None
-
-
-def _distinct(txt: np.ndarray, column) -> bool:
-    """True when no two ids repeat: counted by Arrow's hashing where Arrow holds the same
-    text (``column``), else by a Python set of the strings."""
-    arr = getattr(column, "_pa_array", None)
-    if arr is not None and arr.null_count == 0:
-        import pyarrow.compute as pc
-
-        return pc.count_distinct(arr, mode="all").as_py() == len(txt)
-    return len(set(txt.tolist())) == len(txt)
 
 
 def _arrow_text(values):

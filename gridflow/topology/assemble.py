@@ -17,7 +17,7 @@ from gridflow.network import (
 )
 from gridflow.topology.clean import CleanNetwork
 from gridflow.topology.links import CLOSED_WORDS
-from gridflow.topology.points import column
+from gridflow.topology.points import column, text_in
 from gridflow.topology.records import Attached, Context, LinkTable, NodeTable
 from gridflow.topology.zones import zone_names
 
@@ -55,7 +55,7 @@ def assemble(ctx: Context, at: Attached, nt: NodeTable, lt: LinkTable, elev: np.
         geometry=node_pts, crs=crs)
     year = c["year"]
     links_gdf = gpd.GeoDataFrame(
-        {"pipe_id": net.link_id,
+        {"pipe_id": _text_column(lt.id_text, net.link_id),
          "kind": _text_of_codes(LINK_KINDS, net.link_kind),
          "material": pd.array(c["material"], dtype="string"),
          "install_year": pd.array(np.where(np.isfinite(year), np.round(year), np.nan),
@@ -69,6 +69,14 @@ def assemble(ctx: Context, at: Attached, nt: NodeTable, lt: LinkTable, elev: np.
     return CleanNetwork(network=net, nodes=nodes_gdf, links=links_gdf,
                         hydrants=_hydrants_frame(at, nt, net, crs), meters=meters, crs=crs,
                         inputs=list(ctx.read.files), elevation_guessed=guessed), zone_of
+
+
+def _text_column(text, ids: np.ndarray):
+    """The frame column pandas makes of ``ids`` (Python strings), from the same strings held
+    as Arrow text when there are (no conversion of each str)."""
+    if text is None or len(ids) == 0:
+        return ids
+    return pd.array(text, dtype=pd.StringDtype("pyarrow", na_value=np.nan))
 
 
 def _text_of_codes(names, codes: np.ndarray) -> pd.api.extensions.ExtensionArray:
@@ -139,7 +147,6 @@ def _hydrants_frame(at: Attached, nt: NodeTable, net: Network, crs):
     fr = at.hydrants.frame
     ok = at.hyd_key >= 0
     ni = nt.idx_of_key[at.hyd_key[ok]]
-    status = column(fr, "status", object).astype(str)
     return gpd.GeoDataFrame(
         {"hydrant_id": fr["hydrant_id"].to_numpy(dtype=object)[ok], "node_idx": ni,
          "node_id": net.node_id[ni], "zone": net.zone[ni],
@@ -147,5 +154,5 @@ def _hydrants_frame(at: Attached, nt: NodeTable, net: Network, crs):
          "land_use": column(fr, "land_use", object)[ok],
          "lateral_length_m": column(fr, "lateral_length")[ok],
          "lateral_diameter_m": column(fr, "lateral_diameter")[ok],
-         "in_service": ~np.isin(status[ok], CLOSED_WORDS)},
+         "in_service": ~text_in(fr, "status", CLOSED_WORDS)[ok]},
         geometry=at.hydrants.pts[ok], crs=crs)

@@ -125,7 +125,7 @@ class Split:
     line: np.ndarray  # the main each piece came from
     from_key: np.ndarray
     to_key: np.ndarray
-    pipe_id: np.ndarray
+    pipe_id: Any  # pyarrow large_string array: the piece ids
 
 
 @dataclass(frozen=True)
@@ -150,3 +150,4 @@ class LinkTable:
 
     cols: dict  # name -> array (see :func:`gridflow.topology.links.link_table`)
     ids_distinct: bool = False  # cols["link_id"] shown distinct as text
+    id_text: Any = None  # cols["link_id"] as a pyarrow large_string array, when made so
