@@ -93,14 +93,10 @@ def _text_of_codes(names, codes: np.ndarray) -> pd.api.extensions.ExtensionArray
 
 
 def _node_points(at: Attached, nt: NodeTable) -> np.ndarray:
-    """Points at the nodes: the snapping stage's cluster points where a node is a cluster,
-    new points for the nodes the later stages added."""
-    if at.cluster_pts is None:
-        return shapely.points(nt.xy)
-    out = np.empty(len(nt.keys), dtype=object)
-    cl = nt.keys < at.n_clusters
-    out[cl] = at.cluster_pts[nt.keys[cl]]
-    new = np.flatnonzero(~cl)
+    """Points at the nodes: the points made where their keys were (the snapping stage's
+    cluster points, the attachment's points on the mains); new points for any other."""
+    out = at.key_pts[nt.keys]
+    new = np.flatnonzero(shapely.is_missing(out))
     if len(new):
         # nodes in one place (a valve's two sides) sit next to each other in node order:
         # one point serves the run

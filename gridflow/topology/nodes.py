@@ -34,8 +34,7 @@ def number_nodes(ctx: Context, sn: Snapped, at: Attached, sp: Split) -> NodeTabl
     end_keys[: at.n_clusters] = used[: at.n_clusters]
     fixed, standin_keys = _fixed_heads(ctx, key_xy, end_keys)
     keys = np.flatnonzero(used)
-    kx = np.round(key_xy[keys], 3)
-    keys = keys[np.lexsort((keys, kx[:, 1], kx[:, 0]))]
+    keys = keys[_xy_order(key_xy[keys])]
     nn = len(keys)
     idx_of_key = np.full(len(key_xy), -1)
     idx_of_key[keys] = np.arange(nn)
@@ -83,6 +82,28 @@ def number_nodes(ctx: Context, sn: Snapped, at: Attached, sp: Split) -> NodeTabl
     return NodeTable(keys=keys, idx_of_key=idx_of_key, xy=node_xy,
                      node_id=node_id, kind=kind, fixed_head_m=fixed_head,
                      elevation_m=elev, standin=standin, zone=zone, ids_distinct=distinct)
+
+
+def _xy_order(xy: np.ndarray) -> np.ndarray:
+    """The order of points by x, then y, each rounded to the mm, then position (stable).
+
+    Notes
+    -----
+    ``np.round(v, 3)`` is ``rint(v * 1000) / 1000``: the integers ``rint(v * 1000)`` order
+    and tie the points exactly as the rounded values do (while below 2**52), so one stable
+    sort of one integer per point (x's, then y's, in one range) gives the order of a
+    three-key ``lexsort``, in about a third of its time. Coordinates that do not fit take
+    the ``lexsort``.
+    """
+    if len(xy) and np.isfinite(xy).all():
+        r = np.rint(xy * 1000.0)
+        lo, hi = r.min(axis=0), r.max(axis=0)
+        if np.abs(r).max() < 2.0**52 and (hi[0] - lo[0] + 1) * (hi[1] - lo[1] + 1) < 2.0**62:
+            a = (r[:, 0] - lo[0]).astype(np.int64)
+            b = (r[:, 1] - lo[1]).astype(np.int64)
+            return np.argsort(a * (int(hi[1] - lo[1]) + 1) + b, kind="stable")
+    kx = np.round(xy, 3)
+    return np.lexsort((np.arange(len(xy)), kx[:, 1], kx[:, 0]))
 
 
 def _generated_ids(taken: np.ndarray, n: int) -> np.ndarray:

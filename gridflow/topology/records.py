@@ -103,6 +103,7 @@ class Attached:
     """Split events on the mains and the keys point features sit at."""
 
     key_xy: np.ndarray  # position of every key [m]
+    key_pts: np.ndarray  # a Point at every key (None where none was made)
     n_clusters: int
     ev_line: np.ndarray  # events sorted by (line, distance along it)
     ev_s: np.ndarray
