@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
 import shapely
 
 from gridflow.network import (
@@ -17,7 +18,7 @@ from gridflow.network import (
 )
 from gridflow.topology.clean import CleanNetwork
 from gridflow.topology.links import CLOSED_WORDS
-from gridflow.topology.points import column, text_in
+from gridflow.topology.points import arrow_text, column, text_in
 from gridflow.topology.records import Attached, Context, LinkTable, NodeTable
 from gridflow.topology.zones import zone_names
 
@@ -50,7 +51,8 @@ def assemble(ctx: Context, at: Attached, nt: NodeTable, lt: LinkTable, elev: np.
     crs = ctx.crs
     node_pts = _node_points(at, nt)
     nodes_gdf = gpd.GeoDataFrame(
-        {"node_id": net.node_id, "kind": _text_of_codes(NODE_KINDS, net.node_kind),
+        {"node_id": _text_column(nt.id_text, net.node_id),
+         "kind": _text_of_codes(NODE_KINDS, net.node_kind),
          "zone": _text_of_codes(zone_name, zone_of)},
         geometry=node_pts, crs=crs)
     year = c["year"]
@@ -77,6 +79,14 @@ def _text_column(text, ids: np.ndarray):
     if text is None or len(ids) == 0:
         return ids
     return pd.array(text, dtype=pd.StringDtype("pyarrow", na_value=np.nan))
+
+
+def _hydrant_ids(ids, ok: np.ndarray):
+    """The attached hydrants' ids as the frame column pandas makes of their strings."""
+    text = arrow_text(ids)
+    if text is None or not ok.any():
+        return ids.to_numpy(dtype=object)[ok]
+    return pd.array(text.filter(pa.array(ok)), dtype=pd.StringDtype("pyarrow", na_value=np.nan))
 
 
 def _text_of_codes(names, codes: np.ndarray) -> pd.api.extensions.ExtensionArray:
@@ -144,8 +154,11 @@ def _hydrants_frame(at: Attached, nt: NodeTable, net: Network, crs):
     ok = at.hyd_key >= 0
     ni = nt.idx_of_key[at.hyd_key[ok]]
     return gpd.GeoDataFrame(
-        {"hydrant_id": fr["hydrant_id"].to_numpy(dtype=object)[ok], "node_idx": ni,
-         "node_id": net.node_id[ni], "zone": net.zone[ni],
+        {"hydrant_id": _hydrant_ids(fr["hydrant_id"], ok), "node_idx": ni,
+         "node_id": _text_column(None if nt.id_text is None
+                                 else nt.id_text.take(pa.array(ni, type=pa.int64())),
+                                 net.node_id[ni]),
+         "zone": net.zone[ni],
          "required_fire_flow_m3s": column(fr, "required_fire_flow")[ok],
          "land_use": column(fr, "land_use", object)[ok],
          "lateral_length_m": column(fr, "lateral_length")[ok],

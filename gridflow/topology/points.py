@@ -71,15 +71,18 @@ def point_layer(ctx: Context, role: str) -> PointLayer | None:
     idc = fr.columns[0]
     g = np.asarray(fr.geometry.values, dtype=object)
     bad = shapely.is_missing(g) | shapely.is_empty(g)
-    f.add_many("no_geometry", "error", layer, fr[idc].to_numpy()[bad],
-               f"{role[:-1]} without geometry left out")
+    if bad.any():
+        f.add_many("no_geometry", "error", layer, fr[idc].to_numpy()[bad],
+                   f"{role[:-1]} without geometry left out")
     keep = ~bad
     if "status" in fr:
         ab = (fr["status"] == "abandoned").to_numpy() & keep
-        f.add_many("abandoned_left_out", "info", layer, fr[idc].to_numpy()[ab],
-                   f"abandoned {role[:-1]} left out", g[ab])
+        if ab.any():
+            f.add_many("abandoned_left_out", "info", layer, fr[idc].to_numpy()[ab],
+                       f"abandoned {role[:-1]} left out", g[ab])
         keep &= ~ab
-    fr = fr[keep].reset_index(drop=True)
+    # every feature kept (the usual case): the frame as read, not a copy of it
+    fr = (fr if keep.all() else fr[keep]).reset_index(drop=True)
     g = g[keep]
     if len(g):
         tid = shapely.get_type_id(g)

@@ -143,6 +143,7 @@ class NodeTable:
     standin: np.ndarray  # bool: a source's elevation stands in for its head (no ground known)
     zone: np.ndarray  # zone named by the junction-point layer, or None
     ids_distinct: bool = False  # node_id shown distinct as text (no need to check again)
+    id_text: Any = None  # node_id as a pyarrow large_string array, when made so
 
 
 @dataclass(frozen=True)
