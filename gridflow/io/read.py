@@ -439,9 +439,10 @@ def _box_well_inside(b: np.ndarray, crs, area) -> bool:
         lon, lat = tr.transform(xs, ys, errcheck=False)
     lon, lat = np.asarray(lon, float), np.asarray(lat, float)
     m = CRS_AREA_MARGIN_DEG - BOX_SAFETY_DEG
+    south, north = max(area.south - m, -90.0), min(area.north + m, 90.0)
     return bool(np.all(np.isfinite(lon) & np.isfinite(lat))
                 and np.all((lon >= area.west - m) & (lon <= area.east + m))
-                and np.all((lat >= max(area.south - m, -90.0)) & (lat <= min(area.north + m, 90.0))))
+                and np.all((lat >= south) & (lat <= north)))
 
 
 def _read_role(cfg, role: str, sec, info: LayerInfo, crs, findings: Findings):

@@ -11,7 +11,7 @@ says how it is modelled instead.
 from __future__ import annotations
 
 import numpy as np
-import pyarrow as pa
+import pyarrow as arrow
 import shapely
 
 from gridflow.network import (
@@ -79,7 +79,7 @@ def link_table(ctx: Context, sn: Snapped, at: Attached, sp: Split, nt: NodeTable
         for k, v in dev_cols.items():
             cols[k].append(v)
     c = {k: np.concatenate(v) for k, v in cols.items()}
-    text = pa.concat_arrays(ids)
+    text = arrow.concat_arrays(ids)
     c["link_id"] = text.to_numpy(zero_copy_only=False)
     if all_distinct(c["link_id"]):  # the usual case: one hash pass, every id a str
         return LinkTable(cols=c, ids_distinct=True, id_text=text)
@@ -95,7 +95,7 @@ def _device_columns(ctx: Context, sn: Snapped, dev: Device, nt: NodeTable) -> tu
     m = len(li)
     id_text = arrow_text(fr.iloc[:, 0])
     if id_text is None:
-        id_text = pa.array(as_text(pl.ids), type=pa.large_string())
+        id_text = arrow.array(as_text(pl.ids), type=arrow.large_string())
     ids = _Lazy(id_text)  # Python strings only where a finding names a device
     closed = text_in(fr, "status", CLOSED_WORDS)
     main_d = df["diameter"].to_numpy(dtype=float)[li]
@@ -186,7 +186,7 @@ class _Lazy:
         if isinstance(sel, (int, np.integer)):
             return self.text[int(sel)].as_py()
         rows = np.flatnonzero(sel) if np.asarray(sel).dtype == bool else np.asarray(sel)
-        return self.text.take(pa.array(rows, type=pa.int64())).to_numpy(zero_copy_only=False)
+        return self.text.take(arrow.array(rows, type=arrow.int64())).to_numpy(zero_copy_only=False)
 
 
 def _link_ids(ids: np.ndarray, kind: np.ndarray) -> np.ndarray:

@@ -31,6 +31,7 @@ def split_mains(sn: Snapped, at: Attached) -> Split:
     pid = pa.array(as_text(sn.ids), type=pa.large_string()).take(pa.array(p_line))
     if split_n.any():  # "<id>.<k>": made for every piece by Arrow, kept for split mains
         k = pa.array(p_k + 1).cast(pa.large_string())
-        pid = pc.if_else(pa.array(split_n), pc.binary_join_element_wise(pid, k, pa.scalar(".", pa.large_string())), pid)
+        dot = pa.scalar(".", pa.large_string())
+        pid = pc.if_else(pa.array(split_n), pc.binary_join_element_wise(pid, k, dot), pid)
     return Split(pieces=pieces, line=p_line, from_key=p_from.astype(np.int64),
                  to_key=p_to.astype(np.int64), pipe_id=pid)

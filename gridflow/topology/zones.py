@@ -18,8 +18,8 @@ import shapely
 from gridflow.findings import Findings
 from gridflow.network import LINK_PUMP, NODE_JUNCTION, STATUS_CLOSED, VALVE_PRESSURE_REDUCING
 
-__all__ = ["components", "merged_components", "zones_and_parts", "zone_names", "connectivity_findings", "supplied_nodes",
-           "NetworkParts", "network_parts"]
+__all__ = ["components", "merged_components", "zones_and_parts", "zone_names",
+           "connectivity_findings", "supplied_nodes", "NetworkParts", "network_parts"]
 
 
 @dataclass(frozen=True)
