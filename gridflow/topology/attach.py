@@ -24,6 +24,7 @@ from __future__ import annotations
 import numpy as np
 import shapely
 
+from gridflow.topology.idtext import joined, two_decimals
 from gridflow.topology.nearest import nearest_lines, widened_boxes
 from gridflow.topology.points import column, point_layer
 from gridflow.topology.records import Attached, Context, Device, PointLayer, Snapped
@@ -192,9 +193,13 @@ def _hydrant_events(ctx, sn, tree, glen, keys, hyd, t_line, t_key, t_s):
                [f"no main within {sd:g} m (nearest {x:.2f} m); hydrant left out of the "
                 "fire-flow analysis" for x in full[un]], pts[un])
     far = dist > tol
-    f.add_many("hydrant_attached", "info", layer, ids[pi[far]],
-               [f"attached to main {m} {x:.2f} m away" for m, x in
-                zip(sn.ids[li[far]].tolist(), dist[far].tolist())], pts[pi[far]])
+    text = two_decimals(dist[far])  # every row's message by array work where it can be
+    msgs = None if text is None else joined("attached to main ", sn.ids[li[far]], " ", text,
+                                            " m away")
+    if msgs is None:
+        msgs = [f"attached to main {m} {x:.2f} m away" for m, x in
+                zip(sn.ids[li[far]].tolist(), dist[far].tolist())]
+    f.add_many("hydrant_attached", "info", layer, ids[pi[far]], msgs, pts[pi[far]])
     s = shapely.line_locate_point(sn.geoms[li], pts[pi])
     L = glen[li]
     at0, at1 = s <= tol, s >= L - tol

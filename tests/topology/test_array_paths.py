@@ -19,7 +19,7 @@ from gridflow.findings import Findings
 from gridflow.io.read import CRS_AREA_MARGIN_DEG, _box_well_inside, _outside_crs_area
 from gridflow.network import LINK_PIPE, LINK_VALVE
 from gridflow.topology import build_network
-from gridflow.topology.idtext import numbered
+from gridflow.topology.idtext import joined, numbered, two_decimals
 from gridflow.topology.nodes import _xy_order
 from gridflow.topology.points import column, text_in
 from gridflow.topology.zones import components, merged_components, network_parts
@@ -167,3 +167,21 @@ def test_device_ids_not_held_as_arrow_text(tmp_path):
     assert list(net.link_kind) == [LINK_PIPE] * 5 + [LINK_VALVE] * 2
     # the PRV without a setting is named by its id in the finding
     assert [i for k, i in zip(f.kind, f.feature_id) if k == "valve_setting_missing"] == ["7"]
+
+
+def test_two_decimals_is_pythons_formatting():
+    rng = np.random.default_rng(3)
+    # random distances, thousandths (many exact and near ties), binary ties, tiny and large
+    vals = np.r_[rng.random(20_000) * 50, rng.integers(0, 100_000, 20_000) / 1000,
+                 np.arange(0, 20, 0.005), [0.0, 0.005, 0.015, 0.125, 0.375, 2.675, 0.995,
+                                          99.995, 1e-300, 5e-324, 2.0**40 - 1, 1e6 + 0.005]]
+    assert two_decimals(vals).to_pylist() == [f"{v:.2f}" for v in vals]
+    for odd in (-0.0, -1.0, np.nan, np.inf, 2.0**41):  # left to the caller
+        assert two_decimals(np.array([1.0, odd])) is None
+
+
+def test_joined_rows():
+    out = joined("main ", np.array(["A", "B"], dtype=object), " ",
+                 two_decimals(np.array([1.005, 8.0])), " m")
+    assert list(out) == [f"main {m} {x:.2f} m" for m, x in (("A", 1.005), ("B", 8.0))]
+    assert joined("x", np.array([1, 2], dtype=object)) is None  # not text: the caller's way
