@@ -19,8 +19,10 @@ factorization-equivalent per hydrant; a full 100k sweep in under 1 h on 2 worker
 the figures (ratios are within one run).
 
 Usage: python scripts/bench_fireflow.py [--sizes 10000,100000] [--sample N] [--no-parallel]
+[--zones]
 ``--sample N`` times N hydrants of each size chosen at random (seeded); the figures are per
-hydrant either way.
+hydrant either way. ``--zones``: the utility with pressure zones (low districts below reducing
+valves, ``synthetic_utility.py``), where a draw may open or shut a valve.
 """
 
 from __future__ import annotations
@@ -49,12 +51,12 @@ from gridflow.hydraulics import HydraulicSystem, SolveOptions
 from gridflow.topology import build_network
 
 
-def network(n_mains: int, d: Path):
+def network(n_mains: int, d: Path, zones: bool = False):
     """The synthetic utility read and cleaned by gridflow; (network, hydrant table, config)."""
     gis = d / f"utility_{n_mains}.gpkg"
-    write_utility(gis, n_mains)
+    write_utility(gis, n_mains, zones=zones)
     cfg_path = d / f"utility_{n_mains}.toml"
-    cfg_path.write_text(config_text(gis, fireflow=True, report=False))
+    cfg_path.write_text(config_text(gis, fireflow=True, report=False, zones=zones))
     cfg = load_config(cfg_path)
     findings = Findings()
     clean = build_network(cfg, findings)
@@ -65,9 +67,10 @@ def network(n_mains: int, d: Path):
     return net, hyd, cfg
 
 
-def one(n_mains: int, sample: int | None, parallel: bool, d: Path) -> dict:
+def one(n_mains: int, sample: int | None, parallel: bool, d: Path, zones: bool = False
+        ) -> dict:
     t0 = time.perf_counter()
-    net, hyd, cfg = network(n_mains, d)
+    net, hyd, cfg = network(n_mains, d, zones)
     t_build = time.perf_counter() - t0
     opts = SolveOptions()
     base = HydraulicSystem(net, opts).solve()
@@ -136,6 +139,8 @@ def main() -> None:
     ap.add_argument("--sizes", default="10000,100000")
     ap.add_argument("--sample", type=int, default=None)
     ap.add_argument("--no-parallel", action="store_true")
+    ap.add_argument("--zones", action="store_true",
+                    help="the synthetic utility with pressure zones (reducing valves)")
     a = ap.parse_args()
     print(f"{'mains':>7} {'links':>7} {'hydr':>6} {'timed':>5} {'serial s':>8} "
           f"{'hyd/s/core':>10} {'factor ms':>9} {'fact-eq/hyd':>11} {'facts/hyd':>9} "
@@ -144,7 +149,7 @@ def main() -> None:
           f"{'load':>9}", flush=True)
     with tempfile.TemporaryDirectory() as tmp:
         for item in a.sizes.split(","):
-            d = one(int(item), a.sample, not a.no_parallel, Path(tmp))
+            d = one(int(item), a.sample, not a.no_parallel, Path(tmp), a.zones)
             print(f"{d['mains']:>7} {d['links']:>7} {d['hydrants_all']:>6} {d['hydrants']:>5} "
                   f"{d['serial_s']:>8.2f} {d['per_core']:>10.2f} {d['factor_ms']:>9.2f} "
                   f"{d['fact_eq']:>11.2f} {d['facts']:>9.2f} {d['core_facts']:>10.2f} "

@@ -38,3 +38,43 @@ def test_street_grid_is_one_connected_network(side):
     assert a.size == n_grid
     # arterials (every 8th street) are all kept: side - 1 mains along each, both directions
     assert int(np.sum(street % 8 == 0)) == 2 * (side - 1) * len(range(0, side, 8))
+
+
+def test_zoned_town_keeps_its_hollows_in_zones_of_their_own(tmp_path):
+    """The zoned town (``zones=True``): each low district is a pressure zone of its own, fed
+    through its reducing valves only, and service pressure stays at or below 100 psi, where
+    the same ground in one zone would see more (common practice: pressure zones keep service
+    pressure within about 40-80 psi, seldom above 100)."""
+    from gridflow.config import load_config
+    from gridflow.findings import Findings
+    from gridflow.hydraulics import HydraulicSystem, SolveOptions
+    from gridflow.network import NODE_JUNCTION, VALVE_PRESSURE_REDUCING
+    from gridflow.topology import build_network
+    from gridflow.units import M_HEAD_PER_PSI
+
+    gen = _generator()
+    gis = tmp_path / "zoned.gpkg"
+    counts = gen.write_utility(gis, 20_000, zones=True)
+    assert counts["prv_stations"] >= 4  # two a low district
+    cfg_path = tmp_path / "zoned.toml"
+    cfg_path.write_text(gen.config_text(gis, report=False, zones=True))
+    net = build_network(load_config(cfg_path), Findings()).network
+    r = HydraulicSystem(net, SolveOptions()).solve()
+    assert r.converged
+    prv = np.flatnonzero(np.asarray(net.valve_type) == VALVE_PRESSURE_REDUCING)
+    assert len(prv) == counts["prv_stations"]
+    zone = np.asarray(net.zone).astype(str)
+    inlet, outlet = zone[net.from_idx[prv]], zone[net.to_idx[prv]]
+    # every valve lets water down from the town's main zone into a zone of its own
+    main = zone[np.argmax(np.bincount(np.unique(zone, return_inverse=True)[1]))]
+    assert np.all(inlet == main) and np.all(outlet != main)
+    assert len(np.unique(outlet)) == len(prv) // 2
+    psi = (r.head_m - net.elevation_m) / M_HEAD_PER_PSI
+    junction = (np.asarray(net.node_kind) == NODE_JUNCTION) & ~np.asarray(net.is_fixed)
+    served = r.supplied & junction
+    assert psi[served].max() <= 100.0
+    # without the valves, the hollows' lowest ground would be above 100 psi
+    grade = float(np.max(r.head_m[net.is_fixed]))
+    assert (grade - float(net.elevation_m[served].min())) / M_HEAD_PER_PSI > 100.0
+    # nearly every node is served: fragments cut off by closed boundary valves are few
+    assert served.sum() > 0.99 * junction.sum()

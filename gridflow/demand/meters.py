@@ -48,15 +48,25 @@ def meter_consumption(ctx: Context, meters, ids: np.ndarray, geoms: np.ndarray) 
 
 
 def link_orientation(clean, net: Network, lines: np.ndarray, link_idx: np.ndarray) -> np.ndarray:
-    """True where a link's geometry runs from its ``to`` node to its ``from`` node."""
+    """True where a link's geometry runs from its ``to`` node to its ``from`` node (its first
+    vertex nearer the ``to`` node's point), from coordinate arrays, once per link."""
     nodes = getattr(clean, "nodes", None)
     if nodes is None or len(link_idx) == 0:
         return np.zeros(len(link_idx), bool)
-    pts = np.asarray(nodes.geometry.array)
-    start = shapely.get_point(lines[link_idx], 0)
-    d_from = shapely.distance(start, pts[net.from_idx[link_idx]])
-    d_to = shapely.distance(start, pts[net.to_idx[link_idx]])
-    return d_to < d_from
+    used = np.zeros(len(lines), dtype=bool)
+    used[link_idx] = True
+    links = np.flatnonzero(used)
+    back = (np.cumsum(used) - 1)[link_idx]
+    xy, which = shapely.get_coordinates(lines[links], return_index=True)
+    start = np.full((len(links), 2), np.nan)
+    first = np.r_[True, which[1:] != which[:-1]] if len(which) else np.zeros(0, bool)
+    start[which[first]] = xy[first]
+    g = np.asarray(nodes.geometry.array)
+    node_xy = np.column_stack([shapely.get_x(g), shapely.get_y(g)])  # NaN where no point
+    a, b = node_xy[net.from_idx[links]], node_xy[net.to_idx[links]]
+    d_from = np.hypot(start[:, 0] - a[:, 0], start[:, 1] - a[:, 1])
+    d_to = np.hypot(start[:, 0] - b[:, 0], start[:, 1] - b[:, 1])
+    return (d_to < d_from)[back]
 
 
 def allocate_meters(ctx: Context, clean, meters, replaced: set[str]) -> MeterResult:

@@ -369,6 +369,8 @@ def _outside_crs_area(geoms: np.ndarray, crs) -> np.ndarray:
     area = getattr(crs, "area_of_use", None)
     if area is None:
         out = ~finite
+    elif finite.all() and _box_well_inside(b, crs, area):
+        out = np.zeros(len(b), bool)
     else:
         # the corners of each box; a point's (or a flat box's) repeated corners once only
         wide, tall = b[:, 2] != b[:, 0], b[:, 3] != b[:, 1]
@@ -402,6 +404,45 @@ def _outside_crs_area(geoms: np.ndarray, crs) -> np.ndarray:
         out = ~finite | ~ok
     bad[np.flatnonzero(present)[out]] = True
     return bad
+
+
+#: points per side of the layer's bounding box transformed by :func:`_box_well_inside`
+BOX_EDGE_POINTS = 256
+#: how far [degrees] inside the widened area of use that box must stay
+BOX_SAFETY_DEG = 1.0
+
+
+def _box_well_inside(b: np.ndarray, crs, area) -> bool:
+    """True when every feature box in ``b`` (finite) surely lies inside the CRS's area of use
+    widened by :data:`CRS_AREA_MARGIN_DEG`: the boundary of the layer's bounding box, traced
+    by :data:`BOX_EDGE_POINTS` points a side, stays :data:`BOX_SAFETY_DEG` inside it.
+
+    Notes
+    -----
+    A projected CRS maps the plane's box to a region bounded by the image of its boundary,
+    and the widened area is a longitude/latitude rectangle (convex): a boundary inside it
+    holds every corner of every feature inside too. The check costs a few hundred
+    transformed points instead of four per feature; False (the per-feature check then runs)
+    for geographic CRSs, areas across the antimeridian, and anything not clearly inside.
+    """
+    if crs.is_geographic or area.west > area.east:
+        return False
+    from pyproj import CRS, Transformer
+
+    x0, y0 = b[:, 0].min(), b[:, 1].min()
+    x1, y1 = b[:, 2].max(), b[:, 3].max()
+    t = np.linspace(0.0, 1.0, BOX_EDGE_POINTS)
+    xs = np.r_[x0 + (x1 - x0) * t, np.full_like(t, x1), x1 - (x1 - x0) * t, np.full_like(t, x0)]
+    ys = np.r_[np.full_like(t, y0), y0 + (y1 - y0) * t, np.full_like(t, y1), y1 - (y1 - y0) * t]
+    tr = Transformer.from_crs(crs, CRS.from_epsg(4326), always_xy=True)
+    with np.errstate(all="ignore"):
+        lon, lat = tr.transform(xs, ys, errcheck=False)
+    lon, lat = np.asarray(lon, float), np.asarray(lat, float)
+    m = CRS_AREA_MARGIN_DEG - BOX_SAFETY_DEG
+    south, north = max(area.south - m, -90.0), min(area.north + m, 90.0)
+    return bool(np.all(np.isfinite(lon) & np.isfinite(lat))
+                and np.all((lon >= area.west - m) & (lon <= area.east + m))
+                and np.all((lat >= south) & (lat <= north)))
 
 
 def _read_role(cfg, role: str, sec, info: LayerInfo, crs, findings: Findings):
@@ -459,7 +500,7 @@ def _read_role(cfg, role: str, sec, info: LayerInfo, crs, findings: Findings):
 
     geoms = np.asarray(gdf.geometry.values, dtype=object)
     keep = ~check_layer(cfg, role, sec, info, data, ids, geoms, findings)
-    data[LAYER_COLUMN] = np.full(len(ids), info.layer, dtype=object)
+    data[LAYER_COLUMN] = _repeated(info.layer, len(ids))
     text_cols[LAYER_COLUMN] = _text_column(np.array([info.layer], dtype=object),
                                          np.zeros(len(ids), np.int64))
     frame = gpd.GeoDataFrame({k: v if text_cols.get(k) is None else text_cols[k]
@@ -480,6 +521,14 @@ def _read_role(cfg, role: str, sec, info: LayerInfo, crs, findings: Findings):
     if not frame.crs.equals(crs):
         frame = frame.to_crs(crs)
     return frame
+
+
+def _repeated(value, n: int) -> np.ndarray:
+    """An object array of ``n`` references to ``value`` (``np.full(n, "text", dtype=object)``
+    makes a new str per element, through a fixed-width text array)."""
+    out = np.empty(n, dtype=object)
+    out.fill(value)
+    return out
 
 
 def _ids(col: pd.Series, role: str, info: LayerInfo, findings: Findings) -> np.ndarray:

@@ -229,8 +229,9 @@ def bad_coordinates(geoms: np.ndarray) -> np.ndarray:
     bad = np.zeros(n, bool)
     if n == 0:
         return bad
-    coords, index = shapely.get_coordinates(geoms, include_z=False, return_index=True)
-    if len(coords):
+    coords = shapely.get_coordinates(geoms, include_z=False)
+    if len(coords) and not np.isfinite(coords).all():  # the rare case: which geometries
+        coords, index = shapely.get_coordinates(geoms, include_z=False, return_index=True)
         nonfinite = ~np.isfinite(coords).all(axis=1)
         bad = np.bincount(index[nonfinite], minlength=n).astype(bool)
     return bad

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
 import shapely
 
 from gridflow.network import (
@@ -17,7 +18,7 @@ from gridflow.network import (
 )
 from gridflow.topology.clean import CleanNetwork
 from gridflow.topology.links import CLOSED_WORDS
-from gridflow.topology.points import column
+from gridflow.topology.points import arrow_text, column, text_in
 from gridflow.topology.records import Attached, Context, LinkTable, NodeTable
 from gridflow.topology.zones import zone_names
 
@@ -25,8 +26,10 @@ __all__ = ["assemble"]
 
 
 def assemble(ctx: Context, at: Attached, nt: NodeTable, lt: LinkTable, elev: np.ndarray,
-             guessed: np.ndarray) -> CleanNetwork:
-    """Stage 8: zones named, the frozen :class:`Network` built, nodes/links/hydrants frames."""
+             guessed: np.ndarray) -> tuple[CleanNetwork, np.ndarray]:
+    """Stage 8: zones named, the frozen :class:`Network` built, nodes/links/hydrants frames;
+    and each node's zone part (:func:`~gridflow.topology.zones.zone_names`), from which the
+    checks find the network's parts."""
     import geopandas as gpd
 
     cfg, c = ctx.cfg, lt.cols
@@ -48,12 +51,13 @@ def assemble(ctx: Context, at: Attached, nt: NodeTable, lt: LinkTable, elev: np.
     crs = ctx.crs
     node_pts = _node_points(at, nt)
     nodes_gdf = gpd.GeoDataFrame(
-        {"node_id": net.node_id, "kind": _text_of_codes(NODE_KINDS, net.node_kind),
+        {"node_id": _text_column(nt.id_text, net.node_id),
+         "kind": _text_of_codes(NODE_KINDS, net.node_kind),
          "zone": _text_of_codes(zone_name, zone_of)},
         geometry=node_pts, crs=crs)
     year = c["year"]
     links_gdf = gpd.GeoDataFrame(
-        {"pipe_id": net.link_id,
+        {"pipe_id": _text_column(lt.id_text, net.link_id),
          "kind": _text_of_codes(LINK_KINDS, net.link_kind),
          "material": pd.array(c["material"], dtype="string"),
          "install_year": pd.array(np.where(np.isfinite(year), np.round(year), np.nan),
@@ -66,7 +70,23 @@ def assemble(ctx: Context, at: Attached, nt: NodeTable, lt: LinkTable, elev: np.
     _prv_reach(ctx, net, c["geom"])
     return CleanNetwork(network=net, nodes=nodes_gdf, links=links_gdf,
                         hydrants=_hydrants_frame(at, nt, net, crs), meters=meters, crs=crs,
-                        inputs=list(ctx.read.files), elevation_guessed=guessed)
+                        inputs=list(ctx.read.files), elevation_guessed=guessed), zone_of
+
+
+def _text_column(text, ids: np.ndarray):
+    """The frame column pandas makes of ``ids`` (Python strings), from the same strings held
+    as Arrow text when there are (no conversion of each str)."""
+    if text is None or len(ids) == 0:
+        return ids
+    return pd.array(text, dtype=pd.StringDtype("pyarrow", na_value=np.nan))
+
+
+def _hydrant_ids(ids, ok: np.ndarray):
+    """The attached hydrants' ids as the frame column pandas makes of their strings."""
+    text = arrow_text(ids)
+    if text is None or not ok.any():
+        return ids.to_numpy(dtype=object)[ok]
+    return pd.array(text.filter(pa.array(ok)), dtype=pd.StringDtype("pyarrow", na_value=np.nan))
 
 
 def _text_of_codes(names, codes: np.ndarray) -> pd.api.extensions.ExtensionArray:
@@ -83,14 +103,10 @@ def _text_of_codes(names, codes: np.ndarray) -> pd.api.extensions.ExtensionArray
 
 
 def _node_points(at: Attached, nt: NodeTable) -> np.ndarray:
-    """Points at the nodes: the snapping stage's cluster points where a node is a cluster,
-    new points for the nodes the later stages added."""
-    if at.cluster_pts is None:
-        return shapely.points(nt.xy)
-    out = np.empty(len(nt.keys), dtype=object)
-    cl = nt.keys < at.n_clusters
-    out[cl] = at.cluster_pts[nt.keys[cl]]
-    new = np.flatnonzero(~cl)
+    """Points at the nodes: the points made where their keys were (the snapping stage's
+    cluster points, the attachment's points on the mains); new points for any other."""
+    out = at.key_pts[nt.keys]
+    new = np.flatnonzero(shapely.is_missing(out))
     if len(new):
         # nodes in one place (a valve's two sides) sit next to each other in node order:
         # one point serves the run
@@ -137,13 +153,15 @@ def _hydrants_frame(at: Attached, nt: NodeTable, net: Network, crs):
     fr = at.hydrants.frame
     ok = at.hyd_key >= 0
     ni = nt.idx_of_key[at.hyd_key[ok]]
-    status = column(fr, "status", object).astype(str)
     return gpd.GeoDataFrame(
-        {"hydrant_id": fr["hydrant_id"].to_numpy(dtype=object)[ok], "node_idx": ni,
-         "node_id": net.node_id[ni], "zone": net.zone[ni],
+        {"hydrant_id": _hydrant_ids(fr["hydrant_id"], ok), "node_idx": ni,
+         "node_id": _text_column(None if nt.id_text is None
+                                 else nt.id_text.take(pa.array(ni, type=pa.int64())),
+                                 net.node_id[ni]),
+         "zone": net.zone[ni],
          "required_fire_flow_m3s": column(fr, "required_fire_flow")[ok],
          "land_use": column(fr, "land_use", object)[ok],
          "lateral_length_m": column(fr, "lateral_length")[ok],
          "lateral_diameter_m": column(fr, "lateral_diameter")[ok],
-         "in_service": ~np.isin(status[ok], CLOSED_WORDS)},
+         "in_service": ~text_in(fr, "status", CLOSED_WORDS)[ok]},
         geometry=at.hydrants.pts[ok], crs=crs)

@@ -24,6 +24,7 @@ from __future__ import annotations
 import numpy as np
 import shapely
 
+from gridflow.topology.idtext import joined, two_decimals
 from gridflow.topology.nearest import nearest_lines, widened_boxes
 from gridflow.topology.points import column, point_layer
 from gridflow.topology.records import Attached, Context, Device, PointLayer, Snapped
@@ -34,16 +35,20 @@ _EPS = 1e-3  # [m] positions closer than this along a line are the same place
 
 
 class _Keys:
-    """Node candidates added by this stage (after the snapped clusters)."""
+    """Node candidates added by this stage (after the snapped clusters), and the points
+    made there (kept for the nodes' points: none made twice)."""
 
-    def __init__(self, cxy: np.ndarray):
+    def __init__(self, cxy: np.ndarray, cpts: np.ndarray | None):
         self.xy = [cxy]
+        self.pts = [cpts if cpts is not None else np.full(len(cxy), None, dtype=object)]
         self.next = len(cxy)
 
-    def new(self, xy: np.ndarray) -> np.ndarray:
+    def new(self, xy: np.ndarray, pts: np.ndarray) -> np.ndarray:
+        """Keys at ``xy``; ``pts`` the points there (2-D, at exactly these coordinates)."""
         k = np.arange(self.next, self.next + len(xy))
         self.next += len(xy)
         self.xy.append(np.asarray(xy, dtype=float).reshape(-1, 2))
+        self.pts.append(np.asarray(pts, dtype=object))
         return k
 
 
@@ -52,7 +57,7 @@ def attach_points(ctx: Context, sn: Snapped) -> Attached:
     f = ctx.findings
     glen = shapely.length(sn.geoms)
     tree = shapely.STRtree(sn.geoms)
-    keys = _Keys(sn.cxy)
+    keys = _Keys(sn.cxy, sn.cluster_pts)
     t_line, t_key, t_s = t_events(ctx, sn, tree, glen)
     hyd = point_layer(ctx, "hydrants")
     hyd_key, ev_line, ev_key, ev_s, ev_xy = _hydrant_events(ctx, sn, tree, glen, keys, hyd,
@@ -61,8 +66,9 @@ def attach_points(ctx: Context, sn: Snapped) -> Attached:
     ring = np.flatnonzero(sn.lab_s == sn.lab_e)
     if len(ring):
         rs = glen[ring] / 2
-        rxy = shapely.get_coordinates(shapely.line_interpolate_point(sn.geoms[ring], rs))
-        rk = keys.new(rxy)
+        rpts = shapely.line_interpolate_point(sn.geoms[ring], rs)
+        rxy = shapely.get_coordinates(rpts)
+        rk = keys.new(rxy, rpts)
         f.add_many("ring_split", "info", sn.layer, sn.ids[ring],
                    "main whose ends meet split in the middle", sn.geoms[ring])
         ev_line, ev_s = np.r_[ev_line, ring], np.r_[ev_s, rs]
@@ -74,27 +80,30 @@ def attach_points(ctx: Context, sn: Snapped) -> Attached:
         m = len(li)
         up, down = np.empty(m, int), np.empty(m, int)
         inner = end < 0
-        pxy = shapely.get_coordinates(shapely.line_interpolate_point(sn.geoms[li], s))
+        ppts = shapely.line_interpolate_point(sn.geoms[li], s)
+        pxy = shapely.get_coordinates(ppts)
         if inner.any():
-            k = keys.new(np.repeat(pxy[inner], 2, axis=0)).reshape(-1, 2)
+            k = keys.new(np.repeat(pxy[inner], 2, axis=0),
+                         np.repeat(ppts[inner], 2)).reshape(-1, 2)
             up[inner], down[inner] = k[:, 0], k[:, 1]
             ev_line, ev_s = np.r_[ev_line, li[inner]], np.r_[ev_s, s[inner]]
             ev_xy = np.vstack([ev_xy, pxy[inner]])
             ev_up, ev_down = np.r_[ev_up, up[inner]], np.r_[ev_down, down[inner]]
         e0 = end == 0
         if e0.any():
-            k = keys.new(sn.cxy[sn.lab_s[li[e0]]])
+            k = keys.new(sn.cxy[sn.lab_s[li[e0]]], keys.pts[0][sn.lab_s[li[e0]]])
             up[e0], down[e0] = sn.lab_s[li[e0]], k
             start_key[li[e0]] = k
         e1 = end == 1
         if e1.any():
-            k = keys.new(sn.cxy[sn.lab_e[li[e1]]])
+            k = keys.new(sn.cxy[sn.lab_e[li[e1]]], keys.pts[0][sn.lab_e[li[e1]]])
             up[e1], down[e1] = k, sn.lab_e[li[e1]]
             end_key[li[e1]] = k
         devices.append(Device(points=pl, line=li, up=up, down=down,
                               reversed=_against(ctx, pl, sn.geoms[li], s, glen[li]), xy=pxy))
     order = np.lexsort((ev_s, ev_line))
-    return Attached(key_xy=np.vstack(keys.xy), n_clusters=len(sn.cxy),
+    return Attached(key_xy=np.vstack(keys.xy), key_pts=np.concatenate(keys.pts),
+                    n_clusters=len(sn.cxy),
                     ev_line=ev_line[order].astype(np.int64), ev_s=ev_s[order],
                     ev_xy=ev_xy[order].reshape(-1, 2), ev_up=ev_up[order].astype(np.int64),
                     ev_down=ev_down[order].astype(np.int64), start_key=start_key,
@@ -184,9 +193,13 @@ def _hydrant_events(ctx, sn, tree, glen, keys, hyd, t_line, t_key, t_s):
                [f"no main within {sd:g} m (nearest {x:.2f} m); hydrant left out of the "
                 "fire-flow analysis" for x in full[un]], pts[un])
     far = dist > tol
-    f.add_many("hydrant_attached", "info", layer, ids[pi[far]],
-               [f"attached to main {m} {x:.2f} m away" for m, x in
-                zip(sn.ids[li[far]].tolist(), dist[far].tolist())], pts[pi[far]])
+    text = two_decimals(dist[far])  # every row's message by array work where it can be
+    msgs = None if text is None else joined("attached to main ", sn.ids[li[far]], " ", text,
+                                            " m away")
+    if msgs is None:
+        msgs = [f"attached to main {m} {x:.2f} m away" for m, x in
+                zip(sn.ids[li[far]].tolist(), dist[far].tolist())]
+    f.add_many("hydrant_attached", "info", layer, ids[pi[far]], msgs, pts[pi[far]])
     s = shapely.line_locate_point(sn.geoms[li], pts[pi])
     L = glen[li]
     at0, at1 = s <= tol, s >= L - tol
@@ -194,7 +207,8 @@ def _hydrant_events(ctx, sn, tree, glen, keys, hyd, t_line, t_key, t_s):
     hyd_key[pi[at1 & ~at0]] = sn.lab_e[li[at1 & ~at0]]
     mid = ~at0 & ~at1
     h_pi, h_li, h_s = pi[mid], li[mid], s[mid]
-    h_xy = shapely.get_coordinates(shapely.line_interpolate_point(sn.geoms[h_li], h_s))
+    h_pts = shapely.line_interpolate_point(sn.geoms[h_li], h_s)
+    h_xy = shapely.get_coordinates(h_pts)
     # merge with T events on the same main within the tolerance
     line = np.concatenate([t_line, h_li])
     s_all = np.concatenate([t_s, h_s])
@@ -213,7 +227,9 @@ def _hydrant_events(ctx, sn, tree, glen, keys, hyd, t_line, t_key, t_s):
     g_h[gid[hpos]] = hpos
     hk = np.full(len(order), -1)
     lead = ~it & (g_t[gid] < 0) & (g_h[gid] == np.arange(len(order)))
-    hk[lead] = keys.new(np.concatenate([np.zeros((len(t_line), 2)), h_xy])[order][lead])
+    hk[lead] = keys.new(np.concatenate([np.zeros((len(t_line), 2)), h_xy])[order][lead],
+                        np.concatenate([np.full(len(t_line), None, dtype=object),
+                                        h_pts])[order][lead])
     joint = ~it & (g_t[gid] >= 0)
     hk[joint] = g_t[gid[joint]]
     follow = ~it & ~lead & ~joint

@@ -107,10 +107,11 @@ def _build(cfg, findings: Findings, read: ReadResult | None,
         dem = sample_dem(cfg.resolve(cfg.elevation.dem), nodes.xy[:, 0], nodes.xy[:, 1],
                          rr.crs, z_factor(cfg))
     elev, guessed = clock.lap("elevations", fill_elevations(ctx, nodes, links, dem))
-    clean = clock.lap("assemble", assemble(ctx, attached, nodes, links, elev, guessed))
+    clean, zone_parts = clock.lap("assemble", assemble(ctx, attached, nodes, links, elev,
+                                                       guessed))
     del attached, nodes
     net = clean.network
-    parts = network_parts(net) if net.n_nodes and net.is_fixed.any() else None
+    parts = network_parts(net, zone_parts) if net.n_nodes and net.is_fixed.any() else None
     connectivity_findings(findings, net, links.cols["geom"],
                           np.asarray(clean.nodes.geometry.values, dtype=object), pipes_layer,
                           parts)

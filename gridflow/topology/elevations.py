@@ -26,11 +26,14 @@ def fill_elevations(ctx: Context, nt: NodeTable, lt: LinkTable,
     f, elev, standin = ctx.findings, nt.elevation_m.copy(), nt.standin
     nn = len(elev)
     frm, to = lt.cols["from"], lt.cols["to"]
-    adj = coo_matrix((np.ones(2 * len(frm)), (np.r_[frm, to], np.r_[to, frm])),
-                     shape=(nn, nn)).tocsr()
     if dem_m is not None:
         elev = np.where(np.isfinite(elev), elev, dem_m)
     known = np.isfinite(elev) & ~standin
+    if known.all() or not known.any():  # nothing to interpolate: no graph needed
+        adj = None
+    else:
+        adj = coo_matrix((np.ones(2 * len(frm)), (np.r_[frm, to], np.r_[to, frm])),
+                         shape=(nn, nn)).tocsr()
     e = _harmonic_fill(np.where(known, elev, 0.0), known, adj)
     e[standin] = elev[standin]
     known |= standin
@@ -49,7 +52,8 @@ def fill_elevations(ctx: Context, nt: NodeTable, lt: LinkTable,
 
 
 def _harmonic_fill(e: np.ndarray, known: np.ndarray, adj) -> np.ndarray:
-    """Unknown values as the mean of their neighbours' (harmonic interpolation on the graph).
+    """Unknown values as the mean of their neighbours' (harmonic interpolation on the graph;
+    ``adj`` may be None when every value or none is known).
 
     Notes
     -----
@@ -57,13 +61,13 @@ def _harmonic_fill(e: np.ndarray, known: np.ndarray, adj) -> np.ndarray:
     holding at least one known node (``D`` the degree, ``A`` the adjacency): each unknown value
     is then exactly the mean of its neighbours'. Parts with no known value stay NaN.
     """
+    out = np.where(known, e, np.nan)
+    if known.all() or not known.any():
+        return out
     from scipy.sparse import diags
     from scipy.sparse.csgraph import connected_components
     from scipy.sparse.linalg import spsolve
 
-    out = np.where(known, e, np.nan)
-    if known.all() or not known.any():
-        return out
     _, comp = connected_components(adj, directed=False)
     has = np.zeros(comp.max() + 1, bool)
     has[comp[known]] = True

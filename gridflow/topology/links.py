@@ -11,6 +11,7 @@ says how it is modelled instead.
 from __future__ import annotations
 
 import numpy as np
+import pyarrow as arrow
 import shapely
 
 from gridflow.network import (
@@ -27,7 +28,7 @@ from gridflow.network import (
 )
 from gridflow.topology.idtext import all_distinct, as_text
 from gridflow.topology.nodes import unique_ids_checked
-from gridflow.topology.points import column
+from gridflow.topology.points import arrow_text, column, text_in
 from gridflow.topology.records import (
     Attached,
     Context,
@@ -55,10 +56,11 @@ def link_table(ctx: Context, sn: Snapped, at: Attached, sp: Split, nt: NodeTable
     length = np.where(np.isfinite(attr_len) & (attr_len > 0), attr_len * frac, plen)
     length = np.maximum(length, _EPS)
     # closed per main, then spread to its pieces (the text work once per main, not per piece)
-    closed = np.isin(df["status"].to_numpy(dtype=object).astype(str), CLOSED_WORDS)[pl]
+    closed = text_in(df, "status", CLOSED_WORDS)[pl]
     m = len(pl)
+    ids: list = [sp.pipe_id]
     cols: dict[str, list] = {
-        "link_id": [sp.pipe_id], "from": [nt.idx_of_key[sp.from_key]],
+        "from": [nt.idx_of_key[sp.from_key]],
         "to": [nt.idx_of_key[sp.to_key]], "kind": [np.full(m, LINK_PIPE)],
         "length": [length], "diameter": [df["diameter"].to_numpy(dtype=float)[pl]],
         "rough": [df["roughness"].to_numpy(dtype=float)[pl]],
@@ -70,23 +72,32 @@ def link_table(ctx: Context, sn: Snapped, at: Attached, sp: Split, nt: NodeTable
         "year": [df["install_year"].to_numpy(dtype=float)[pl]],
         "rating": [df["pressure_rating"].to_numpy(dtype=float)[pl]],
         "zone": [df["zone"].to_numpy(dtype=object)[pl]],
-        "layer": [np.full(m, sn.layer, dtype=object)],
     }
     for d in at.devices:
-        for k, v in _device_columns(ctx, sn, d, nt).items():
+        dev_ids, dev_cols = _device_columns(ctx, sn, d, nt)
+        ids.append(dev_ids)
+        for k, v in dev_cols.items():
             cols[k].append(v)
     c = {k: np.concatenate(v) for k, v in cols.items()}
+    text = arrow.concat_arrays(ids)
+    c["link_id"] = text.to_numpy(zero_copy_only=False)
+    if all_distinct(c["link_id"]):  # the usual case: one hash pass, every id a str
+        return LinkTable(cols=c, ids_distinct=True, id_text=text)
     c["link_id"], distinct = _link_ids_checked(c["link_id"], c["kind"])
     return LinkTable(cols=c, ids_distinct=distinct)
 
 
-def _device_columns(ctx: Context, sn: Snapped, dev: Device, nt: NodeTable) -> dict:
+def _device_columns(ctx: Context, sn: Snapped, dev: Device, nt: NodeTable) -> tuple:
+    """The devices' ids (Arrow text) and their other columns."""
     f, pl, li = ctx.findings, dev.points, dev.line
     fr, pts, layer, role = pl.frame, pl.pts, pl.layer, pl.role
     df = sn.frame
     m = len(li)
-    ids = pl.ids
-    closed = np.isin(column(fr, "status", object).astype(str), CLOSED_WORDS)
+    id_text = arrow_text(fr.iloc[:, 0])
+    if id_text is None:
+        id_text = arrow.array(as_text(pl.ids), type=arrow.large_string())
+    ids = _Lazy(id_text)  # Python strings only where a finding names a device
+    closed = text_in(fr, "status", CLOSED_WORDS)
     main_d = df["diameter"].to_numpy(dtype=float)[li]
     kind = np.full(m, LINK_VALVE if role == "valves" else LINK_PUMP)
     vt = np.zeros(m, int)
@@ -100,24 +111,23 @@ def _device_columns(ctx: Context, sn: Snapped, dev: Device, nt: NodeTable) -> di
         dv = column(fr, "diameter")
         d = np.where(np.isfinite(dv) & (dv > 0), dv, main_d)
         mk = np.nan_to_num(column(fr, "minor_loss_k"), nan=0.0)
-        typ = column(fr, "type", object).astype(str)
         raw = column(fr, "setting")  # PRVs: metres of head (read converts); throttles: K
         vt[:] = VALVE_ISOLATION
-        prv = typ == "prv"
+        prv = text_in(fr, "type", ("prv",))
         vs[prv] = raw[prv]
         bad = prv & ~np.isfinite(vs)
         f.add_many("valve_setting_missing", "error", layer, ids[bad],
                    "pressure-reducing valve without a setting: modelled as an open valve",
                    pts[bad])
         vt[prv & ~bad] = VALVE_PRESSURE_REDUCING
-        tcv = typ == "throttle"
+        tcv = text_in(fr, "type", ("throttle",))
         vs[tcv] = raw[tcv]
         badt = tcv & ~(np.isfinite(vs) & (vs >= 0))
         f.add_many("valve_setting_missing", "error", layer, ids[badt],
                    "throttle valve without a loss coefficient setting: K = 0 used", pts[badt])
         vs[badt] = 0.0
         vt[tcv] = VALVE_THROTTLE
-        status[(typ == "check") & ~closed] = STATUS_CHECK
+        status[text_in(fr, "type", ("check",)) & ~closed] = STATUS_CHECK
     else:
         sp = column(fr, "speed")
         speed = np.where(np.isfinite(sp), sp, 1.0)
@@ -155,14 +165,28 @@ def _device_columns(ctx: Context, sn: Snapped, dev: Device, nt: NodeTable) -> di
     up, down = nt.idx_of_key[dev.up], nt.idx_of_key[dev.down]
     fi = np.where(dev.reversed, down, up)
     ti = np.where(dev.reversed, up, down)
-    geom = shapely.linestrings(np.repeat(xy, 2, axis=0), indices=np.repeat(np.arange(m), 2))
-    return {"link_id": ids, "from": fi, "to": ti, "kind": kind, "length": np.zeros(m),
+    geom = shapely.linestrings(np.repeat(np.asarray(xy, dtype=float).reshape(m, 1, 2), 2,
+                                         axis=1))
+    return id_text, {"from": fi, "to": ti, "kind": kind, "length": np.zeros(m),
             "diameter": d, "rough": df["roughness"].to_numpy(dtype=float)[li], "mk": mk,
             "status": status, "vt": vt, "vs": vs, "pa": pa, "pb": pb, "pc": pc,
             "speed": speed, "geom": geom, "material": np.full(m, None, dtype=object),
             "year": np.full(m, np.nan), "rating": np.full(m, np.nan),
-            "zone": df["zone"].to_numpy(dtype=object)[li],
-            "layer": column(fr, "source_layer", object)}
+            "zone": df["zone"].to_numpy(dtype=object)[li]}
+
+
+class _Lazy:
+    """Ids as Arrow text, turned into Python strings only for the rows asked for
+    (``ids[mask]``, ``ids[r]``): the findings name a few devices."""
+
+    def __init__(self, text):
+        self.text = text
+
+    def __getitem__(self, sel):
+        if isinstance(sel, (int, np.integer)):
+            return self.text[int(sel)].as_py()
+        rows = np.flatnonzero(sel) if np.asarray(sel).dtype == bool else np.asarray(sel)
+        return self.text.take(arrow.array(rows, type=arrow.int64())).to_numpy(zero_copy_only=False)
 
 
 def _link_ids(ids: np.ndarray, kind: np.ndarray) -> np.ndarray:

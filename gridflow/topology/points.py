@@ -8,7 +8,7 @@ import shapely
 
 from gridflow.topology.records import Context, PointLayer
 
-__all__ = ["point_layer", "column"]
+__all__ = ["point_layer", "column", "text_in", "arrow_text"]
 
 _GEOM_NAMES = ("point", "line", "ring", "polygon", "multi-point", "multi-line", "multi-polygon",
                "geometry collection")
@@ -22,6 +22,45 @@ def column(frame, name: str, dtype=float) -> np.ndarray:
     return np.full(n, np.nan) if dtype is float else np.full(n, None, dtype=object)
 
 
+def text_in(frame, name: str, words) -> np.ndarray:
+    """``np.isin(column(frame, name, object).astype(str), words)``: True where the column's
+    text is one of ``words``; a column Arrow holds is compared there (no str per row)."""
+    arr = _arrow_strings(frame[name]) if frame is not None and name in frame else None
+    if arr is None or "None" in words:  # None's text is "None": the general way
+        return np.isin(column(frame, name, object).astype(str), list(words))
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    hit = pc.is_in(arr, value_set=pa.array(list(words), type=arr.type))
+    return pc.fill_null(hit, False).to_numpy(zero_copy_only=False).astype(bool, copy=False)
+
+
+def arrow_text(series):
+    """A text column as one Arrow ``large_string`` array (the same strings as
+    ``series.to_numpy(dtype=object)``): Arrow's own where it holds them without gaps, else
+    made from the Python strings; None when a value is not a str."""
+    import pyarrow as pa
+
+    arr = _arrow_strings(series)
+    if arr is not None and arr.null_count == 0:
+        return arr
+    vals = series.to_numpy(dtype=object)
+    if not set(map(type, vals.tolist())) <= {str}:
+        return None
+    return pa.array(vals, type=pa.large_string())
+
+
+def _arrow_strings(series):
+    """The Arrow text array behind a pandas column (``large_string``), or None."""
+    import pyarrow as pa
+
+    arr = getattr(series.array, "_pa_array", None)
+    if arr is None or not (pa.types.is_string(arr.type) or pa.types.is_large_string(arr.type)):
+        return None
+    arr = arr.combine_chunks() if isinstance(arr, pa.ChunkedArray) else arr
+    return arr.cast(pa.large_string())
+
+
 def point_layer(ctx: Context, role: str) -> PointLayer | None:
     """The role's usable point features, or None when the role is not mapped or empty."""
     fr = ctx.read.layers.get(role)
@@ -32,15 +71,18 @@ def point_layer(ctx: Context, role: str) -> PointLayer | None:
     idc = fr.columns[0]
     g = np.asarray(fr.geometry.values, dtype=object)
     bad = shapely.is_missing(g) | shapely.is_empty(g)
-    f.add_many("no_geometry", "error", layer, fr[idc].to_numpy()[bad],
-               f"{role[:-1]} without geometry left out")
+    if bad.any():
+        f.add_many("no_geometry", "error", layer, fr[idc].to_numpy()[bad],
+                   f"{role[:-1]} without geometry left out")
     keep = ~bad
     if "status" in fr:
         ab = (fr["status"] == "abandoned").to_numpy() & keep
-        f.add_many("abandoned_left_out", "info", layer, fr[idc].to_numpy()[ab],
-                   f"abandoned {role[:-1]} left out", g[ab])
+        if ab.any():
+            f.add_many("abandoned_left_out", "info", layer, fr[idc].to_numpy()[ab],
+                       f"abandoned {role[:-1]} left out", g[ab])
         keep &= ~ab
-    fr = fr[keep].reset_index(drop=True)
+    # every feature kept (the usual case): the frame as read, not a copy of it
+    fr = (fr if keep.all() else fr[keep]).reset_index(drop=True)
     g = g[keep]
     if len(g):
         tid = shapely.get_type_id(g)

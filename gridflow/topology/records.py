@@ -103,6 +103,7 @@ class Attached:
     """Split events on the mains and the keys point features sit at."""
 
     key_xy: np.ndarray  # position of every key [m]
+    key_pts: np.ndarray  # a Point at every key (None where none was made)
     n_clusters: int
     ev_line: np.ndarray  # events sorted by (line, distance along it)
     ev_s: np.ndarray
@@ -125,7 +126,7 @@ class Split:
     line: np.ndarray  # the main each piece came from
     from_key: np.ndarray
     to_key: np.ndarray
-    pipe_id: np.ndarray
+    pipe_id: Any  # pyarrow large_string array: the piece ids
 
 
 @dataclass(frozen=True)
@@ -142,6 +143,7 @@ class NodeTable:
     standin: np.ndarray  # bool: a source's elevation stands in for its head (no ground known)
     zone: np.ndarray  # zone named by the junction-point layer, or None
     ids_distinct: bool = False  # node_id shown distinct as text (no need to check again)
+    id_text: Any = None  # node_id as a pyarrow large_string array, when made so
 
 
 @dataclass(frozen=True)
@@ -150,3 +152,4 @@ class LinkTable:
 
     cols: dict  # name -> array (see :func:`gridflow.topology.links.link_table`)
     ids_distinct: bool = False  # cols["link_id"] shown distinct as text
+    id_text: Any = None  # cols["link_id"] as a pyarrow large_string array, when made so

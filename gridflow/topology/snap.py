@@ -9,8 +9,10 @@ end nodes, same diameter, within the tolerance of each other).
 from __future__ import annotations
 
 import numpy as np
+import pyarrow as pa
 import shapely
 
+from gridflow.topology.idtext import joined, two_decimals
 from gridflow.topology.lines import end_points, set_end_points, snap_labels
 from gridflow.topology.records import Context, Pipes, Snapped
 
@@ -73,9 +75,14 @@ def snap_ends(ctx: Context, pipes: Pipes) -> Snapped:
         k = np.bincount(lab2, minlength=len(cxy))
         first = np.full(len(cxy), n)
         np.minimum.at(first, lab2, np.arange(2 * n) % n)
-        f.add_many("end_snapped", "info", layer, ids[first[cl]],
-                   [f"{c} pipe ends joined; an end moved {d:.2f} m" for c, d in
-                    zip(k[cl].tolist(), dmax[cl].tolist())], cpts[cl])
+        text = two_decimals(dmax[cl])  # every row's message by array work where it can be
+        msgs = None if text is None else joined(
+            pa.array(k[cl]).cast(pa.large_string()), " pipe ends joined; an end moved ", text,
+            " m")
+        if msgs is None:
+            msgs = [f"{c} pipe ends joined; an end moved {d:.2f} m" for c, d in
+                    zip(k[cl].tolist(), dmax[cl].tolist())]
+        f.add_many("end_snapped", "info", layer, ids[first[cl]], msgs, cpts[cl])
         geoms = set_end_points(geoms, cxy[lab_s], cxy[lab_e])
     # z at clusters, for elevation source z
     cluster_z = np.full(len(cxy), np.nan)

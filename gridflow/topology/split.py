@@ -3,8 +3,10 @@
 from __future__ import annotations
 
 import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
 
-from gridflow.topology.idtext import suffixed
+from gridflow.topology.idtext import as_text
 from gridflow.topology.lines import split_lines
 from gridflow.topology.records import Attached, Snapped, Split
 
@@ -13,7 +15,7 @@ __all__ = ["split_mains"]
 
 def split_mains(sn: Snapped, at: Attached) -> Split:
     """Stage 4: pieces of each main between its events; a split main's pieces carry its id
-    with a suffix (``<id>.1``, ``<id>.2`` ...)."""
+    with a suffix (``<id>.1``, ``<id>.2`` ...), as Arrow text."""
     n = len(sn.geoms)
     pieces, p_line, p_k = split_lines(sn.geoms, at.ev_line, at.ev_s, at.ev_xy)
     n_ev = np.bincount(at.ev_line, minlength=n)
@@ -26,7 +28,10 @@ def split_mains(sn: Snapped, at: Attached) -> Split:
     p_from = np.where(first, at.start_key[p_line], ev_down[np.maximum(e_end - 1, 0)])
     p_to = np.where(last, at.end_key[p_line], ev_up[np.minimum(e_end, len(ev_up) - 1)])
     split_n = n_ev[p_line] > 0
-    pid = sn.ids[p_line].astype(object)
-    pid[split_n] = suffixed(pid[split_n], p_k[split_n] + 1)
+    pid = pa.array(as_text(sn.ids), type=pa.large_string()).take(pa.array(p_line))
+    if split_n.any():  # "<id>.<k>": made for every piece by Arrow, kept for split mains
+        k = pa.array(p_k + 1).cast(pa.large_string())
+        dot = pa.scalar(".", pa.large_string())
+        pid = pc.if_else(pa.array(split_n), pc.binary_join_element_wise(pid, k, dot), pid)
     return Split(pieces=pieces, line=p_line, from_key=p_from.astype(np.int64),
                  to_key=p_to.astype(np.int64), pipe_id=pid)

@@ -18,8 +18,8 @@ import shapely
 from gridflow.findings import Findings
 from gridflow.network import LINK_PUMP, NODE_JUNCTION, STATUS_CLOSED, VALVE_PRESSURE_REDUCING
 
-__all__ = ["components", "zones_and_parts", "zone_names", "connectivity_findings", "supplied_nodes",
-           "NetworkParts", "network_parts"]
+__all__ = ["components", "merged_components", "zones_and_parts", "zone_names",
+           "connectivity_findings", "supplied_nodes", "NetworkParts", "network_parts"]
 
 
 @dataclass(frozen=True)
@@ -36,12 +36,23 @@ def _open_links(net) -> np.ndarray:
                                              & (net.pump_speed <= 0))
 
 
-def network_parts(net) -> NetworkParts:
+def network_parts(net, zone_parts: np.ndarray | None = None) -> NetworkParts:
     """The network's parts through every link and through open links (see
-    :class:`NetworkParts`)."""
+    :class:`NetworkParts`).
+
+    ``zone_parts``: the parts :func:`zone_names` found (through open links other than PRVs
+    and pumps), when known: the parts here are then those joined by the few links left out
+    there (:func:`merged_components`), not found again over the whole network.
+    """
     ok = _open_links(net)
-    return NetworkParts(whole=components(net.n_nodes, net.from_idx, net.to_idx),
-                        open=components(net.n_nodes, net.from_idx[ok], net.to_idx[ok]))
+    if zone_parts is None:
+        return NetworkParts(whole=components(net.n_nodes, net.from_idx, net.to_idx),
+                            open=components(net.n_nodes, net.from_idx[ok], net.to_idx[ok]))
+    # zone links are open links: the open parts join zone parts, the whole joins open parts
+    extra = ok & ~_zone_links(net.link_kind, net.status, net.valve_type)
+    open_ = merged_components(zone_parts, net.from_idx[extra], net.to_idx[extra])
+    return NetworkParts(whole=merged_components(open_, net.from_idx[~ok], net.to_idx[~ok]),
+                        open=open_)
 
 
 def components(n: int, a: np.ndarray, b: np.ndarray) -> np.ndarray:
@@ -51,6 +62,27 @@ def components(n: int, a: np.ndarray, b: np.ndarray) -> np.ndarray:
 
     g = coo_matrix((np.ones(len(a), dtype=np.int8), (a, b)), shape=(n, n))
     return connected_components(g, directed=False)[1]
+
+
+def merged_components(parts: np.ndarray, a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """:func:`components` of a graph given as the parts (labels per node, as
+    :func:`components` numbers them) of some of its edges, and its other edges (a, b).
+
+    Notes
+    -----
+    The parts are the nodes of a small graph joined by the other edges; its components
+    are the graph's. Labels come out as :func:`components` gives them for the whole graph:
+    scipy numbers components in order of their first node, a part's label orders the parts
+    by their first node, and a component's first node is the first node of its first part.
+    """
+    if len(parts) == 0:
+        return parts
+    return components(int(parts.max()) + 1, parts[a], parts[b])[parts]
+
+
+def _zone_links(kind, status, valve_type) -> np.ndarray:
+    """Links inside a zone: not closed, not a PRV, not a pump."""
+    return (status != STATUS_CLOSED) & (valve_type != VALVE_PRESSURE_REDUCING) & (kind != LINK_PUMP)
 
 
 def zones_and_parts(n: int, frm, to, kind, status, valve_type, speed, link_zone, node_zone,
@@ -64,8 +96,7 @@ def zones_and_parts(n: int, frm, to, kind, status, valve_type, speed, link_zone,
 def zone_names(n: int, frm, to, kind, status, valve_type, speed, link_zone, node_zone,
                zone_mapped: bool) -> tuple[np.ndarray, np.ndarray]:
     """:func:`zones_and_parts` as the names of the zones and each node's zone (position)."""
-    inner = ((status != STATUS_CLOSED) & (valve_type != VALVE_PRESSURE_REDUCING)
-             & (kind != LINK_PUMP))
+    inner = _zone_links(kind, status, valve_type)
     comp = components(n, frm[inner], to[inner])
     ncomp = int(comp.max()) + 1 if n else 0
     names = np.full(ncomp, None, dtype=object)
