@@ -108,13 +108,18 @@ def write_layers(path: str | Path, layers: Mapping[str, object], *,
     from gridflow.io.deferred import DeferredLayer
     from gridflow.memory import release_memory
 
+    from gridflow.io import rtree
+
     tmp = str(path)
+    indexed: list[rtree.IndexedLayer] | None = [] if rtree.available() else None
     with gdal_config(GPKG_WRITE_OPTIONS):
         for name, layer in layers.items():
-            _write_layer(pyogrio, tmp, name, layer)
+            _write_layer(pyogrio, tmp, name, layer, indexed)
             if isinstance(layer, DeferredLayer):  # its frame and Arrow buffers are free now
                 release_memory()
             log.debug("wrote layer %s", name)
+        if indexed:
+            rtree.add_spatial_indexes(tmp, indexed)
         if styles:
             from gridflow.io.styles import store_styles
 
@@ -132,7 +137,10 @@ def _fsync(path: str) -> None:
         os.close(fd)
 
 
-def _write_layer(pyogrio, tmp: str, name: str, layer) -> None:
+def _write_layer(pyogrio, tmp: str, name: str, layer, indexed: list | None = None) -> None:
+    """One layer into ``tmp``. Layers streamed in batches are written without their spatial
+    index when ``indexed`` is a list: their rows' boxes are appended to it, for
+    :func:`gridflow.io.rtree.add_spatial_indexes` to build the index packed afterwards."""
     import geopandas as gpd
     import pandas as pd
 
@@ -140,7 +148,7 @@ def _write_layer(pyogrio, tmp: str, name: str, layer) -> None:
 
     if isinstance(layer, DeferredLayer) and layer.geometry is not None and layer.rows > 0:
         _write_batched(pyogrio, tmp, name, layer.attributes, layer.geometry, layer.crs,
-                       layer.geometry_type)
+                       layer.geometry_type, indexed=indexed)
         return
     df = materialize(layer)
     if isinstance(df, gpd.GeoDataFrame) and df.geometry.name in df:
@@ -152,7 +160,7 @@ def _write_layer(pyogrio, tmp: str, name: str, layer) -> None:
             data = np.asarray(geoms)
             _write_batched(pyogrio, tmp, name, attrs, data, df.crs, _geometry_type(data),
                            position=list(df.columns).index(df.geometry.name),
-                           geometry_name=df.geometry.name)
+                           geometry_name=df.geometry.name, indexed=indexed)
             return
         kw = {}
         if _geometry_type(geoms) == "Unknown":
@@ -207,7 +215,8 @@ def _simple_columns(attrs) -> bool:
 
 
 def _write_batched(pyogrio, tmp: str, name: str, attrs, geometry, crs, geometry_type: str, *,
-                   position: int | None = None, geometry_name: str = "geometry") -> None:
+                   position: int | None = None, geometry_name: str = "geometry",
+                   indexed: list | None = None) -> None:
     """One layer (at least one row) from its attributes and its geometry by rows
     (``geometry[start:stop]``), as a stream of batches.
 
@@ -229,11 +238,19 @@ def _write_batched(pyogrio, tmp: str, name: str, attrs, geometry, crs, geometry_
     pos = table.num_columns if position is None else position
     schema = table.schema.insert(pos, pa.field(geometry_name, pa.binary()))
 
+    boxes = None
+    if indexed is not None:
+        from gridflow.io.rtree import IndexedLayer
+
+        boxes = IndexedLayer(name)
+
     def batches():
         for a in range(0, n, BATCH_ROWS):
             b = min(a + BATCH_ROWS, n)
-            wkb = pa.array(shapely.to_wkb(np.asarray(geometry[a:b], dtype=object)),
-                           type=pa.binary())
+            part = np.asarray(geometry[a:b], dtype=object)
+            wkb = pa.array(shapely.to_wkb(part), type=pa.binary())
+            if boxes is not None:
+                boxes.add(shapely.bounds(part))  # NaN where missing or empty
             done = 0
             for batch in table.slice(a, b - a).to_batches():
                 cols = list(batch.columns)
@@ -243,7 +260,12 @@ def _write_batched(pyogrio, tmp: str, name: str, attrs, geometry, crs, geometry_
 
     reader = pa.RecordBatchReader.from_batches(schema, batches())
     pyogrio.write_arrow(reader, tmp, layer=name, driver="GPKG", geometry_name=geometry_name,
-                        geometry_type=geometry_type, crs=_crs_text(crs))
+                        geometry_type=geometry_type, crs=_crs_text(crs),
+                        layer_options={"SPATIAL_INDEX": "NO"} if boxes is not None else None)
+    if boxes is not None:
+        if boxes.rows != n:
+            raise RuntimeError(f"layer {name}: {boxes.rows} boxes for {n} rows")
+        indexed.append(boxes)
 
 
 def _crs_text(crs) -> str | None:
