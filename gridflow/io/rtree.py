@@ -88,9 +88,9 @@ _TRIGGERS = (
 
 class IndexedLayer:
     """What :func:`add_spatial_indexes` needs of one written layer: its table's name and the
-    bounding box of each row in the order written (``NaN`` where the geometry is missing or
-    empty), collected batch by batch while the layer is written. The geometry column and the
-    id column are read from the file."""
+    bounding box of each row in the order written (rounded as the index stores it; ``NaN``
+    where the geometry is missing or empty), collected batch by batch while the layer is
+    written. The geometry column and the id column are read from the file."""
 
     def __init__(self, table: str) -> None:
         self.table = table
@@ -98,15 +98,17 @@ class IndexedLayer:
         self._parts: list[np.ndarray] = []
 
     def add(self, bounds: np.ndarray) -> None:
-        """The next rows' boxes (``shapely.bounds``: minx, miny, maxx, maxy per row)."""
-        self._parts.append(np.asarray(bounds, dtype=float).reshape(-1, 4))
+        """The next rows' boxes (``shapely.bounds``: minx, miny, maxx, maxy per row), kept as
+        the index's 4-byte floats (:func:`round_boxes`: minx, maxx, miny, maxy)."""
+        self._parts.append(round_boxes(np.asarray(bounds, dtype=float).reshape(-1, 4)))
 
     @property
     def rows(self) -> int:
         return int(sum(len(p) for p in self._parts))
 
     def boxes(self) -> np.ndarray:
-        return np.concatenate(self._parts) if self._parts else np.zeros((0, 4))
+        """Every row's rounded box (float32 minx, maxx, miny, maxy)."""
+        return np.concatenate(self._parts) if self._parts else np.zeros((0, 4), np.float32)
 
 
 def round_boxes(boxes: np.ndarray) -> np.ndarray:
@@ -201,7 +203,7 @@ def build_index(con: sqlite3.Connection, layer: IndexedLayer) -> int:
     boxes = layer.boxes()
     ok = np.flatnonzero(np.isfinite(boxes).all(axis=1))
     if len(ok):
-        levels = pack_boxes(round_boxes(boxes[ok]), ok + 1)
+        levels = pack_boxes(boxes[ok], ok + 1)
         depth = len(levels) - 1
         # node numbers: the root 1, then each level below in node order
         next_no = 1
@@ -242,6 +244,11 @@ def build_index(con: sqlite3.Connection, layer: IndexedLayer) -> int:
                 "'http://www.geopackage.org/spec120/#extension_rtree', 'write-only')",
                 (t, c))
     return len(ok)
+
+
+def _has_table(con: sqlite3.Connection, name: str) -> bool:
+    return con.execute("SELECT 1 FROM sqlite_master WHERE type = 'table' AND name = ?",
+                       (name,)).fetchone() is not None
 
 
 def _one(con: sqlite3.Connection, sql: str, arg: str) -> str:
@@ -287,11 +294,18 @@ def add_spatial_indexes(path: str, layers: Sequence[IndexedLayer]) -> None:
             layer.fid = _one(con, "SELECT name FROM pragma_table_info(?) WHERE pk = 1",
                              layer.table)
             n = layer.rows
-            got = con.execute(f"SELECT count(*), min({_quote(layer.fid)}), "
-                              f"max({_quote(layer.fid)}) FROM {_quote(layer.table)}").fetchone()
-            if got[0] != n or (n and (got[1] != 1 or got[2] != n)):
-                raise RuntimeError(f"layer {layer.table}: {got[0]} rows with ids {got[1]}.."
-                                   f"{got[2]}, expected 1..{n}")
+            # the rows must have ids 1..n in the order written: GDAL's kept feature count,
+            # or a count of the table where it keeps none, and the smallest and largest id
+            count = con.execute("SELECT feature_count FROM gpkg_ogr_contents WHERE "
+                                "lower(table_name) = lower(?)", (layer.table,)).fetchone() \
+                if _has_table(con, "gpkg_ogr_contents") else None
+            if count is None or count[0] is None:
+                count = con.execute(f"SELECT count(*) FROM {_quote(layer.table)}").fetchone()
+            lo, hi = con.execute(f"SELECT min({_quote(layer.fid)}), max({_quote(layer.fid)}) "
+                                 f"FROM {_quote(layer.table)}").fetchone()
+            if count[0] != n or (n and (lo != 1 or hi != n)):
+                raise RuntimeError(f"layer {layer.table}: {count[0]} rows with ids {lo}..{hi}, "
+                                   f"expected 1..{n}")
             build_index(con, layer)
         con.execute("COMMIT")
     except BaseException:
