@@ -152,3 +152,22 @@ def test_rows_out_of_step_with_the_table_are_refused(tmp_path):
     assert con.execute("SELECT count(*) FROM sqlite_master WHERE name LIKE 'rtree_%'"
                        ).fetchone()[0] == 0
     con.close()
+
+
+def test_a_failed_index_build_leaves_the_earlier_output(tmp_path, monkeypatch):
+    """The index is part of the write: if it fails, the write fails and the output written
+    before stays byte-identical, with no temporary left."""
+    from gridflow.io.write import write_geopackage
+
+    out = tmp_path / "res.gpkg"
+    write_geopackage(out, {"pipes": _lines(200, seed=2)})
+    before = out.read_bytes()
+
+    def boom(con, layer):
+        raise sqlite3.OperationalError("disk I/O error (injected)")
+
+    monkeypatch.setattr(rtree, "build_index", boom)
+    with pytest.raises(sqlite3.OperationalError, match="injected"):
+        write_geopackage(out, {"pipes": _lines(300, seed=4)})
+    assert out.read_bytes() == before
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["res.gpkg"]
