@@ -208,7 +208,7 @@ def build_index(con: sqlite3.Connection, layer: IndexedLayer) -> int:
         # node numbers: the root 1, then each level below in node order
         next_no = 1
         numbers = []
-        for ent, starts, _ in reversed(levels):
+        for _ent, starts, _ in reversed(levels):
             numbers.append(np.arange(next_no, next_no + len(starts), dtype=np.int64))
             next_no += len(starts)
         numbers = numbers[::-1]  # per level, leaves first

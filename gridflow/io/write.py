@@ -108,10 +108,9 @@ def write_layers(path: str | Path, layers: Mapping[str, object], *,
     :func:`write_geopackage`)."""
     import pyogrio
 
+    from gridflow.io import rtree
     from gridflow.io.deferred import DeferredLayer
     from gridflow.memory import release_memory
-
-    from gridflow.io import rtree
 
     tmp = str(path)
     packed = rtree.available()
