@@ -216,8 +216,8 @@ def build_index(con: sqlite3.Connection, layer: IndexedLayer) -> int:
             ent = levels[lv][0]
             ent["id"] = numbers[lv - 1][ent["id"]]
         con.execute(f"DELETE FROM {_quote(r + '_node')}")
-        node_rows = []
-        parent_rows = []
+        node_rows: list[tuple[int, bytes]] = []
+        parent_rows: list[tuple[int, int]] = []
         for lv, (ent, starts, _) in enumerate(levels):
             blobs = _blobs(ent, starts, depth if lv == depth else None)
             node_rows.extend(zip(numbers[lv].tolist(), blobs))
