@@ -96,15 +96,22 @@ class IndexedLayer:
         self.table = table
         self.column = self.fid = ""
         self._parts: list[np.ndarray] = []
+        self._rows = 0
 
     def add(self, bounds: np.ndarray) -> None:
         """The next rows' boxes (``shapely.bounds``: minx, miny, maxx, maxy per row), kept as
         the index's 4-byte floats (:func:`round_boxes`: minx, maxx, miny, maxy)."""
-        self._parts.append(round_boxes(np.asarray(bounds, dtype=float).reshape(-1, 4)))
+        part = round_boxes(np.asarray(bounds, dtype=float).reshape(-1, 4))
+        self._parts.append(part)
+        self._rows += len(part)
 
     @property
     def rows(self) -> int:
-        return int(sum(len(p) for p in self._parts))
+        return self._rows
+
+    def clear(self) -> None:
+        """Let go of the boxes (after :meth:`boxes`)."""
+        self._parts = []
 
     def boxes(self) -> np.ndarray:
         """Every row's rounded box (float32 minx, maxx, miny, maxy)."""
@@ -149,10 +156,9 @@ def _str_order(box: np.ndarray, cap: int) -> np.ndarray:
 
 def pack_boxes(boxes: np.ndarray, ids: np.ndarray, cap: int = NODE_ENTRIES):
     """A packed tree of rounded boxes ``boxes`` (float32 minx, maxx, miny, maxy) with ids
-    ``ids``: per level from the leaves up, ``(entries, starts, boxes)``: the level's entries
+    ``ids``: per level from the leaves up, ``(entries, starts)``: the level's entries
     (structured, in node order; above the leaves an entry's id is its node's position in the
-    level below), where each node's entries start, and the entries' boxes. The root level has
-    one node."""
+    level below) and where each node's entries start. The root level has one node."""
     levels = []
     box, ident = boxes, np.asarray(ids, dtype=np.int64)
     while True:
@@ -160,34 +166,45 @@ def pack_boxes(boxes: np.ndarray, ids: np.ndarray, cap: int = NODE_ENTRIES):
         ent = np.empty(len(box), dtype=_ENTRY)
         ent["id"] = ident[order]
         b = box[order]
-        ent["minx"], ent["maxx"], ent["miny"], ent["maxy"] = b[:, 0], b[:, 1], b[:, 2], b[:, 3]
+        del order
+        for k, name in enumerate(("minx", "maxx", "miny", "maxy")):
+            ent[name] = b[:, k]
         starts = np.arange(0, len(box), cap)
-        levels.append((ent, starts, b))
+        levels.append((ent, starts))
         if len(starts) == 1:
             return levels
         box = np.column_stack([np.minimum.reduceat(b[:, 0], starts),
                                np.maximum.reduceat(b[:, 1], starts),
                                np.minimum.reduceat(b[:, 2], starts),
                                np.maximum.reduceat(b[:, 3], starts)]).astype(np.float32)
+        del b
         ident = np.arange(len(starts), dtype=np.int64)  # the nodes below, by position
 
 
-def _blobs(ent: np.ndarray, starts: np.ndarray, depth: int | None) -> list[bytes]:
-    """Node blobs of one level (``depth`` written into the root's header only)."""
-    cap = NODE_ENTRIES
+#: nodes made into blobs at a time, and feature ids sent to SQLite at a time
+_NODE_CHUNK = 8192
+_ROW_CHUNK = 262_144
+
+
+def _blobs(ent: np.ndarray, starts: np.ndarray, depth: int | None):
+    """Node blobs of one level in node order (``depth`` written into the root's header
+    only), made a chunk of nodes at a time."""
     m = len(starts)
-    counts = np.diff(np.append(starts, len(ent)))
-    slab = np.zeros((m, cap), dtype=_ENTRY)
-    col = np.arange(len(ent)) - np.repeat(starts, counts)
-    slab[np.repeat(np.arange(m), counts), col] = ent
-    raw = np.zeros((m, NODE_BYTES), dtype=np.uint8)
-    head = np.zeros((m, 2), dtype=">u2")
-    head[:, 1] = counts
-    if depth is not None:
-        head[:, 0] = depth
-    raw[:, :4] = head.view(np.uint8).reshape(m, 4)
-    raw[:, 4:] = slab.view(np.uint8).reshape(m, cap * _ENTRY.itemsize)
-    return [r.tobytes() for r in raw]
+    ends = np.append(starts[1:], len(ent))
+    for a in range(0, m, _NODE_CHUNK):
+        b = min(a + _NODE_CHUNK, m)
+        lo, hi = int(starts[a]), int(ends[b - 1])
+        counts = ends[a:b] - starts[a:b]
+        raw = np.zeros((b - a, NODE_BYTES), dtype=np.uint8)
+        head = np.zeros((b - a, 2), dtype=">u2")
+        head[:, 1] = counts
+        if depth is not None:
+            head[:, 0] = depth
+        raw[:, :4] = head.view(np.uint8).reshape(b - a, 4)
+        cells = raw[:, 4:].view(_ENTRY)  # (nodes, NODE_ENTRIES) entries in place
+        col = np.arange(lo, hi) - np.repeat(starts[a:b], counts)
+        cells[np.repeat(np.arange(b - a), counts), col] = ent[lo:hi]
+        yield from (r.tobytes() for r in raw)
 
 
 def _quote(name: str) -> str:
@@ -201,14 +218,16 @@ def build_index(con: sqlite3.Connection, layer: IndexedLayer) -> int:
     r = f"rtree_{t}_{c}"
     con.execute(f"CREATE VIRTUAL TABLE {_quote(r)} USING rtree(id, minx, maxx, miny, maxy)")
     boxes = layer.boxes()
+    layer.clear()
     ok = np.flatnonzero(np.isfinite(boxes).all(axis=1))
     if len(ok):
         levels = pack_boxes(boxes[ok], ok + 1)
+        del boxes
         depth = len(levels) - 1
         # node numbers: the root 1, then each level below in node order
         next_no = 1
         numbers = []
-        for _ent, starts, _ in reversed(levels):
+        for _ent, starts in reversed(levels):
             numbers.append(np.arange(next_no, next_no + len(starts), dtype=np.int64))
             next_no += len(starts)
         numbers = numbers[::-1]  # per level, leaves first
@@ -216,26 +235,27 @@ def build_index(con: sqlite3.Connection, layer: IndexedLayer) -> int:
             ent = levels[lv][0]
             ent["id"] = numbers[lv - 1][ent["id"]]
         con.execute(f"DELETE FROM {_quote(r + '_node')}")
-        node_rows: list[tuple[int, bytes]] = []
-        parent_rows: list[tuple[int, int]] = []
-        for lv, (ent, starts, _) in enumerate(levels):
-            blobs = _blobs(ent, starts, depth if lv == depth else None)
-            node_rows.extend(zip(numbers[lv].tolist(), blobs))
+        for lv, (ent, starts) in enumerate(levels):
+            con.executemany(f"INSERT INTO {_quote(r + '_node')} VALUES (?, ?)",
+                            zip(numbers[lv].tolist(),
+                                _blobs(ent, starts, depth if lv == depth else None)))
             if lv > 0:
                 counts = np.diff(np.append(starts, len(ent)))
-                parent_rows.extend(zip(ent["id"].astype(np.int64).tolist(),
-                                       np.repeat(numbers[lv], counts).tolist()))
-        con.executemany(f"INSERT INTO {_quote(r + '_node')} VALUES (?, ?)", node_rows)
-        con.executemany(f"INSERT INTO {_quote(r + '_parent')} VALUES (?, ?)", parent_rows)
-        # each feature's leaf node, in id order (an append to the table's B-tree), as one
-        # JSON array read by SQLite itself (null: no box, no entry)
-        leaf, starts, _ = levels[0]
+                con.executemany(f"INSERT INTO {_quote(r + '_parent')} VALUES (?, ?)",
+                                zip(ent["id"].astype(np.int64).tolist(),
+                                    np.repeat(numbers[lv], counts).tolist()))
+        # each feature's leaf node, in id order (appends to the table's B-tree), as JSON
+        # arrays read by SQLite itself, a chunk of ids at a time
+        leaf, starts = levels[0]
         counts = np.diff(np.append(starts, len(leaf)))
-        node_of = np.full(len(boxes), -1, dtype=np.int64)
+        node_of = np.zeros(int(ok[-1]) + 1, dtype=np.int64)  # 0: no box, no entry
         node_of[leaf["id"].astype(np.int64) - 1] = np.repeat(numbers[0], counts)
-        text = ",".join(map(str, node_of.tolist())).replace("-1", "null")
-        con.execute(f"INSERT INTO {_quote(r + '_rowid')} SELECT key + 1, value FROM "
-                    "json_each(?) WHERE value IS NOT NULL", ("[" + text + "]",))
+        del levels, leaf
+        sql = (f"INSERT INTO {_quote(r + '_rowid')} SELECT key + ?, value FROM json_each(?) "
+               "WHERE value > 0")
+        for a in range(0, len(node_of), _ROW_CHUNK):
+            part = node_of[a:a + _ROW_CHUNK].tolist()
+            con.execute(sql, (a + 1, "[" + ",".join(map(str, part)) + "]"))
     for sql in _TRIGGERS:
         con.execute(sql.format(t=t.replace('"', '""'), c=c.replace('"', '""'),
                                i=i.replace('"', '""'), r=r.replace('"', '""')))
