@@ -26,7 +26,7 @@ import shapely
 
 from gridflow.topology.idtext import joined, two_decimals
 from gridflow.topology.nearest import nearest_lines, widened_boxes
-from gridflow.topology.points import column, point_layer
+from gridflow.topology.points import column, point_layer, text_in
 from gridflow.topology.records import Attached, Context, Device, PointLayer, Snapped
 
 __all__ = ["attach_points"]
@@ -62,7 +62,9 @@ def attach_points(ctx: Context, sn: Snapped) -> Attached:
     hyd = point_layer(ctx, "hydrants")
     hyd_key, ev_line, ev_key, ev_s, ev_xy = _hydrant_events(ctx, sn, tree, glen, keys, hyd,
                                                             t_line, t_key, t_s)
-    ev_up, ev_down = ev_key.copy(), ev_key.copy()
+    # split events gathered in parts (hydrants and T-junctions, rings, each device role),
+    # joined once at the end
+    ev_line, ev_s, ev_xy, ev_up, ev_down = [ev_line], [ev_s], [ev_xy], [ev_key], [ev_key]
     ring = np.flatnonzero(sn.lab_s == sn.lab_e)
     if len(ring):
         rs = glen[ring] / 2
@@ -71,9 +73,7 @@ def attach_points(ctx: Context, sn: Snapped) -> Attached:
         rk = keys.new(rxy, rpts)
         f.add_many("ring_split", "info", sn.layer, sn.ids[ring],
                    "main whose ends meet split in the middle", sn.geoms[ring])
-        ev_line, ev_s = np.r_[ev_line, ring], np.r_[ev_s, rs]
-        ev_xy = np.vstack([ev_xy, rxy])
-        ev_up, ev_down = np.r_[ev_up, rk], np.r_[ev_down, rk]
+        _add(ev_line, ring, ev_s, rs, ev_xy, rxy, ev_up, rk, ev_down, rk)
     start_key, end_key = sn.lab_s.copy(), sn.lab_e.copy()
     devices = []
     for pl, li, s, end in _device_events(ctx, sn, tree, glen):
@@ -86,9 +86,8 @@ def attach_points(ctx: Context, sn: Snapped) -> Attached:
             k = keys.new(np.repeat(pxy[inner], 2, axis=0),
                          np.repeat(ppts[inner], 2)).reshape(-1, 2)
             up[inner], down[inner] = k[:, 0], k[:, 1]
-            ev_line, ev_s = np.r_[ev_line, li[inner]], np.r_[ev_s, s[inner]]
-            ev_xy = np.vstack([ev_xy, pxy[inner]])
-            ev_up, ev_down = np.r_[ev_up, up[inner]], np.r_[ev_down, down[inner]]
+            _add(ev_line, li[inner], ev_s, s[inner], ev_xy, pxy[inner], ev_up, up[inner],
+                 ev_down, down[inner])
         e0 = end == 0
         if e0.any():
             k = keys.new(sn.cxy[sn.lab_s[li[e0]]], keys.pts[0][sn.lab_s[li[e0]]])
@@ -101,6 +100,9 @@ def attach_points(ctx: Context, sn: Snapped) -> Attached:
             end_key[li[e1]] = k
         devices.append(Device(points=pl, line=li, up=up, down=down,
                               reversed=_against(ctx, pl, sn.geoms[li], s, glen[li]), xy=pxy))
+    ev_line, ev_s, ev_up, ev_down = (np.concatenate(a) for a in (ev_line, ev_s, ev_up,
+                                                                  ev_down))
+    ev_xy = np.concatenate([a.reshape(-1, 2) for a in ev_xy])
     order = np.lexsort((ev_s, ev_line))
     return Attached(key_xy=np.vstack(keys.xy), key_pts=np.concatenate(keys.pts),
                     n_clusters=len(sn.cxy),
@@ -109,6 +111,12 @@ def attach_points(ctx: Context, sn: Snapped) -> Attached:
                     ev_down=ev_down[order].astype(np.int64), start_key=start_key,
                     end_key=end_key, hydrants=hyd, hyd_key=hyd_key, devices=tuple(devices),
                     cluster_pts=sn.cluster_pts)
+
+
+def _add(*lists_and_parts) -> None:
+    """Append each part to the list before it: ``_add(la, a, lb, b, ...)``."""
+    for dest, part in zip(lists_and_parts[::2], lists_and_parts[1::2]):
+        dest.append(part)
 
 
 def t_events(ctx: Context, sn: Snapped, tree, glen: np.ndarray):
@@ -284,7 +292,7 @@ def _directional(pl: PointLayer) -> np.ndarray:
     """True for devices that act in a direction: pumps, PRVs, check valves."""
     if pl.role == "pumps":
         return np.ones(len(pl.frame), bool)
-    return np.isin(column(pl.frame, "type", object).astype(str), ["prv", "check"])
+    return text_in(pl.frame, "type", ("prv", "check"))
 
 
 def _direction_finding(ctx: Context, pl: PointLayer) -> None:

@@ -71,13 +71,7 @@ def nearest_lines(tree: shapely.STRtree, lines: np.ndarray, pts: np.ndarray,
     while todo.size:
         q, t, d = _pairs_within(tree, lines, pts[todo], r)
         if q.size:
-            o = np.lexsort((d, q))
-            q, t, d = q[o], t[o], d[o]
-            head = np.flatnonzero(np.r_[True, q[1:] != q[:-1]])
-            nxt = head + 1
-            tie = np.zeros(head.size, bool)
-            inb = nxt < q.size
-            tie[inb] = (q[nxt[inb]] == q[head[inb]]) & (d[nxt[inb]] == d[head[inb]])
+            head, tie = _least(q, d)
             sure = head[~tie]
             got_p.append(todo[q[sure]])
             got_l.append(t[sure])
@@ -108,6 +102,35 @@ def nearest_lines(tree: shapely.STRtree, lines: np.ndarray, pts: np.ndarray,
     order = np.argsort(p, kind="stable")
     return (p[order], np.concatenate(got_l).astype(np.int64)[order],
             np.concatenate(got_d).astype(float)[order])
+
+
+def _least(q: np.ndarray, d: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """For pairs ``(q, d)`` grouped by ``q`` ascending: the position of each group's least
+    ``d`` (its first where several share it), and whether several share it (a tie).
+
+    Notes
+    -----
+    The tree's pairs come grouped by query geometry in ascending order; one pass of
+    ``minimum.reduceat`` finds each least distance (a sort of the pairs by ``(q, d)`` would
+    cost several times more at a million pairs). Pairs not so ordered are put in order first.
+    """
+    if q.size > 1 and (q[1:] < q[:-1]).any():  # not grouped: order them (stable)
+        o = np.argsort(q, kind="stable")
+        head, tie = _least(q[o], d[o])
+        return o[head], tie
+    new = np.empty(q.size, bool)
+    new[0] = True
+    np.not_equal(q[1:], q[:-1], out=new[1:])
+    start = np.flatnonzero(new)
+    least = np.minimum.reduceat(d, start)
+    grp = np.cumsum(new) - 1
+    at_least = d == least[grp]
+    count = np.add.reduceat(at_least.astype(np.int64), start)
+    pos = np.flatnonzero(at_least)
+    first = np.empty(pos.size, bool)
+    first[0] = True
+    np.not_equal(grp[pos[1:]], grp[pos[:-1]], out=first[1:])
+    return pos[first], count > 1
 
 
 def widened_boxes(geoms: np.ndarray, r: float) -> np.ndarray:
