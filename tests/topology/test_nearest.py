@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 import shapely
 
-from gridflow.topology.nearest import nearest_lines
+from gridflow.topology.nearest import _least, nearest_lines
 
 
 def _grid(seed: int = 3):
@@ -78,3 +78,35 @@ def test_missing_and_empty_points_get_no_line():
     assert list(p) == list(q) == [0, 3]
     assert list(t) == list(tt)
     np.testing.assert_array_equal(d, dd)
+
+
+@pytest.mark.parametrize("grouped", [True, False])
+def test_least_per_group_as_a_sort_finds_it(grouped):
+    """Each group's least distance and its ties, against numpy's ``lexsort`` by (group,
+    distance): the first row of each group after the sort, a tie where the next row of the
+    same group has the same distance (the reference: numpy, a general-purpose library)."""
+    rng = np.random.default_rng(11)
+    q = np.sort(rng.integers(0, 4000, 20000))
+    d = np.round(rng.uniform(0, 5, q.size), 1)  # coarse values: many ties inside groups
+    if not grouped:
+        o = rng.permutation(q.size)
+        q, d = q[o], d[o]
+    head, tie = _least(q, d)
+    o = np.lexsort((d, q))
+    sq, sd = q[o], d[o]
+    first = np.flatnonzero(np.r_[True, sq[1:] != sq[:-1]])
+    nxt = np.minimum(first + 1, sq.size - 1)
+    ref_tie = (nxt != first) & (sq[nxt] == sq[first]) & (sd[nxt] == sd[first])
+    assert tie.any() and (~tie).any()  # both cases are really there
+    np.testing.assert_array_equal(tie, ref_tie)
+    np.testing.assert_array_equal(q[head], sq[first])
+    np.testing.assert_array_equal(d[head], sd[first])
+    # where several share the least distance, the first of them in the input's order
+    np.testing.assert_array_equal(head, o[first])
+
+
+def test_least_single_pair_and_single_group():
+    head, tie = _least(np.array([7]), np.array([2.5]))
+    assert list(head) == [0] and list(tie) == [False]
+    head, tie = _least(np.array([3, 3, 3]), np.array([4.0, 1.0, 1.0]))
+    assert list(head) == [1] and list(tie) == [True]
