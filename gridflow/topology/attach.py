@@ -25,7 +25,7 @@ import numpy as np
 import shapely
 
 from gridflow.topology.idtext import joined, two_decimals
-from gridflow.topology.nearest import nearest_lines, widened_boxes
+from gridflow.topology.nearest import box_query, nearest_lines
 from gridflow.topology.points import column, point_layer, text_in
 from gridflow.topology.records import Attached, Context, Device, PointLayer, Snapped
 
@@ -129,7 +129,7 @@ def t_events(ctx: Context, sn: Snapped, tree, glen: np.ndarray):
         return none
     # the mains whose boxes come within the tolerance, less each end's own mains, measured
     # once: the pairs ``query(predicate="dwithin")`` gives, in the same order
-    pi, li = tree.query(widened_boxes(cpts, tol))
+    pi, li = box_query(tree, cpts, tol)
     own = (sn.lab_s[li] == pi) | (sn.lab_e[li] == pi)
     pi, li = pi[~own], li[~own]
     d = shapely.distance(sn.geoms[li], cpts[pi])

@@ -110,3 +110,28 @@ def test_least_single_pair_and_single_group():
     assert list(head) == [0] and list(tie) == [False]
     head, tie = _least(np.array([3, 3, 3]), np.array([4.0, 1.0, 1.0]))
     assert list(head) == [1] and list(tie) == [True]
+
+
+def test_box_query_in_blocks_finds_every_box_within_r(monkeypatch):
+    """Pairs whose bounding boxes come within r of each other, against a brute-force
+    comparison of ``shapely.bounds`` over every pair with numpy (the reference: shapely 2 and
+    numpy, general-purpose libraries); made a few boxes at a time, in the order one query
+    over all the boxes gives."""
+    import gridflow.topology.nearest as nearest
+
+    lines, xy, rng = _grid()
+    pts = shapely.points(xy[rng.integers(0, len(xy), 150)] + rng.normal(0, 20, (150, 2)))
+    tree = shapely.STRtree(lines)
+    r = 6.0
+    monkeypatch.setattr(nearest, "BLOCK", 7)  # 150 points: 22 blocks, the last one short
+    q, t = nearest.box_query(tree, pts, r)
+    a, b = shapely.bounds(pts), shapely.bounds(lines)
+    hit = ((a[:, None, 0] - r <= b[None, :, 2]) & (a[:, None, 2] + r >= b[None, :, 0])
+           & (a[:, None, 1] - r <= b[None, :, 3]) & (a[:, None, 3] + r >= b[None, :, 1]))
+    rq, rt = np.nonzero(hit)
+    # points near several mains and points near none: both cases are really there
+    assert np.bincount(rq).max() > 1 and len(np.unique(rq)) < len(pts)
+    assert sorted(zip(q.tolist(), t.tolist())) == sorted(zip(rq.tolist(), rt.tolist()))
+    assert (np.diff(q) >= 0).all()
+    q1, t1 = tree.query(nearest.widened_boxes(pts, r))
+    assert np.array_equal(q, q1) and np.array_equal(t, t1)
