@@ -261,12 +261,11 @@ def _device_events(ctx: Context, sn: Snapped, tree, glen):
         if pl is None:
             continue
         f, layer, fr, pts = ctx.findings, pl.layer, pl.frame, pl.pts
-        ids = pl.ids
         sd = ctx.search_distance(role)
         (pi, li, dist), full = _nearest(tree, sn.geoms, pts, sd)
         un = np.ones(len(fr), bool)
         un[pi] = False
-        f.add_many(f"{role[:-1]}_unattached", "warning", layer, ids[un],
+        f.add_many(f"{role[:-1]}_unattached", "warning", layer, _ids_at(fr, un),
                    [f"no main within {sd:g} m (nearest {x:.2f} m); {role[:-1]} left out"
                     for x in full[un]], pts[un])
         s = shapely.line_locate_point(sn.geoms[li], pts[pi])
@@ -277,15 +276,23 @@ def _device_events(ctx: Context, sn: Snapped, tree, glen):
         _, first = np.unique(key, return_index=True)
         dupe = np.ones(len(li), bool)
         dupe[first] = False
-        f.add_many(f"{role[:-1]}_stacked", "warning", layer, ids[pi[dupe]],
+        f.add_many(f"{role[:-1]}_stacked", "warning", layer, _ids_at(fr, pi[dupe]),
                    f"another {role[:-1]} already sits at this end of the main; left out",
                    pts[pi[dupe]])
         keep = pi[~dupe]
-        placed = PointLayer(role=role, frame=fr.iloc[keep].reset_index(drop=True),
-                            pts=pts[keep], layer=layer)
+        every = len(keep) == len(fr)  # every device placed (keep ascending): the frame as is
+        placed = PointLayer(role=role, frame=fr if every else
+                            fr.iloc[keep].reset_index(drop=True), pts=pts[keep], layer=layer)
         _direction_finding(ctx, placed)
         out.append((placed, li[~dupe], s[~dupe], end[~dupe]))
     return out
+
+
+def _ids_at(frame, where: np.ndarray) -> np.ndarray:
+    """The ids (first column) of a role frame's rows at ``where`` (positions or a mask),
+    made Python objects for those rows only."""
+    where = np.flatnonzero(where) if where.dtype == bool else where
+    return frame.iloc[where, 0].to_numpy(dtype=object)
 
 
 def _directional(pl: PointLayer) -> np.ndarray:
@@ -311,6 +318,8 @@ def _direction_finding(ctx: Context, pl: PointLayer) -> None:
 
 def _against(ctx: Context, pl: PointLayer, lines, s, length) -> np.ndarray:
     """True where a device acts against its main's digitised direction (code or bearing)."""
+    if "direction" not in pl.frame and "direction_deg" not in pl.frame:
+        return np.zeros(len(pl.frame), bool)  # nothing mapped: along every main
     code = column(pl.frame, "direction", object)
     out = code == "against"
     deg = column(pl.frame, "direction_deg")
