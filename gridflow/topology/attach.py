@@ -64,7 +64,8 @@ def attach_points(ctx: Context, sn: Snapped) -> Attached:
                                                             t_line, t_key, t_s)
     # split events gathered in parts (hydrants and T-junctions, rings, each device role),
     # joined once at the end
-    ev_line, ev_s, ev_xy, ev_up, ev_down = [ev_line], [ev_s], [ev_xy], [ev_key], [ev_key]
+    ev: dict[str, list] = {"line": [ev_line], "s": [ev_s], "xy": [ev_xy], "up": [ev_key],
+                           "down": [ev_key]}
     ring = np.flatnonzero(sn.lab_s == sn.lab_e)
     if len(ring):
         rs = glen[ring] / 2
@@ -73,7 +74,7 @@ def attach_points(ctx: Context, sn: Snapped) -> Attached:
         rk = keys.new(rxy, rpts)
         f.add_many("ring_split", "info", sn.layer, sn.ids[ring],
                    "main whose ends meet split in the middle", sn.geoms[ring])
-        _add(ev_line, ring, ev_s, rs, ev_xy, rxy, ev_up, rk, ev_down, rk)
+        _add(ev, line=ring, s=rs, xy=rxy, up=rk, down=rk)
     start_key, end_key = sn.lab_s.copy(), sn.lab_e.copy()
     devices = []
     for pl, li, s, end in _device_events(ctx, sn, tree, glen):
@@ -86,8 +87,8 @@ def attach_points(ctx: Context, sn: Snapped) -> Attached:
             k = keys.new(np.repeat(pxy[inner], 2, axis=0),
                          np.repeat(ppts[inner], 2)).reshape(-1, 2)
             up[inner], down[inner] = k[:, 0], k[:, 1]
-            _add(ev_line, li[inner], ev_s, s[inner], ev_xy, pxy[inner], ev_up, up[inner],
-                 ev_down, down[inner])
+            _add(ev, line=li[inner], s=s[inner], xy=pxy[inner], up=up[inner],
+                 down=down[inner])
         e0 = end == 0
         if e0.any():
             k = keys.new(sn.cxy[sn.lab_s[li[e0]]], keys.pts[0][sn.lab_s[li[e0]]])
@@ -100,9 +101,9 @@ def attach_points(ctx: Context, sn: Snapped) -> Attached:
             end_key[li[e1]] = k
         devices.append(Device(points=pl, line=li, up=up, down=down,
                               reversed=_against(ctx, pl, sn.geoms[li], s, glen[li]), xy=pxy))
-    ev_line, ev_s, ev_up, ev_down = (np.concatenate(a) for a in (ev_line, ev_s, ev_up,
-                                                                  ev_down))
-    ev_xy = np.concatenate([a.reshape(-1, 2) for a in ev_xy])
+    ev_line, ev_s, ev_up, ev_down = (np.concatenate(ev[k]) for k in ("line", "s", "up",
+                                                                     "down"))
+    ev_xy = np.concatenate([a.reshape(-1, 2) for a in ev["xy"]])
     order = by_line_and_distance(ev_line, ev_s)
     return Attached(key_xy=np.vstack(keys.xy), key_pts=np.concatenate(keys.pts),
                     n_clusters=len(sn.cxy),
@@ -130,10 +131,10 @@ def by_line_and_distance(line: np.ndarray, s: np.ndarray) -> np.ndarray:
     return np.argsort(key, kind="stable")
 
 
-def _add(*lists_and_parts) -> None:
-    """Append each part to the list before it: ``_add(la, a, lb, b, ...)``."""
-    for dest, part in zip(lists_and_parts[::2], lists_and_parts[1::2]):
-        dest.append(part)
+def _add(ev: dict[str, list], **parts) -> None:
+    """Append each part of a group of split events to its column's list of parts."""
+    for name, part in parts.items():
+        ev[name].append(part)
 
 
 def t_events(ctx: Context, sn: Snapped, tree, glen: np.ndarray):
