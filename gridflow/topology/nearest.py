@@ -115,6 +115,7 @@ def _least(q: np.ndarray, d: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     The tree's pairs come grouped by query geometry in ascending order; one pass of
     ``minimum.reduceat`` finds each least distance (a sort of the pairs by ``(q, d)`` would
     cost several times more at a million pairs). Pairs not so ordered are put in order first.
+    Distances are numbers (the pairs within a radius: no NaN).
     """
     if q.size > 1 and (q[1:] < q[:-1]).any():  # not grouped: order them (stable)
         o = np.argsort(q, kind="stable")

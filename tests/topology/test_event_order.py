@@ -25,3 +25,11 @@ def test_same_order_as_lexsort_ties_included():
 
 def test_no_events():
     assert by_line_and_distance(np.zeros(0, np.int64), np.zeros(0)).size == 0
+
+
+def test_missing_distances_last_on_their_main():
+    rng = np.random.default_rng(6)
+    line = rng.integers(0, 50, 2_000)
+    s = rng.uniform(0, 100, 2_000)
+    s[rng.random(2_000) < 0.1] = np.nan
+    np.testing.assert_array_equal(by_line_and_distance(line, s), np.lexsort((s, line)))
