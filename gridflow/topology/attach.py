@@ -25,8 +25,8 @@ import numpy as np
 import shapely
 
 from gridflow.topology.idtext import joined, two_decimals
-from gridflow.topology.nearest import nearest_lines, widened_boxes
-from gridflow.topology.points import column, point_layer
+from gridflow.topology.nearest import box_query, nearest_lines
+from gridflow.topology.points import column, point_layer, text_in
 from gridflow.topology.records import Attached, Context, Device, PointLayer, Snapped
 
 __all__ = ["attach_points"]
@@ -62,7 +62,10 @@ def attach_points(ctx: Context, sn: Snapped) -> Attached:
     hyd = point_layer(ctx, "hydrants")
     hyd_key, ev_line, ev_key, ev_s, ev_xy = _hydrant_events(ctx, sn, tree, glen, keys, hyd,
                                                             t_line, t_key, t_s)
-    ev_up, ev_down = ev_key.copy(), ev_key.copy()
+    # split events gathered in parts (hydrants and T-junctions, rings, each device role),
+    # joined once at the end
+    ev: dict[str, list] = {"line": [ev_line], "s": [ev_s], "xy": [ev_xy], "up": [ev_key],
+                           "down": [ev_key]}
     ring = np.flatnonzero(sn.lab_s == sn.lab_e)
     if len(ring):
         rs = glen[ring] / 2
@@ -71,9 +74,7 @@ def attach_points(ctx: Context, sn: Snapped) -> Attached:
         rk = keys.new(rxy, rpts)
         f.add_many("ring_split", "info", sn.layer, sn.ids[ring],
                    "main whose ends meet split in the middle", sn.geoms[ring])
-        ev_line, ev_s = np.r_[ev_line, ring], np.r_[ev_s, rs]
-        ev_xy = np.vstack([ev_xy, rxy])
-        ev_up, ev_down = np.r_[ev_up, rk], np.r_[ev_down, rk]
+        _add(ev, line=ring, s=rs, xy=rxy, up=rk, down=rk)
     start_key, end_key = sn.lab_s.copy(), sn.lab_e.copy()
     devices = []
     for pl, li, s, end in _device_events(ctx, sn, tree, glen):
@@ -86,9 +87,8 @@ def attach_points(ctx: Context, sn: Snapped) -> Attached:
             k = keys.new(np.repeat(pxy[inner], 2, axis=0),
                          np.repeat(ppts[inner], 2)).reshape(-1, 2)
             up[inner], down[inner] = k[:, 0], k[:, 1]
-            ev_line, ev_s = np.r_[ev_line, li[inner]], np.r_[ev_s, s[inner]]
-            ev_xy = np.vstack([ev_xy, pxy[inner]])
-            ev_up, ev_down = np.r_[ev_up, up[inner]], np.r_[ev_down, down[inner]]
+            _add(ev, line=li[inner], s=s[inner], xy=pxy[inner], up=up[inner],
+                 down=down[inner])
         e0 = end == 0
         if e0.any():
             k = keys.new(sn.cxy[sn.lab_s[li[e0]]], keys.pts[0][sn.lab_s[li[e0]]])
@@ -101,7 +101,10 @@ def attach_points(ctx: Context, sn: Snapped) -> Attached:
             end_key[li[e1]] = k
         devices.append(Device(points=pl, line=li, up=up, down=down,
                               reversed=_against(ctx, pl, sn.geoms[li], s, glen[li]), xy=pxy))
-    order = np.lexsort((ev_s, ev_line))
+    ev_line, ev_s, ev_up, ev_down = (np.concatenate(ev[k]) for k in ("line", "s", "up",
+                                                                     "down"))
+    ev_xy = np.concatenate([a.reshape(-1, 2) for a in ev["xy"]])
+    order = by_line_and_distance(ev_line, ev_s)
     return Attached(key_xy=np.vstack(keys.xy), key_pts=np.concatenate(keys.pts),
                     n_clusters=len(sn.cxy),
                     ev_line=ev_line[order].astype(np.int64), ev_s=ev_s[order],
@@ -109,6 +112,32 @@ def attach_points(ctx: Context, sn: Snapped) -> Attached:
                     ev_down=ev_down[order].astype(np.int64), start_key=start_key,
                     end_key=end_key, hydrants=hyd, hyd_key=hyd_key, devices=tuple(devices),
                     cluster_pts=sn.cluster_pts)
+
+
+def by_line_and_distance(line: np.ndarray, s: np.ndarray) -> np.ndarray:
+    """The order of events by line, then by distance along it, ties in their given order:
+    ``np.lexsort((s, line))``.
+
+    Notes
+    -----
+    One stable sort of a complex key (line in the real part, exact below 2**53, distance in
+    the imaginary part): numpy orders complex numbers by real part, then imaginary part, so
+    this is the same order, in about three quarters of the time of lexsort's two passes at a
+    million events. numpy puts a complex number with a NaN part after all others, not after
+    the others of its line: where a distance is missing (NaN), lexsort itself is used.
+    """
+    if np.isnan(s).any():
+        return np.lexsort((s, line))
+    key = np.empty(len(line), dtype=np.complex128)
+    key.real = line
+    key.imag = s
+    return np.argsort(key, kind="stable")
+
+
+def _add(ev: dict[str, list], **parts) -> None:
+    """Append each part of a group of split events to its column's list of parts."""
+    for name, part in parts.items():
+        ev[name].append(part)
 
 
 def t_events(ctx: Context, sn: Snapped, tree, glen: np.ndarray):
@@ -121,7 +150,7 @@ def t_events(ctx: Context, sn: Snapped, tree, glen: np.ndarray):
         return none
     # the mains whose boxes come within the tolerance, less each end's own mains, measured
     # once: the pairs ``query(predicate="dwithin")`` gives, in the same order
-    pi, li = tree.query(widened_boxes(cpts, tol))
+    pi, li = box_query(tree, cpts, tol)
     own = (sn.lab_s[li] == pi) | (sn.lab_e[li] == pi)
     pi, li = pi[~own], li[~own]
     d = shapely.distance(sn.geoms[li], cpts[pi])
@@ -253,12 +282,11 @@ def _device_events(ctx: Context, sn: Snapped, tree, glen):
         if pl is None:
             continue
         f, layer, fr, pts = ctx.findings, pl.layer, pl.frame, pl.pts
-        ids = pl.ids
         sd = ctx.search_distance(role)
         (pi, li, dist), full = _nearest(tree, sn.geoms, pts, sd)
         un = np.ones(len(fr), bool)
         un[pi] = False
-        f.add_many(f"{role[:-1]}_unattached", "warning", layer, ids[un],
+        f.add_many(f"{role[:-1]}_unattached", "warning", layer, _ids_at(fr, un),
                    [f"no main within {sd:g} m (nearest {x:.2f} m); {role[:-1]} left out"
                     for x in full[un]], pts[un])
         s = shapely.line_locate_point(sn.geoms[li], pts[pi])
@@ -269,22 +297,30 @@ def _device_events(ctx: Context, sn: Snapped, tree, glen):
         _, first = np.unique(key, return_index=True)
         dupe = np.ones(len(li), bool)
         dupe[first] = False
-        f.add_many(f"{role[:-1]}_stacked", "warning", layer, ids[pi[dupe]],
+        f.add_many(f"{role[:-1]}_stacked", "warning", layer, _ids_at(fr, pi[dupe]),
                    f"another {role[:-1]} already sits at this end of the main; left out",
                    pts[pi[dupe]])
         keep = pi[~dupe]
-        placed = PointLayer(role=role, frame=fr.iloc[keep].reset_index(drop=True),
-                            pts=pts[keep], layer=layer)
+        every = len(keep) == len(fr)  # every device placed (keep ascending): the frame as is
+        placed = PointLayer(role=role, frame=fr if every else
+                            fr.iloc[keep].reset_index(drop=True), pts=pts[keep], layer=layer)
         _direction_finding(ctx, placed)
         out.append((placed, li[~dupe], s[~dupe], end[~dupe]))
     return out
+
+
+def _ids_at(frame, where: np.ndarray) -> np.ndarray:
+    """The ids (first column) of a role frame's rows at ``where`` (positions or a mask),
+    made Python objects for those rows only."""
+    where = np.flatnonzero(where) if where.dtype == bool else where
+    return frame.iloc[where, 0].to_numpy(dtype=object)
 
 
 def _directional(pl: PointLayer) -> np.ndarray:
     """True for devices that act in a direction: pumps, PRVs, check valves."""
     if pl.role == "pumps":
         return np.ones(len(pl.frame), bool)
-    return np.isin(column(pl.frame, "type", object).astype(str), ["prv", "check"])
+    return text_in(pl.frame, "type", ("prv", "check"))
 
 
 def _direction_finding(ctx: Context, pl: PointLayer) -> None:
@@ -303,6 +339,8 @@ def _direction_finding(ctx: Context, pl: PointLayer) -> None:
 
 def _against(ctx: Context, pl: PointLayer, lines, s, length) -> np.ndarray:
     """True where a device acts against its main's digitised direction (code or bearing)."""
+    if "direction" not in pl.frame and "direction_deg" not in pl.frame:
+        return np.zeros(len(pl.frame), bool)  # nothing mapped: along every main
     code = column(pl.frame, "direction", object)
     out = code == "against"
     deg = column(pl.frame, "direction_deg")

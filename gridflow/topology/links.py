@@ -78,7 +78,9 @@ def link_table(ctx: Context, sn: Snapped, at: Attached, sp: Split, nt: NodeTable
         ids.append(dev_ids)
         for k, v in dev_cols.items():
             cols[k].append(v)
-    c = {k: np.concatenate(v) for k, v in cols.items()}
+    # each column joined, and its parts let go before the next is made (their memory is
+    # used again instead of fresh pages for every column)
+    c = {k: np.concatenate(cols.pop(k)) for k in list(cols)}
     text = arrow.concat_arrays(ids)
     c["link_id"] = text.to_numpy(zero_copy_only=False)
     if all_distinct(c["link_id"]):  # the usual case: one hash pass, every id a str

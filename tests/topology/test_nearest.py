@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 import shapely
 
-from gridflow.topology.nearest import nearest_lines
+from gridflow.topology.nearest import _least, nearest_lines
 
 
 def _grid(seed: int = 3):
@@ -78,3 +78,60 @@ def test_missing_and_empty_points_get_no_line():
     assert list(p) == list(q) == [0, 3]
     assert list(t) == list(tt)
     np.testing.assert_array_equal(d, dd)
+
+
+@pytest.mark.parametrize("grouped", [True, False])
+def test_least_per_group_as_a_sort_finds_it(grouped):
+    """Each group's least distance and its ties, against numpy's ``lexsort`` by (group,
+    distance): the first row of each group after the sort, a tie where the next row of the
+    same group has the same distance (the reference: numpy, a general-purpose library)."""
+    rng = np.random.default_rng(11)
+    q = np.sort(rng.integers(0, 4000, 20000))
+    d = np.round(rng.uniform(0, 5, q.size), 1)  # coarse values: many ties inside groups
+    if not grouped:
+        o = rng.permutation(q.size)
+        q, d = q[o], d[o]
+    head, tie = _least(q, d)
+    o = np.lexsort((d, q))
+    sq, sd = q[o], d[o]
+    first = np.flatnonzero(np.r_[True, sq[1:] != sq[:-1]])
+    nxt = np.minimum(first + 1, sq.size - 1)
+    ref_tie = (nxt != first) & (sq[nxt] == sq[first]) & (sd[nxt] == sd[first])
+    assert tie.any() and (~tie).any()  # both cases are really there
+    np.testing.assert_array_equal(tie, ref_tie)
+    np.testing.assert_array_equal(q[head], sq[first])
+    np.testing.assert_array_equal(d[head], sd[first])
+    # where several share the least distance, the first of them in the input's order
+    np.testing.assert_array_equal(head, o[first])
+
+
+def test_least_single_pair_and_single_group():
+    head, tie = _least(np.array([7]), np.array([2.5]))
+    assert list(head) == [0] and list(tie) == [False]
+    head, tie = _least(np.array([3, 3, 3]), np.array([4.0, 1.0, 1.0]))
+    assert list(head) == [1] and list(tie) == [True]
+
+
+def test_box_query_in_blocks_finds_every_box_within_r(monkeypatch):
+    """Pairs whose bounding boxes come within r of each other, against a brute-force
+    comparison of ``shapely.bounds`` over every pair with numpy (the reference: shapely 2 and
+    numpy, general-purpose libraries); made a few boxes at a time, in the order one query
+    over all the boxes gives."""
+    import gridflow.topology.nearest as nearest
+
+    lines, xy, rng = _grid()
+    pts = shapely.points(xy[rng.integers(0, len(xy), 150)] + rng.normal(0, 20, (150, 2)))
+    tree = shapely.STRtree(lines)
+    r = 6.0
+    monkeypatch.setattr(nearest, "BLOCK", 7)  # 150 points: 22 blocks, the last one short
+    q, t = nearest.box_query(tree, pts, r)
+    a, b = shapely.bounds(pts), shapely.bounds(lines)
+    hit = ((a[:, None, 0] - r <= b[None, :, 2]) & (a[:, None, 2] + r >= b[None, :, 0])
+           & (a[:, None, 1] - r <= b[None, :, 3]) & (a[:, None, 3] + r >= b[None, :, 1]))
+    rq, rt = np.nonzero(hit)
+    # points near several mains and points near none: both cases are really there
+    assert np.bincount(rq).max() > 1 and len(np.unique(rq)) < len(pts)
+    assert sorted(zip(q.tolist(), t.tolist())) == sorted(zip(rq.tolist(), rt.tolist()))
+    assert (np.diff(q) >= 0).all()
+    q1, t1 = tree.query(nearest.widened_boxes(pts, r))
+    assert np.array_equal(q, q1) and np.array_equal(t, t1)

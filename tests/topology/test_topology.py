@@ -152,6 +152,26 @@ def test_closed_valve_splits_two_zones(tmp_path):
     assert "cut off from every source and tank by closed valves" in un[0][1]
 
 
+def test_valves_unattached_and_stacked_named_by_their_ids(tmp_path):
+    # V2 lies 40 m off every main (the search distance is 5 m here); V3 and V4 both sit
+    # within the 0.5 m tolerance of B's first end: one device per main end, the first kept
+    g = _line_with_valves(tmp_path, [
+        {"VALVE_ID": "V1", "TYPE": "GV", "STAT": "O", "SET": None, "geometry": P(50, 1)},
+        {"VALVE_ID": "V2", "TYPE": "GV", "STAT": "O", "SET": None, "geometry": P(150, 40)},
+        {"VALVE_ID": "V3", "TYPE": "GV", "STAT": "O", "SET": None, "geometry": P(100.2, 0)},
+        {"VALVE_ID": "V4", "TYPE": "GV", "STAT": "O", "SET": None, "geometry": P(100.3, 0)}])
+    cfg = config(tmp_path, g, layers={"sources": source_layer(),
+                                      "valves": {**VALVES, "search_distance": "5 m"}})
+    f = Findings()
+    cn = build_network(cfg, f)
+    assert _by_kind(f, "valve_unattached") == [
+        ("V2", "no main within 5 m (nearest 40.00 m); valve left out")]
+    assert _by_kind(f, "valve_stacked") == [
+        ("V4", "another valve already sits at this end of the main; left out")]
+    ids = list(cn.network.link_id)
+    assert "V1" in ids and "V3" in ids and "V2" not in ids and "V4" not in ids
+
+
 def test_zone_names_from_zone_field_majority(tmp_path):
     g = _line_with_valves(tmp_path, [
         {"VALVE_ID": "V1", "TYPE": "PRV", "STAT": "O", "SET": 50.0, "geometry": P(100, 0.2)}])
