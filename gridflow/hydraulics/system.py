@@ -86,7 +86,8 @@ class HydraulicSystem:
     options : SolveOptions, optional
     share : HydraulicSystem, optional
         A system of a network with the same links between the same nodes (another scenario):
-        its sparsity pattern, ordering and symbolic factorization are reused.
+        its sparsity pattern, ordering and symbolic factorization are reused, and its
+        connected components (kept per set of conducting links).
 
     Examples
     --------
@@ -107,12 +108,15 @@ class HydraulicSystem:
         self.fr = net.from_idx
         self.to = net.to_idx
         self.pattern: FixedPatternSPD
+        self.components: Components
         if share is not None and share.shares_pattern_with(net, self.opt):
             self.pattern = share.pattern
+            # the same links between the same nodes: connected components by link set too
+            self.components = share.components
         else:
             self.pattern = FixedPatternSPD(self.nn, self.fr, self.to, backend=self.opt.backend)
+            self.components = Components(self.nn, self.fr, self.to)
         self.laws = LinkLaws(net)
-        self.components = Components(self.nn, self.fr, self.to)
 
     def shares_pattern_with(self, net: Network, options: SolveOptions) -> bool:
         """True if ``net`` has this system's sparsity pattern (scenarios of one network)."""

@@ -98,11 +98,15 @@ def _grid_min_sorted(key: np.ndarray, v: np.ndarray, x0: float, y0: float, size:
 
 
 def extent(xy: np.ndarray) -> tuple[float, float, float, float]:
-    ok = np.isfinite(xy).all(axis=1)
-    if not ok.any():
-        return (0.0, 0.0, 1.0, 1.0)
-    lo, hi = xy[ok].min(axis=0), xy[ok].max(axis=0)
-    return (float(lo[0]), float(lo[1]), float(hi[0]), float(hi[1]))
+    """``(xmin, ymin, xmax, ymax)`` of the points with both coordinates finite; the unit square
+    if there are none. One pass per coordinate column, no copy where all are finite."""
+    x, y = xy[:, 0], xy[:, 1]
+    ok = np.isfinite(x) & np.isfinite(y)
+    if not ok.all() or not len(ok):
+        if not ok.any():
+            return (0.0, 0.0, 1.0, 1.0)
+        x, y = x[ok], y[ok]
+    return (float(x.min()), float(y.min()), float(x.max()), float(y.max()))
 
 
 def raster_lines(a: np.ndarray, b: np.ndarray, ext: tuple[float, float, float, float],

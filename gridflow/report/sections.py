@@ -22,8 +22,8 @@ from gridflow.network import LINK_KINDS, LINK_PIPE, NODE_KINDS
 from gridflow.report.data import NODE_FLAGS, PIPE_FLAGS, ReportData
 
 __all__ = ["UNNAMED_ZONE", "display_zones", "zone_codes", "overview", "scenario_summary",
-           "flags_by_zone", "fire_by_zone", "worst_nodes", "fastest_mains", "failing_hydrants", "unsupplied",
-           "findings_counts", "routine_counts", "changes_counts", "criteria_table"]
+           "flags_by_zone", "fire_by_zone", "worst_nodes", "fastest_mains", "failing_hydrants",
+           "unsupplied", "findings_counts", "routine_counts", "changes_counts", "criteria_table"]
 
 UNNAMED_ZONE = "(parts without a zone name)"
 _AUTO_ZONE = re.compile(r"zone_\d+")
