@@ -227,7 +227,8 @@ def _write_batched(pyogrio, tmp: str, name: str, attrs, geometry, crs, geometry_
     import numpy as np
     import pandas as pd
     import pyarrow as pa
-    import shapely
+
+    from gridflow.io.wkb import wkb_array
 
     if isinstance(attrs, pa.Table):
         table = attrs.combine_chunks()
@@ -244,8 +245,7 @@ def _write_batched(pyogrio, tmp: str, name: str, attrs, geometry, crs, geometry_
     def batches():
         for a in range(0, n, BATCH_ROWS):
             b = min(a + BATCH_ROWS, n)
-            wkb = pa.array(shapely.to_wkb(np.asarray(geometry[a:b], dtype=object)),
-                           type=pa.binary())
+            wkb = wkb_array(np.asarray(geometry[a:b], dtype=object))
             done = 0
             for batch in table.slice(a, b - a).to_batches():
                 cols = list(batch.columns)
