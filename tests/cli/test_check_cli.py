@@ -106,10 +106,10 @@ def test_failed_write_leaves_previous_output(tmp_path, monkeypatch):
     before = out.read_bytes()
     real = w._write_layer
 
-    def fail_on_second(pyogrio_, tmp, name, df):
+    def fail_on_second(pyogrio_, tmp, name, df, *rest):
         if name == "two":
             raise RuntimeError("disk full")
-        real(pyogrio_, tmp, name, df)
+        real(pyogrio_, tmp, name, df, *rest)
 
     monkeypatch.setattr(w, "_write_layer", fail_on_second)
     with pytest.raises(RuntimeError, match="disk full"):

@@ -220,10 +220,10 @@ def test_file_is_synced_before_it_is_renamed_into_place(tmp_path, monkeypatch):
 
     real = w._write_layer
 
-    def fail_on_third(pyogrio_, tmp, name, layer):
+    def fail_on_third(pyogrio_, tmp, name, layer, *rest):
         if name == "findings":
             raise OSError(28, "No space left on device (injected)")
-        return real(pyogrio_, tmp, name, layer)
+        return real(pyogrio_, tmp, name, layer, *rest)
 
     monkeypatch.setattr(w, "_write_layer", fail_on_third)
     events.clear()
