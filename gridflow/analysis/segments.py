@@ -236,42 +236,50 @@ def immediate_dominators(n: int, a: np.ndarray, b: np.ndarray, root: int) -> np.
 def _descendants(idom: np.ndarray, n: int) -> tuple[np.ndarray, np.ndarray]:
     """Descendants of every vertex of the dominator tree (root ``n``), as CSR lists.
 
-    An iterative depth-first walk gives each vertex an entry time; a vertex's descendants are
-    then the contiguous run of the walk after it, as long as its subtree.
+    An iterative depth-first walk (on Python lists: one step per vertex) gives each vertex an
+    entry time and its subtree's size; a vertex's descendants are then the contiguous run of
+    the walk after it, as long as its subtree. Each run is put in ascending order by one sort
+    of all runs at once (keyed by owner, then segment).
     """
     sup = np.flatnonzero(idom >= 0)
     parent = idom[sup]
     kids_ptr, kids = _csr_groups(np.where(parent == n, n, parent), sup, n + 1)
-    walk = np.empty(sup.size, dtype=np.int64)
-    size = np.zeros(n + 1, dtype=np.int64)
+    ptr_l, kids_l, idom_l = kids_ptr.tolist(), kids.tolist(), idom.tolist()
+    walk_l: list[int] = []
+    size = [0] * (n + 1)
     stack = [n]
-    k = 0
+    visited = [False] * (n + 1)
     post: list[int] = []
-    visited = np.zeros(n + 1, dtype=bool)
     while stack:
         u = stack[-1]
         if not visited[u]:
             visited[u] = True
             if u != n:
-                walk[k] = u
-                k += 1
-            stack.extend(kids[kids_ptr[u]:kids_ptr[u + 1]][::-1].tolist())
+                walk_l.append(u)
+            stack.extend(reversed(kids_l[ptr_l[u]:ptr_l[u + 1]]))
         else:
             stack.pop()
             post.append(u)
     for u in post:  # children before parents
         if u != n:
             size[u] += 1
-            size[idom[u]] += size[u]
+            size[idom_l[u]] += size[u]
+    walk = np.asarray(walk_l, dtype=np.int64)
     pos = np.full(n, -1, dtype=np.int64)
     pos[walk] = np.arange(walk.size)
     cut_ptr = np.zeros(n + 1, dtype=np.int64)
-    counts = np.where(pos >= 0, size[:n] - 1, 0)
+    counts = np.where(pos >= 0, np.asarray(size[:n], dtype=np.int64) - 1, 0)
     np.cumsum(counts, out=cut_ptr[1:])
-    cut_idx = np.empty(int(cut_ptr[-1]), dtype=np.int64)
-    for s in np.flatnonzero(counts):
-        start = pos[s] + 1
-        cut_idx[cut_ptr[s]:cut_ptr[s + 1]] = np.sort(walk[start:start + counts[s]])
+    total = int(cut_ptr[-1])
+    if total == 0:
+        return cut_ptr, np.empty(0, dtype=np.int64)
+    owners = np.flatnonzero(counts)
+    lens = counts[owners]
+    # position in the walk of every listed descendant: the run after each owner's entry
+    at = np.repeat(pos[owners] + 1 - cut_ptr[owners], lens) + np.arange(total)
+    members = walk[at]
+    owner = np.repeat(owners, lens)
+    cut_idx = members[np.argsort(owner * np.int64(n) + members, kind="stable")]
     return cut_ptr, cut_idx
 
 

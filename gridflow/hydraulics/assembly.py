@@ -26,18 +26,23 @@ __all__ = ["head_matrix", "Residuals", "residuals", "net_outflow", "checked_sets
 
 def head_matrix(pattern: FixedPatternSPD, fr: np.ndarray, to: np.ndarray, w: np.ndarray,
                 known: np.ndarray, diag_extra: np.ndarray | None = None,
-                out: np.ndarray | None = None) -> np.ndarray:
+                out: np.ndarray | None = None,
+                free_ends: tuple[np.ndarray, np.ndarray] | None = None) -> np.ndarray:
     """Values of the head matrix on ``pattern`` for link weights ``w`` (zero on links that do
     not conduct) with identity rows at ``known`` nodes; ``diag_extra`` is added to the
-    diagonal of the other rows (pressure-driven demand)."""
+    diagonal of the other rows (pressure-driven demand). ``free_ends``: ``(~known)[fr]`` and
+    ``(~known)[to]`` if already known (iterations with the same known nodes)."""
     nn = pattern.n
-    free = ~known
-    wf = w * free[fr]
-    wt = w * free[to]
+    if free_ends is None:
+        free = ~known
+        free_ends = (free[fr], free[to])
+    free_fr, free_to = free_ends
+    wf = w * free_fr
+    wt = w * free_to
     diag = np.bincount(fr, weights=wf, minlength=nn) + np.bincount(to, weights=wt, minlength=nn)
     if diag_extra is not None:
         diag += diag_extra
-    off = -(wf * free[to])
+    off = -(wf * free_to)
     if pattern.unique_off:
         data = np.zeros(pattern.nnz) if out is None else out
         data[pattern.off_pos] = off

@@ -86,7 +86,8 @@ class HydraulicSystem:
     options : SolveOptions, optional
     share : HydraulicSystem, optional
         A system of a network with the same links between the same nodes (another scenario):
-        its sparsity pattern, ordering and symbolic factorization are reused.
+        its sparsity pattern, ordering and symbolic factorization are reused, and its
+        connected components (kept per set of conducting links).
 
     Examples
     --------
@@ -107,12 +108,15 @@ class HydraulicSystem:
         self.fr = net.from_idx
         self.to = net.to_idx
         self.pattern: FixedPatternSPD
+        self.components: Components
         if share is not None and share.shares_pattern_with(net, self.opt):
             self.pattern = share.pattern
+            # the same links between the same nodes: connected components by link set too
+            self.components = share.components
         else:
             self.pattern = FixedPatternSPD(self.nn, self.fr, self.to, backend=self.opt.backend)
+            self.components = Components(self.nn, self.fr, self.to)
         self.laws = LinkLaws(net)
-        self.components = Components(self.nn, self.fr, self.to)
 
     def shares_pattern_with(self, net: Network, options: SolveOptions) -> bool:
         """True if ``net`` has this system's sparsity pattern (scenarios of one network)."""
@@ -173,9 +177,13 @@ class HydraulicSystem:
                          to=self.to, free=free, conducting=conducting,
                          delivered=result.demand_m3s)
 
-    def mass_tolerance(self, q: np.ndarray, demand: np.ndarray) -> float:
-        """``max(flow_tolerance, mass_relative_tolerance * F)``."""
-        scale = max(float(np.max(np.abs(q), initial=0.0)), float(np.sum(np.abs(demand))))
+    def mass_tolerance(self, q: np.ndarray, demand: np.ndarray, *,
+                       demand_total: float | None = None) -> float:
+        """``max(flow_tolerance, mass_relative_tolerance * F)`` (``demand_total``: the sum of
+        ``|demand|`` if already known)."""
+        if demand_total is None:
+            demand_total = float(np.sum(np.abs(demand)))
+        scale = max(float(np.max(np.abs(q), initial=0.0)), demand_total)
         return max(self.opt.flow_tolerance, self.opt.mass_relative_tolerance * scale)
 
     def shut_zones(self, result: HydraulicResult) -> list[ShutZone]:
@@ -343,6 +351,11 @@ class HydraulicSystem:
         any_reg = bool(regulating.any())
         free_chk = free.copy()
         data = np.zeros(pat.nnz)
+        # what stays the same through these iterations: the ends' freedom, the total demand,
+        # and (demand-driven) the demand delivered
+        free_ends = (free[fr], free[to])
+        demand_total = float(np.sum(np.abs(demand)))
+        fixed_delivered = None if pdd else self.delivered(h, demand, supplied)
         status = "running"
         it = 0
         for it in range(1, max_iter + 1):
@@ -360,7 +373,7 @@ class HydraulicSystem:
                 m = net_outflow(cond_f * q, fr, to, nn, demand)
             rhs = (np.bincount(fr, weights=we, minlength=nn)
                    - np.bincount(to, weights=we, minlength=nn) - m)
-            data = head_matrix(pat, fr, to, w, known, extra, out=data)
+            data = head_matrix(pat, fr, to, w, known, extra, out=data, free_ends=free_ends)
             rhs = np.where(known, 0.0, rhs)
             pat.factor(data)
             dh = pat.solve(rhs)
@@ -379,10 +392,11 @@ class HydraulicSystem:
                                                w)
             h, q = h_new, q_new
             hl, g = laws.headloss(q)  # reused by the next iteration's assembly
-            delivered = self.delivered(h, demand, supplied)
+            delivered = (fixed_delivered if fixed_delivered is not None
+                         else self.delivered(h, demand, supplied))
             res = residuals(laws.headloss, q, h, fr=fr, to=to, free=free_chk,
                             conducting=conducting, delivered=delivered, hl=hl)
-            mtol = self.mass_tolerance(q, demand)
+            mtol = self.mass_tolerance(q, demand, demand_total=demand_total)
             if res.max_mass <= mtol and res.max_error <= opt.head_tolerance and it > 1:
                 status = "converged"
                 break

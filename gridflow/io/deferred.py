@@ -65,13 +65,19 @@ class DeferredLayer:
     geometry_type : str
         The layer's geometry type as ``pyogrio`` names it (with ``geometry``), e.g.
         ``"MultiLineString Z"``; ``"Unknown"`` where rows have several types or none.
+    parts : callable, optional
+        No arguments; returns ``(fields, geometry, geometry_type)``: the layer's fields as a
+        ``pyarrow.Table`` typed as the built frame's fields convert to Arrow (text, numbers),
+        its geometry by rows (the column after the fields) and the type as above. Called
+        once per write, in place of ``build``, by writers that take a layer in parts
+        (:func:`gridflow.io.write.write_layers`): the same file, without the frame.
     """
 
-    __slots__ = ("_build", "rows", "attributes", "geometry", "crs", "geometry_type")
+    __slots__ = ("_build", "rows", "attributes", "geometry", "crs", "geometry_type", "parts")
 
     def __init__(self, build: Callable[[], object], rows: int, attributes=None, *,
-                 geometry=None, crs=None,
-                 geometry_type: str = "Unknown") -> None:
+                 geometry=None, crs=None, geometry_type: str = "Unknown",
+                 parts: Callable[[], tuple] | None = None) -> None:
         if geometry is not None and attributes is None:
             raise ValueError("a DeferredLayer with a geometry function needs its attributes")
         self._build = build
@@ -80,6 +86,7 @@ class DeferredLayer:
         self.geometry = geometry
         self.crs = crs
         self.geometry_type = geometry_type
+        self.parts = parts
 
     def build(self):
         """The layer's frame, built now."""

@@ -32,7 +32,7 @@ from pathlib import Path
 from gridflow.io.atomic import atomic_write, remove_stale_temporaries
 
 __all__ = ["write_geopackage", "write_layers", "remove_stale_temporaries", "gdal_config",
-           "GPKG_WRITE_OPTIONS", "BATCH_ROWS"]
+           "GPKG_WRITE_OPTIONS", "BATCH_ROWS", "layer_geometry_type"]
 
 log = logging.getLogger("gridflow")
 
@@ -150,6 +150,11 @@ def _write_layer(pyogrio, tmp: str, name: str, layer, packed: bool = False) -> N
         _write_batched(pyogrio, tmp, name, layer.attributes, layer.geometry, layer.crs,
                        layer.geometry_type, packed=packed)
         return
+    if isinstance(layer, DeferredLayer) and layer.parts is not None and layer.rows > 0:
+        fields, geometry, geometry_type = layer.parts()
+        _write_batched(pyogrio, tmp, name, fields, geometry, layer.crs, geometry_type,
+                       packed=packed)
+        return
     df = materialize(layer)
     if isinstance(df, gpd.GeoDataFrame) and df.geometry.name in df:
         geoms = df.geometry.values
@@ -196,6 +201,11 @@ def _geometry_type(geoms) -> str:
     return f"{name} Z" if bool(shapely.has_z(data[ok]).any()) else name
 
 
+def layer_geometry_type(geoms) -> str:
+    """The geometry type a layer of ``geoms`` is written with (see :func:`_geometry_type`)."""
+    return _geometry_type(geoms)
+
+
 def _simple_columns(attrs) -> bool:
     """True when every column goes to Arrow the same way ``write_dataframe`` takes it:
     numbers, booleans, text (object columns of strings); else (dates, mixed objects, all
@@ -217,8 +227,8 @@ def _simple_columns(attrs) -> bool:
 def _write_batched(pyogrio, tmp: str, name: str, attrs, geometry, crs, geometry_type: str, *,
                    position: int | None = None, geometry_name: str = "geometry",
                    packed: bool = False) -> None:
-    """One layer (at least one row) from its attributes and its geometry by rows
-    (``geometry[start:stop]``), as a stream of batches.
+    """One layer (at least one row) from its attributes (a DataFrame, or a ``pyarrow.Table``
+    of them) and its geometry by rows (``geometry[start:stop]``), as a stream of batches.
 
     The attributes become one Arrow table (numbers without a copy); each batch adds its rows'
     geometry as WKB, made when GDAL asks for the batch. ``position`` is the geometry column's
@@ -229,7 +239,12 @@ def _write_batched(pyogrio, tmp: str, name: str, attrs, geometry, crs, geometry_
     import pyarrow as pa
     import shapely
 
-    table = pa.Table.from_pandas(pd.DataFrame(attrs), preserve_index=False).combine_chunks()
+    from gridflow.io.wkb import wkb_array
+
+    if isinstance(attrs, pa.Table):
+        table = attrs.combine_chunks()
+    else:
+        table = pa.Table.from_pandas(pd.DataFrame(attrs), preserve_index=False).combine_chunks()
     for i, field in enumerate(table.schema):  # as write_dataframe: GDAL takes no null type
         if pa.types.is_null(field.type):
             table = table.set_column(i, field.with_type(pa.string()),
@@ -246,7 +261,7 @@ def _write_batched(pyogrio, tmp: str, name: str, attrs, geometry, crs, geometry_
         for a in range(0, n, BATCH_ROWS):
             b = min(a + BATCH_ROWS, n)
             part = np.asarray(geometry[a:b], dtype=object)
-            wkb = pa.array(shapely.to_wkb(part), type=pa.binary())
+            wkb = wkb_array(part)
             if boxes is not None:
                 boxes.add(shapely.bounds(part))  # NaN where missing or empty
             done = 0

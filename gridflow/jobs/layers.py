@@ -16,7 +16,8 @@ from gridflow.hydraulics import LINK_STATE_NAMES, HydraulicResult
 from gridflow.network import LINK_KINDS, NODE_KINDS, Network
 from gridflow.units import FT, UnitSystem, out_field
 
-__all__ = ["nodes_layer", "pipes_layer", "hydrants_layer", "field_name", "roughness_out",
+__all__ = ["nodes_layer", "pipes_layer", "nodes_columns", "pipes_columns", "columns_table",
+           "layer_parts", "hydrants_layer", "field_name", "roughness_out",
            "forget_text_columns"]
 
 
@@ -51,6 +52,53 @@ def _text(values: np.ndarray, take: np.ndarray | None = None):
 def forget_text_columns() -> None:
     """Let go of the text columns kept for the scenarios' layers (once they are written)."""
     _TEXT.clear()
+    _GEOMETRY_TYPE.clear()
+
+
+def _coded_text(names, codes: np.ndarray):
+    """``names[codes]`` as a pandas text array (equal to the object array of those strings
+    that a DataFrame turns into text): the few names made once, then one array take."""
+    return pd.array(np.asarray(names, dtype=object), dtype="str").take(
+        np.asarray(codes, dtype=np.intp))
+
+
+#: a layer geometry's type as the writer names it, by the identity of its geometry array
+#: (the scenarios' layers share the nodes' and the links' geometry: each is looked at once)
+_GEOMETRY_TYPE: dict[int, tuple[object, str]] = {}
+
+
+def _geometry_type_of(geometry) -> str:
+    from gridflow.io.write import layer_geometry_type
+
+    hit = _GEOMETRY_TYPE.get(id(geometry))
+    if hit is not None and hit[0] is geometry:
+        return hit[1]
+    name = layer_geometry_type(np.asarray(geometry))
+    while len(_GEOMETRY_TYPE) >= 4:
+        _GEOMETRY_TYPE.pop(next(iter(_GEOMETRY_TYPE)))
+    _GEOMETRY_TYPE[id(geometry)] = (geometry, name)
+    return name
+
+
+def columns_table(cols: dict):
+    """The layer's fields as one Arrow table, the columns typed as
+    ``pyarrow.Table.from_pandas(pandas.DataFrame(cols))`` types them (text: large_string;
+    numbers as they are), without building the frame."""
+    import pyarrow as pa
+
+    n = max((len(v) for v in cols.values() if not isinstance(v, str)), default=0)
+    arrays = {}
+    for name, v in cols.items():
+        if isinstance(v, str):  # one value for every row (a DataFrame broadcasts it)
+            v = _coded_text([v], np.zeros(n, dtype=np.intp))
+        arrays[name] = v
+    return pa.table(arrays)
+
+
+def layer_parts(cols: dict, geometry) -> tuple[object, object, str]:
+    """What the GeoPackage writer takes for a layer of ``cols`` and ``geometry`` (a geometry
+    column after the fields): the fields as an Arrow table, the geometry, its type."""
+    return columns_table(cols), geometry, _geometry_type_of(geometry)
 
 
 def _conv(values, quantity: str, system: UnitSystem | str) -> np.ndarray:
@@ -66,13 +114,13 @@ def roughness_out(net: Network, system: UnitSystem | str) -> np.ndarray:
     return net.roughness
 
 
-def nodes_layer(net: Network, r: HydraulicResult, geometry, crs, criteria: CriteriaSection,
-                system: UnitSystem | str) -> gpd.GeoDataFrame:
-    """``nodes_<scenario>``: one row per node, in network order."""
+def nodes_columns(net: Network, r: HydraulicResult, criteria: CriteriaSection,
+                  system: UnitSystem | str) -> dict:
+    """The fields of ``nodes_<scenario>`` (before its geometry), in network order."""
     flags = node_flags(net, r, criteria)
-    cols = {
+    return {
         "node_id": _text(net.node_id),
-        "kind": np.asarray(NODE_KINDS, dtype=object)[net.node_kind],
+        "kind": _coded_text(NODE_KINDS, net.node_kind),
         "fixed_head": net.is_fixed.astype(np.int32),
         "zone": _text(net.zone),
         field_name("elevation", system): _conv(net.elevation_m, "elevation", system),
@@ -83,17 +131,23 @@ def nodes_layer(net: Network, r: HydraulicResult, geometry, crs, criteria: Crite
         field_name("pressure", system): _conv(r.pressure_m, "pressure", system),
         **flags,
     }
+
+
+def nodes_layer(net: Network, r: HydraulicResult, geometry, crs, criteria: CriteriaSection,
+                system: UnitSystem | str) -> gpd.GeoDataFrame:
+    """``nodes_<scenario>``: one row per node, in network order."""
+    cols = nodes_columns(net, r, criteria, system)
     return gpd.GeoDataFrame(cols, geometry=gpd.GeoSeries(geometry, crs=crs), crs=crs)
 
 
-def pipes_layer(net: Network, r: HydraulicResult, geometry, crs, criteria: CriteriaSection,
-                system: UnitSystem | str, pressure_rating_m=None) -> gpd.GeoDataFrame:
-    """``pipes_<scenario>``: one row per link, in network order."""
+def pipes_columns(net: Network, r: HydraulicResult, criteria: CriteriaSection,
+                  system: UnitSystem | str, pressure_rating_m=None) -> dict:
+    """The fields of ``pipes_<scenario>`` (before its geometry), in network order."""
     flags = pipe_flags(net, r, criteria)
     rough = roughness_out(net, system)
     cols = {
         "pipe_id": _text(net.link_id),
-        "kind": np.asarray(LINK_KINDS, dtype=object)[net.link_kind],
+        "kind": _coded_text(LINK_KINDS, net.link_kind),
         "from_node": _text(net.node_id, net.from_idx),
         "to_node": _text(net.node_id, net.to_idx),
         field_name("length", system): _conv(net.length_m, "length", system),
@@ -101,7 +155,7 @@ def pipes_layer(net: Network, r: HydraulicResult, geometry, crs, criteria: Crite
         "roughness": rough,
         "roughness_model": net.headloss_model,
         "minor_loss_k": net.minor_k,
-        "status": np.asarray(LINK_STATE_NAMES, dtype=object)[r.link_state],
+        "status": _coded_text(LINK_STATE_NAMES, r.link_state),
         field_name("flow", system): _conv(r.flow_m3s, "flow", system),
         field_name("velocity", system): _conv(r.velocity_ms, "velocity", system),
         field_name("headloss", system): _conv(r.headloss_m, "headloss", system),
@@ -111,6 +165,13 @@ def pipes_layer(net: Network, r: HydraulicResult, geometry, crs, criteria: Crite
     if pressure_rating_m is not None:
         cols[field_name("pressure", system, "pressure_rating")] = _conv(pressure_rating_m,
                                                                         "pressure", system)
+    return cols
+
+
+def pipes_layer(net: Network, r: HydraulicResult, geometry, crs, criteria: CriteriaSection,
+                system: UnitSystem | str, pressure_rating_m=None) -> gpd.GeoDataFrame:
+    """``pipes_<scenario>``: one row per link, in network order."""
+    cols = pipes_columns(net, r, criteria, system, pressure_rating_m)
     return gpd.GeoDataFrame(cols, geometry=gpd.GeoSeries(geometry, crs=crs), crs=crs)
 
 

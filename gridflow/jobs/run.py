@@ -236,7 +236,7 @@ def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
     from gridflow.io.postgis import read_previous_flags as pg_previous_flags
     from gridflow.io.publish import publish_postgis
     from gridflow.io.write import write_layers
-    from gridflow.jobs.stages import scenario_layers
+    from gridflow.jobs.stages import scenario_layer_parts, scenario_layers
     from gridflow.topology import build_network
 
     log_path = outputs["log file"]
@@ -341,12 +341,12 @@ def _run(cfg: Config, out_path: Path, outputs: dict[str, Path], outs: OutputSet,
             for flag in ("high_velocity", "high_headloss"):
                 info.append((f"{name}:{flag}", str(int(pflags[flag].sum()))))
             del nflags, pflags
-            layers[f"nodes_{name}"] = DeferredLayer(
-                functools.partial(scenario_layers, cfg, clean, net, r, which="nodes"),
-                net.n_nodes)
-            layers[f"pipes_{name}"] = DeferredLayer(
-                functools.partial(scenario_layers, cfg, clean, net, r, which="pipes"),
-                net.n_links)
+            for which, rows in (("nodes", net.n_nodes), ("pipes", net.n_links)):
+                layers[f"{which}_{name}"] = DeferredLayer(
+                    functools.partial(scenario_layers, cfg, clean, net, r, which=which), rows,
+                    crs=clean.crs,
+                    parts=functools.partial(scenario_layer_parts, cfg, clean, net, r,
+                                            which=which))
             results[name] = (net, r)
             del system
             log.info("scenario %s: %s", name, r.message)

@@ -15,7 +15,7 @@ from gridflow.config import Config
 from gridflow.hydraulics import HydraulicResult, SolveOptions
 from gridflow.network import Network
 
-__all__ = ["scenario_layers", "fireflow_layer"]
+__all__ = ["scenario_layers", "scenario_layer_parts", "fireflow_layer"]
 
 
 def scenario_layers(cfg: Config, clean, net: Network, r: HydraulicResult, *,
@@ -39,6 +39,22 @@ def scenario_layers(cfg: Config, clean, net: Network, r: HydraulicResult, *,
     if which is None:
         return nodes, pipes
     return nodes if which == "nodes" else pipes
+
+
+def scenario_layer_parts(cfg: Config, clean, net: Network, r: HydraulicResult, *, which: str):
+    """``nodes_<scenario>`` (``which="nodes"``) or ``pipes_<scenario>`` as the GeoPackage
+    writer takes it: the fields of :func:`scenario_layers` as an Arrow table, the geometry
+    and its type (:func:`gridflow.jobs.layers.layer_parts`), without building the frame."""
+    from gridflow.jobs.layers import layer_parts, nodes_columns, pipes_columns
+
+    units = cfg.run.units
+    if which == "nodes":
+        return layer_parts(nodes_columns(net, r, cfg.criteria, units),
+                           clean.nodes.geometry.values)
+    rating = getattr(clean.links, "pressure_rating_m", None)
+    rating = None if rating is None else np.asarray(rating, dtype=float)
+    return layer_parts(pipes_columns(net, r, cfg.criteria, units, rating),
+                       clean.links.geometry.values)
 
 
 def fireflow_layer(cfg: Config, clean, net: Network, base: HydraulicResult,

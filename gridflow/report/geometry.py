@@ -62,30 +62,51 @@ def grid_min(xy: np.ndarray, value: np.ndarray, extent: tuple[float, float, floa
              cells: int = GRID_CELLS) -> GridCells:
     """Aggregate points on a grid: per occupied cell, the count and the smallest value.
 
-    O(n log n) in the points (one sort), independent of the cell count.
+    Cells are listed by their key ``i * (cells + 2) + j`` (column ``i``, row ``j``). Points
+    inside the extent fall in a grid of ``(cells + 2)**2`` cells, counted with one
+    ``np.bincount`` and reduced with one ``np.minimum.at``: O(n + cells**2). Points outside it
+    (or without coordinates) make the keys unbounded: then one sort, O(n log n).
     """
     x0, y0, x1, y1 = extent
     size = max(x1 - x0, y1 - y0, 1.0) / cells
     i = np.floor((xy[:, 0] - x0) / size).astype(np.int64)
     j = np.floor((xy[:, 1] - y0) / size).astype(np.int64)
-    key = i * (cells + 2) + j
+    side = cells + 2
+    key = i * side + j
     v = np.where(np.isfinite(value), value, np.inf)
+    if bool(((i >= 0) & (i < side) & (j >= 0) & (j < side)).all()):
+        count = np.bincount(key, minlength=side * side)
+        occupied = np.flatnonzero(count)
+        low = np.full(side * side, np.inf)
+        np.minimum.at(low, key, v)
+        return GridCells(x0 + occupied // side * size, y0 + occupied % side * size, size,
+                         count[occupied], low[occupied])
+    return _grid_min_sorted(key, v, x0, y0, size, side)
+
+
+def _grid_min_sorted(key: np.ndarray, v: np.ndarray, x0: float, y0: float, size: float,
+                     side: int) -> GridCells:
+    """:func:`grid_min` for keys of any range: one sort by key, then value."""
     order = np.lexsort((v, key))
     k = key[order]
     first = np.r_[True, k[1:] != k[:-1]]
     starts = np.flatnonzero(first)
     count = np.diff(np.r_[starts, len(k)])
     worst = v[order][starts]
-    ci, cj = k[starts] // (cells + 2), k[starts] % (cells + 2)
+    ci, cj = k[starts] // side, k[starts] % side
     return GridCells(x0 + ci * size, y0 + cj * size, size, count, worst)
 
 
 def extent(xy: np.ndarray) -> tuple[float, float, float, float]:
-    ok = np.isfinite(xy).all(axis=1)
-    if not ok.any():
-        return (0.0, 0.0, 1.0, 1.0)
-    lo, hi = xy[ok].min(axis=0), xy[ok].max(axis=0)
-    return (float(lo[0]), float(lo[1]), float(hi[0]), float(hi[1]))
+    """``(xmin, ymin, xmax, ymax)`` of the points with both coordinates finite; the unit square
+    if there are none. One pass per coordinate column, no copy where all are finite."""
+    x, y = xy[:, 0], xy[:, 1]
+    ok = np.isfinite(x) & np.isfinite(y)
+    if not ok.all() or not len(ok):
+        if not ok.any():
+            return (0.0, 0.0, 1.0, 1.0)
+        x, y = x[ok], y[ok]
+    return (float(x.min()), float(y.min()), float(x.max()), float(y.max()))
 
 
 def raster_lines(a: np.ndarray, b: np.ndarray, ext: tuple[float, float, float, float],

@@ -21,6 +21,25 @@ _CLOSED = LINK_STATE_NAMES.index("closed")
 _EPS = 1e-9  # [m] added to every edge weight: csgraph reads an explicit zero as no edge
 
 
+def _shortest_per_pair(pair: np.ndarray, w: np.ndarray) -> np.ndarray:
+    """Positions of one link per node pair, ordered by pair: the shortest, the first given
+    among equally short ones (as ``np.lexsort((w, pair))`` keeps the first of each pair).
+
+    One stable sort by pair; only pairs with parallel links compare lengths.
+    """
+    order = np.argsort(pair, kind="stable")
+    p = pair[order]
+    start = np.r_[True, p[1:] != p[:-1]] if len(p) else np.zeros(0, bool)
+    if start.all():  # no parallel links
+        return order
+    ws = w[order]
+    group = np.cumsum(start) - 1
+    low = np.minimum.reduceat(ws, np.flatnonzero(start))
+    cand = np.flatnonzero(ws == low[group])
+    first = np.r_[True, group[cand[1:]] != group[cand[:-1]]]
+    return order[cand[first]]
+
+
 class _Graph:
     """Open links as an undirected weighted graph; parallel links keep the shortest one."""
 
@@ -29,11 +48,9 @@ class _Graph:
         a, b = net.from_idx[ok], net.to_idx[ok]
         lo, hi = np.minimum(a, b), np.maximum(a, b)
         w = np.where(np.isfinite(net.length_m[ok]), net.length_m[ok], 0.0)
-        order = np.lexsort((w, hi, lo))  # shortest first within each node pair
-        lo, hi, w, ok = lo[order], hi[order], w[order], ok[order]
-        first = np.r_[True, (lo[1:] != lo[:-1]) | (hi[1:] != hi[:-1])]
-        lo, hi, w, ok = lo[first], hi[first], w[first], ok[first]
         n = net.n_nodes
+        keep = _shortest_per_pair(lo.astype(np.int64) * n + hi, w)
+        lo, hi, w, ok = lo[keep], hi[keep], w[keep], ok[keep]
         rows, cols = np.r_[lo, hi], np.r_[hi, lo]
         self.w = csr_matrix(coo_matrix((np.r_[w, w] + _EPS, (rows, cols)), shape=(n, n)))
         self.link = csr_matrix(coo_matrix((np.r_[ok, ok] + 1, (rows, cols)), shape=(n, n)))

@@ -21,9 +21,9 @@ import pandas as pd
 from gridflow.network import LINK_KINDS, LINK_PIPE, NODE_KINDS
 from gridflow.report.data import NODE_FLAGS, PIPE_FLAGS, ReportData
 
-__all__ = ["UNNAMED_ZONE", "display_zones", "overview", "scenario_summary", "flags_by_zone",
-           "fire_by_zone", "worst_nodes", "fastest_mains", "failing_hydrants", "unsupplied",
-           "findings_counts", "routine_counts", "changes_counts", "criteria_table"]
+__all__ = ["UNNAMED_ZONE", "display_zones", "zone_codes", "overview", "scenario_summary",
+           "flags_by_zone", "fire_by_zone", "worst_nodes", "fastest_mains", "failing_hydrants",
+           "unsupplied", "findings_counts", "routine_counts", "changes_counts", "criteria_table"]
 
 UNNAMED_ZONE = "(parts without a zone name)"
 _AUTO_ZONE = re.compile(r"zone_\d+")
@@ -35,6 +35,15 @@ def display_zones(zone: np.ndarray) -> np.ndarray:
     z = pd.Series(np.asarray(zone, dtype=object)).fillna("").astype(str)
     auto = z.str.fullmatch(_AUTO_ZONE.pattern) | (z == "")
     return np.where(auto.to_numpy(), UNNAMED_ZONE, z.to_numpy()).astype(object)
+
+
+def zone_codes(zone: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``np.unique(display_zones(zone).astype(str), return_inverse=True)``, with the names
+    worked out once per distinct zone (a handful) rather than once per node."""
+    code, uniq = pd.factorize(np.asarray(zone, dtype=object), use_na_sentinel=False)
+    names, inverse = np.unique(display_zones(np.asarray(uniq, dtype=object)).astype(str),
+                               return_inverse=True)
+    return names, inverse[code]
 
 
 def overview(d: ReportData) -> pd.DataFrame:
@@ -105,7 +114,7 @@ def scenario_summary(d: ReportData) -> pd.DataFrame:
 def flags_by_zone(d: ReportData) -> pd.DataFrame:
     """Flag counts per scenario and zone (a pipe belongs to its from node's zone)."""
     net = d.network
-    zones, code = np.unique(display_zones(net.zone).astype(str), return_inverse=True)
+    zones, code = zone_codes(net.zone)
     pcode = code[net.from_idx]
     nz = len(zones)
     parts = []

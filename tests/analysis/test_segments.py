@@ -308,3 +308,30 @@ def test_dominators_agree_with_networkx_on_random_segment_graphs(seed):
     assert got[root] == root
     for v in range(1, n):
         assert got[v] == want.get(v, -1), (v, got[v], want.get(v))
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_cut_off_lists_are_the_dominator_tree_descendants(seed):
+    """Per segment, the segments it cuts off are those whose chain of immediate dominators
+    passes through it (walked one parent at a time), listed in ascending order; segments out
+    of supply cut off nothing."""
+    from gridflow.analysis.segments import _descendants
+
+    rng = np.random.default_rng(seed)
+    n = int(rng.integers(1, 400))
+    idom = np.full(n, -1, dtype=np.int64)
+    order = rng.permutation(n)
+    for k, v in enumerate(order):  # a random tree over a random order; some left out
+        if rng.random() < 0.1:
+            continue
+        placed = [u for u in order[:k] if idom[u] >= 0]
+        idom[v] = n if not placed or rng.random() < 0.2 else placed[rng.integers(len(placed))]
+    ptr, idx = _descendants(idom, n)
+    want: list[list[int]] = [[] for _ in range(n)]
+    for t in range(n):
+        u = idom[t]
+        while 0 <= u < n:
+            want[u].append(t)
+            u = idom[u]
+    for s in range(n):
+        assert idx[ptr[s]:ptr[s + 1]].tolist() == sorted(want[s])

@@ -406,3 +406,52 @@ def test_replaced_ids_are_checked_again():
     assert n.replace(demand_m3s=np.array([0.0, 0.02, 0.04])).node_id is n.node_id
     with pytest.raises(NetworkError, match="diameter_m"):
         n.replace(diameter_m=np.array([0.2, -0.1]))
+
+
+def test_fixed_pattern_matches_a_plain_unique():
+    """The head matrix's pattern (entries, each input entry's position, whether two links
+    share an entry) equals one worked out by ``np.unique`` over the same entries."""
+    from gridflow.hydraulics.sparse import FixedPatternSPD, _unique_inverse
+
+    rng = np.random.default_rng(4)
+    for n, m, parallel in ((50, 120, True), (400, 300, False), (1, 0, False)):
+        rows = rng.integers(0, n, size=m)
+        cols = (rows + rng.integers(1, n, size=m)) % n if n > 1 else rows
+        if not parallel:  # drop repeated node pairs
+            keep = np.unique(np.minimum(rows, cols) * n + np.maximum(rows, cols),
+                             return_index=True)[1]
+            rows, cols = rows[np.sort(keep)], cols[np.sort(keep)]
+        pat = FixedPatternSPD(n, rows, cols)
+        lo, hi = np.minimum(rows, cols), np.maximum(rows, cols)
+        key = np.r_[np.arange(n) * n + np.arange(n), hi * n + lo]
+        uniq, inverse = np.unique(key, return_inverse=True)
+        np.testing.assert_array_equal(pat.indices, uniq % n)
+        np.testing.assert_array_equal(pat.diag_pos, inverse[:n])
+        np.testing.assert_array_equal(pat.off_pos, inverse[n:])
+        assert pat.unique_off == (len(np.unique(inverse[n:])) == len(inverse[n:]))
+        assert pat.unique_off != parallel or m == 0
+        u2, i2 = _unique_inverse(key[::-1].copy())
+        ref_u, ref_i = np.unique(key[::-1], return_inverse=True)
+        np.testing.assert_array_equal(u2, ref_u)
+        np.testing.assert_array_equal(i2, ref_i)
+
+
+def test_head_matrix_with_known_free_ends_is_the_same():
+    """The head matrix from the ends' freedom worked out once equals the one worked out from
+    the known nodes on each call, bit for bit (the Newton iterations reuse it)."""
+    from gridflow.hydraulics.assembly import head_matrix
+    from gridflow.hydraulics.sparse import FixedPatternSPD
+
+    rng = np.random.default_rng(8)
+    n, m = 300, 700
+    fr, to = rng.integers(0, n, m), rng.integers(0, n, m)
+    keep = fr != to
+    fr, to = fr[keep], to[keep]
+    pat = FixedPatternSPD(n, fr, to)
+    w = rng.uniform(0.0, 5.0, len(fr)) * (rng.random(len(fr)) < 0.9)
+    known = rng.random(n) < 0.2
+    free = ~known
+    plain = head_matrix(pat, fr, to, w, known)
+    reused = head_matrix(pat, fr, to, w, known, free_ends=(free[fr], free[to]))
+    assert plain.tobytes() == reused.tobytes()
+    assert np.all(plain[pat.diag_pos][known] == 1.0)

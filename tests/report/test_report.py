@@ -23,8 +23,8 @@ from scipy.sparse.csgraph import dijkstra
 import gridflow.report
 from gridflow.errors import ConfigError, GridflowError, OutputError
 from gridflow.report import CAUTIONS, ReportData, hgl_profile, write_report
-from gridflow.report.geometry import grid_min, raster_lines, skeleton
-from gridflow.report.sections import UNNAMED_ZONE
+from gridflow.report.geometry import extent, grid_min, raster_lines, skeleton
+from gridflow.report.sections import UNNAMED_ZONE, display_zones, zone_codes
 from tests.report.cdp import CHROMIUM, Browser
 from tests.report.millbrook import SCENARIOS, report_data
 
@@ -393,6 +393,75 @@ def test_grid_aggregation_matches_pandas():
     np.testing.assert_array_equal(got["n"].to_numpy(), ref.size().sort_index().to_numpy())
     np.testing.assert_allclose(got["v"].to_numpy(), ref.min().sort_index().to_numpy())
     assert g.count.sum() == len(xy)
+
+
+def test_grid_aggregation_outside_the_extent_matches_pandas():
+    """Points beyond the extent (keys out of the dense grid) are aggregated the same way as a
+    pandas group-by of their cells; the extent's far edge falls in the last cell."""
+    rng = np.random.default_rng(11)
+    xy = rng.uniform([-900, -300], [5600, 3400], size=(5_000, 2))
+    xy[:4] = [[5000.0, 3000.0], [0.0, 0.0], [5000.0, 0.0], [0.0, 3000.0]]
+    v = rng.normal(60, 10, size=len(xy))
+    v[::13] = np.nan
+    size = 5000 / 40
+    for pts in (xy, xy[(xy >= 0).all(axis=1) & (xy <= [5000, 3000]).all(axis=1)]):
+        vals = v[:len(pts)]
+        g = grid_min(pts, vals, (0.0, 0.0, 5000.0, 3000.0), cells=40)
+        ref = pd.DataFrame({"i": np.floor(pts[:, 0] / size).astype(int),
+                            "j": np.floor(pts[:, 1] / size).astype(int),
+                            "v": np.where(np.isnan(vals), np.inf, vals)}).groupby(["i", "j"])
+        got = pd.DataFrame({"i": np.round(g.x0 / size).astype(int),
+                            "j": np.round(g.y0 / size).astype(int),
+                            "n": g.count, "v": g.worst})
+        # cells listed column by column, rows ascending within a column
+        assert got.set_index(["i", "j"]).index.is_monotonic_increasing
+        got = got.set_index(["i", "j"])
+        np.testing.assert_array_equal(got["n"].to_numpy(), ref["v"].size().to_numpy())
+        np.testing.assert_array_equal(got["v"].to_numpy(), ref["v"].min().to_numpy())
+
+
+def test_zone_codes_match_per_node_names():
+    """Zone codes worked out per distinct zone equal the per-node names sorted and numbered
+    (``np.unique`` of :func:`display_zones` over every node)."""
+    rng = np.random.default_rng(3)
+    pool = np.array(["North", "zone_4", "", None, float("nan"), "zone_12", "South",
+                     "zone_x", "Hill zone_2"], dtype=object)
+    zone = pool[rng.integers(0, len(pool), size=2_000)]
+    names, code = zone_codes(zone)
+    ref_names, ref_code = np.unique(display_zones(zone).astype(str), return_inverse=True)
+    np.testing.assert_array_equal(names, ref_names)
+    np.testing.assert_array_equal(code, ref_code)
+    assert UNNAMED_ZONE in names and "zone_4" not in names and "zone_x" in names
+
+
+def test_shortest_link_per_node_pair_matches_a_full_sort():
+    """One link per node pair, the shortest and the first of equally short ones, in pair
+    order: the same positions as a stable sort by pair and length (``np.lexsort``)."""
+    from gridflow.report.profile import _shortest_per_pair
+
+    rng = np.random.default_rng(5)
+    for n_links, n_pairs in ((3_000, 400), (500, 10_000), (0, 1)):
+        pair = rng.integers(0, n_pairs, size=n_links)
+        w = rng.choice([10.0, 12.5, 30.0, 0.0], size=n_links)  # many ties
+        order = np.lexsort((w, pair))
+        first = np.r_[True, pair[order][1:] != pair[order][:-1]] if n_links else []
+        np.testing.assert_array_equal(_shortest_per_pair(pair, w), order[first])
+
+
+def test_extent_of_the_finite_points():
+    """The extent is the bounds of the rows whose coordinates are both finite (a plain
+    row filter and column minimum/maximum); no such row: the unit square."""
+    rng = np.random.default_rng(9)
+    xy = rng.uniform(-50, 900, size=(1_000, 2))
+    xy[::7, 0] = np.nan
+    xy[::11, 1] = np.inf
+    xy[3] = [-1e6, np.nan]  # outside, but not a finite point
+    ok = np.isfinite(xy).all(axis=1)
+    ref = (*xy[ok].min(axis=0), *xy[ok].max(axis=0))
+    assert extent(xy) == tuple(float(v) for v in ref)
+    assert extent(xy[ok]) == extent(xy)
+    assert extent(np.full((4, 2), np.nan)) == (0.0, 0.0, 1.0, 1.0)
+    assert extent(np.zeros((0, 2))) == (0.0, 0.0, 1.0, 1.0)
 
 
 def test_skeleton_keeps_the_widest_mains():
