@@ -45,8 +45,9 @@ def sample_dem(path: Path, x: np.ndarray, y: np.ndarray, crs, unit_factor_m: flo
         if len(x) == 0:
             return out
         # the cell under each point, all points at once; one read of the window they span
-        inv = ~src.transform
-        col_f, row_f = inv * (x, y)
+        inv = ~src.transform  # the affine map from coordinates to (column, row)
+        col_f = inv.a * x + inv.b * y + inv.c
+        row_f = inv.d * x + inv.e * y + inv.f
         rows = np.floor(row_f).astype(np.int64)
         cols = np.floor(col_f).astype(np.int64)
         inside = (rows >= 0) & (rows < src.height) & (cols >= 0) & (cols < src.width)
