@@ -26,7 +26,7 @@ from gridflow.network import (
     VALVE_THROTTLE,
     fit_pump_curve,
 )
-from gridflow.topology.idtext import all_distinct, as_text
+from gridflow.topology.idtext import all_distinct, all_distinct_text, as_text
 from gridflow.topology.nodes import unique_ids_checked
 from gridflow.topology.points import arrow_text, column, text_in
 from gridflow.topology.records import (
@@ -83,7 +83,7 @@ def link_table(ctx: Context, sn: Snapped, at: Attached, sp: Split, nt: NodeTable
     c = {k: np.concatenate(cols.pop(k)) for k in list(cols)}
     text = arrow.concat_arrays(ids)
     c["link_id"] = text.to_numpy(zero_copy_only=False)
-    if all_distinct(c["link_id"]):  # the usual case: one hash pass, every id a str
+    if all_distinct_text(text):  # the usual case: one hash pass in Arrow
         return LinkTable(cols=c, ids_distinct=True, id_text=text)
     c["link_id"], distinct = _link_ids_checked(c["link_id"], c["kind"])
     return LinkTable(cols=c, ids_distinct=distinct)

@@ -150,7 +150,7 @@ def _check_diameter(ctx: Context, df: pd.DataFrame, layer: str) -> pd.DataFrame:
     f.add_many("diameter_missing", "warning", layer, ids[bad],
                [f"{w}: default {default / INCH:.4g} in used" for w in what[bad]],
                geoms[bad])
-    df = df.copy()
+    df = df.copy(deep=False)  # copy on write: only the column changed is copied
     df.loc[bad, "diameter"] = default
     return df
 
@@ -208,7 +208,7 @@ def _roughness(ctx: Context, df: pd.DataFrame, layer: str) -> pd.DataFrame:
         f.add_many("roughness_implausible", "warning", layer, df["pipe_id"].to_numpy()[bad],
                    [f"Hazen-Williams C {x:g} outside {C_RANGE[0]:g}-{C_RANGE[1]:g}; kept"
                     for x in r[bad]], df["geom"].to_numpy()[bad])
-    df = df.copy()
+    df = df.copy(deep=False)  # copy on write: the other columns are shared, not copied
     df["roughness"] = r
     return df
 
