@@ -564,7 +564,7 @@ def _id_texts(col: pd.Series, role: str, info: LayerInfo, findings: Findings):
         findings.add_many("missing_id", "warning", info.layer, txt[rows],
                           f"feature without {role[:-1]} id; named by its row")
         column = None
-    if _distinct(txt, column):  # the usual case: one hash pass, no repeats
+    if len(set(txt.tolist())) == len(txt):  # the usual case: one hash pass, no repeats
         return txt, column
     s = pd.Series(txt)
     k = s.groupby(s, sort=False).cumcount().to_numpy()
@@ -575,17 +575,6 @@ def _id_texts(col: pd.Series, role: str, info: LayerInfo, findings: Findings):
                            f"{t}#{kk + 1}" for t, kk in zip(txt[rows], k[rows])])
         txt[rows] = [f"{t}#{kk + 1}" for t, kk in zip(txt[rows], k[rows])]
     return txt, None
-
-
-def _distinct(txt: np.ndarray, column) -> bool:
-    """True when no two ids in ``txt`` are equal; hashed by Arrow when ``column`` holds
-    the same text (no Python str hashed), else by a set of the strings."""
-    arr = getattr(column, "_pa_array", None)
-    if arr is not None and arr.null_count == 0:
-        import pyarrow.compute as pc
-
-        return len(pc.unique(arr)) == len(txt)
-    return len(set(txt.tolist())) == len(txt)
 
 
 def _arrow_text(values):

@@ -10,8 +10,7 @@ from __future__ import annotations
 import numpy as np
 from numpy.dtypes import StringDType
 
-__all__ = ["as_text", "all_distinct", "all_distinct_text", "suffixed", "numbered",
-           "two_decimals", "joined"]
+__all__ = ["as_text", "all_distinct", "suffixed", "numbered", "two_decimals", "joined"]
 
 
 def as_text(ids) -> np.ndarray:
@@ -25,21 +24,6 @@ def as_text(ids) -> np.ndarray:
 def all_distinct(text: np.ndarray) -> bool:
     """True when no two of the ``str`` values are equal (one hash pass)."""
     return len(set(text.tolist())) == len(text)
-
-
-def all_distinct_text(text) -> bool:
-    """:func:`all_distinct` of an Arrow text array's values, by Arrow's hashing (no Python
-    string made; a value missing counts as ``None``).
-
-    Examples
-    --------
-    >>> import pyarrow as pa
-    >>> all_distinct_text(pa.array(["P1", "P2"])), all_distinct_text(pa.array(["P1", "P1"]))
-    (True, False)
-    """
-    import pyarrow.compute as pc
-
-    return len(pc.unique(text)) == len(text)
 
 
 def suffixed(ids: np.ndarray, k: np.ndarray, sep: str = ".") -> np.ndarray:

@@ -102,7 +102,8 @@ def snap_labels(xy: np.ndarray, tolerance: float) -> np.ndarray:
 
 
 def split_lines(lines: np.ndarray, ev_line: np.ndarray, ev_s: np.ndarray,
-                ev_xy: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+                ev_xy: np.ndarray, *, verts: Vertices | None = None,
+                lengths: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Split lines at distances along them, inserting the given points as the new ends.
 
     Parameters
@@ -113,6 +114,10 @@ def split_lines(lines: np.ndarray, ev_line: np.ndarray, ev_s: np.ndarray,
         first vertex [m] (strictly inside the line), and the point [m] that becomes the end of
         the piece before and the start of the piece after (usually the point at that distance,
         or a node within the snapping tolerance of it).
+    verts : Vertices, optional
+        The lines' :func:`vertices`, when already taken.
+    lengths : ndarray, optional
+        ``shapely.length(lines)`` [m], when already measured.
 
     Returns
     -------
@@ -128,16 +133,17 @@ def split_lines(lines: np.ndarray, ev_line: np.ndarray, ev_s: np.ndarray,
     n_pieces = n_ev + 1
     piece_start = np.concatenate([[0], np.cumsum(n_pieces)[:-1]])
     ev_before = np.concatenate([[0], np.cumsum(n_ev)[:-1]])
-    coords, vline = shapely.get_coordinates(lines, return_index=True)
+    v = vertices(lines) if verts is None else verts
+    coords, first_v = v.coords, v.first
+    vline = np.repeat(np.arange(n), v.count)
     # distance of each vertex along its line
     step = np.zeros(len(coords))
     step[1:] = np.hypot(*(coords[1:] - coords[:-1]).T)
-    first_v = np.concatenate([[0], np.cumsum(shapely.get_num_coordinates(lines))[:-1]])
     step[first_v] = 0.0
     cum = np.cumsum(step)
     t = cum - cum[first_v][vline]
     # global positions: lines laid end to end with a gap of 1 m
-    lengths = shapely.length(lines)
+    lengths = shapely.length(lines) if lengths is None else lengths
     offset = np.concatenate([[0.0], np.cumsum(lengths + 1.0)[:-1]])
     g_ev = offset[ev_line] + ev_s
     g_v = offset[vline] + t

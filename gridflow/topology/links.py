@@ -26,7 +26,7 @@ from gridflow.network import (
     VALVE_THROTTLE,
     fit_pump_curve,
 )
-from gridflow.topology.idtext import all_distinct, all_distinct_text, as_text
+from gridflow.topology.idtext import all_distinct, as_text
 from gridflow.topology.nodes import unique_ids_checked
 from gridflow.topology.points import arrow_text, column, text_in
 from gridflow.topology.records import (
@@ -49,7 +49,7 @@ _EPS = 1e-3  # [m] shortest pipe length kept
 def link_table(ctx: Context, sn: Snapped, at: Attached, sp: Split, nt: NodeTable) -> LinkTable:
     """Stage 6: the columns of every link (see :data:`COLUMNS`), ids unique."""
     df, pl = sn.frame, sp.line
-    glen = shapely.length(sn.geoms)
+    glen = shapely.length(sn.geoms) if sn.length_m is None else sn.length_m
     plen = shapely.length(sp.pieces)
     attr_len = df["length"].to_numpy(dtype=float)[pl]
     frac = plen / np.maximum(glen[pl], 1e-12)
@@ -83,7 +83,7 @@ def link_table(ctx: Context, sn: Snapped, at: Attached, sp: Split, nt: NodeTable
     c = {k: np.concatenate(cols.pop(k)) for k in list(cols)}
     text = arrow.concat_arrays(ids)
     c["link_id"] = text.to_numpy(zero_copy_only=False)
-    if all_distinct_text(text):  # the usual case: one hash pass in Arrow
+    if all_distinct(c["link_id"]):  # the usual case: one hash pass, every id a str
         return LinkTable(cols=c, ids_distinct=True, id_text=text)
     c["link_id"], distinct = _link_ids_checked(c["link_id"], c["kind"])
     return LinkTable(cols=c, ids_distinct=distinct)

@@ -97,11 +97,12 @@ def prepare_pipes(ctx: Context) -> Pipes:
                "drawn with a length of 0 m in the GIS (its vertices are one point); dropped",
                df["geom"].to_numpy()[zero])
     df = df[~zero].reset_index(drop=True)
+    glen = glen[~zero]
     if len(df) == 0:
         ab = (gdf["status"] == "abandoned").to_numpy() if "status" in gdf else empty & False
         _no_pipes_left(ctx, ids, {"abandoned": ab, "without geometry": empty & ~ab,
                                   "not lines": notline & ~ab})
-    return Pipes(frame=df, layer=layer, drawn_length_m=shapely.length(df["geom"].to_numpy()))
+    return Pipes(frame=df, layer=layer, drawn_length_m=glen)
 
 def _objects(values: np.ndarray) -> pd.Series:
     """A column of Python objects as they are (no inference of pandas' text type)."""

@@ -13,7 +13,13 @@ import pyarrow as pa
 import shapely
 
 from gridflow.topology.idtext import joined, two_decimals
-from gridflow.topology.lines import end_points, set_end_points, snap_labels, vertices
+from gridflow.topology.lines import (
+    Vertices,
+    end_points,
+    set_end_points,
+    snap_labels,
+    vertices,
+)
 from gridflow.topology.records import Context, Pipes, Snapped
 
 __all__ = ["snap_ends"]
@@ -124,6 +130,12 @@ def snap_ends(ctx: Context, pipes: Pipes) -> Snapped:
                     "parallel mains" for x in ids[i[ov]]], geoms[j[ov]])
     keep = ~zero & ~dup
     df, geoms, ids = df[keep].reset_index(drop=True), geoms[keep], ids[keep]
+    if not keep.all():  # the vertices of the mains kept, for the later stages
+        count = vert.count[keep]
+        last = np.cumsum(count) - 1
+        vert = Vertices(vert.coords[np.repeat(keep, vert.count)], count, last - count + 1,
+                        last)
     return Snapped(frame=df, geoms=geoms, ids=ids, layer=layer, lab_s=lab_s[keep],
                    lab_e=lab_e[keep], cxy=cxy, cluster_node=cluster_node, cluster_z=cluster_z,
-                   nodes=nodes, level=df["level"].to_numpy(dtype=object), cluster_pts=cpts)
+                   nodes=nodes, level=df["level"].to_numpy(dtype=object), cluster_pts=cpts,
+                   length_m=glen[keep], vertices=vert)
