@@ -17,10 +17,10 @@ __all__ = ["Vertices", "vertices", "end_points", "set_end_points", "snap_labels"
 
 class Vertices(NamedTuple):
     """Every vertex of an array of lines, line after line: ``coords`` ``(m, 2)``, and each
-    line's vertex ``count`` and the rows of its ``first`` and ``last`` vertex."""
+    line's number of vertices ``n`` and the rows of its ``first`` and ``last`` vertex."""
 
     coords: np.ndarray
-    count: np.ndarray
+    n: np.ndarray
     first: np.ndarray
     last: np.ndarray
 
@@ -61,7 +61,7 @@ def set_end_points(lines: np.ndarray, start: np.ndarray, end: np.ndarray,
     coords = v.coords
     coords[v.first] = start
     coords[v.last] = end
-    return shapely.linestrings(coords, indices=np.repeat(np.arange(len(lines)), v.count))
+    return shapely.linestrings(coords, indices=np.repeat(np.arange(len(lines)), v.n))
 
 
 def snap_labels(xy: np.ndarray, tolerance: float) -> np.ndarray:
@@ -135,7 +135,7 @@ def split_lines(lines: np.ndarray, ev_line: np.ndarray, ev_s: np.ndarray,
     ev_before = np.concatenate([[0], np.cumsum(n_ev)[:-1]])
     v = vertices(lines) if verts is None else verts
     coords, first_v = v.coords, v.first
-    vline = np.repeat(np.arange(n), v.count)
+    vline = np.repeat(np.arange(n), v.n)
     # distance of each vertex along its line
     step = np.zeros(len(coords))
     step[1:] = np.hypot(*(coords[1:] - coords[:-1]).T)

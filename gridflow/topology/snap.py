@@ -131,9 +131,9 @@ def snap_ends(ctx: Context, pipes: Pipes) -> Snapped:
     keep = ~zero & ~dup
     df, geoms, ids = df[keep].reset_index(drop=True), geoms[keep], ids[keep]
     if not keep.all():  # the vertices of the mains kept, for the later stages
-        count = vert.count[keep]
+        count = vert.n[keep]
         last = np.cumsum(count) - 1
-        vert = Vertices(vert.coords[np.repeat(keep, vert.count)], count, last - count + 1,
+        vert = Vertices(vert.coords[np.repeat(keep, vert.n)], count, last - count + 1,
                         last)
     return Snapped(frame=df, geoms=geoms, ids=ids, layer=layer, lab_s=lab_s[keep],
                    lab_e=lab_e[keep], cxy=cxy, cluster_node=cluster_node, cluster_z=cluster_z,
