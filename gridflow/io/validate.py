@@ -198,21 +198,35 @@ def stored_text(file: Path, layer: str, id_field: str, fields: list[str],
     except sqlite3.Error:
         return out
     try:
-        for f in fields:
-            base = (f"SELECT {_quote(id_field)}, {_quote(f)} FROM {_quote(layer)} "
-                    f"WHERE typeof({_quote(f)}) = 'text'")
-            rows = None
-            for sql in ([f"{base} AND ({where})"] if where else []) + [base]:
-                try:
-                    rows = con.execute(sql).fetchall()
-                    break
-                except sqlite3.Error:
-                    continue
+        rows = _text_rows(con, layer, id_field, fields, where)
+        if rows is not None:  # one scan of the table for every field
+            for j, f in enumerate(fields):
+                hits = [(r[0], r[2 + 2 * j]) for r in rows if r[1 + 2 * j] == "text"]
+                if hits:
+                    out[f] = [("" if i is None else _id_text(i), str(v)) for i, v in hits]
+            return out
+        for f in fields:  # a field SQLite cannot select: the others one by one
+            rows = _text_rows(con, layer, id_field, [f], where)
             if rows:
-                out[f] = [("" if i is None else _id_text(i), str(v)) for i, v in rows]
+                out[f] = [("" if r[0] is None else _id_text(r[0]), str(r[2])) for r in rows]
     finally:
         con.close()
     return out
+
+
+def _text_rows(con, layer: str, id_field: str, fields: list[str], where: str | None):
+    """Rows ``(id, typeof(f1), f1, typeof(f2), f2 ...)`` of the table where any of the
+    fields holds text (with the ``where`` filter when SQLite can apply it); None when
+    SQLite cannot run the query."""
+    cols = ", ".join(f"typeof({_quote(f)}), {_quote(f)}" for f in fields)
+    any_text = " OR ".join(f"typeof({_quote(f)}) = 'text'" for f in fields)
+    base = f"SELECT {_quote(id_field)}, {cols} FROM {_quote(layer)} WHERE ({any_text})"
+    for sql in ([f"{base} AND ({where})"] if where else []) + [base]:
+        try:
+            return con.execute(sql).fetchall()
+        except sqlite3.Error:
+            continue
+    return None
 
 
 def _id_text(v) -> str:

@@ -55,7 +55,7 @@ class _Keys:
 def attach_points(ctx: Context, sn: Snapped) -> Attached:
     """Stage 3: T-junctions, hydrants, rings and devices as split events on the mains."""
     f = ctx.findings
-    glen = shapely.length(sn.geoms)
+    glen = shapely.length(sn.geoms) if sn.length_m is None else sn.length_m
     tree = shapely.STRtree(sn.geoms)
     keys = _Keys(sn.cxy, sn.cluster_pts)
     t_line, t_key, t_s = t_events(ctx, sn, tree, glen)

@@ -32,7 +32,10 @@ def fill_elevations(ctx: Context, nt: NodeTable, lt: LinkTable,
     if known.all() or not known.any():  # nothing to interpolate: no graph needed
         adj = None
     else:
-        adj = coo_matrix((np.ones(2 * len(frm)), (np.r_[frm, to], np.r_[to, frm])),
+        # the fill reads the rows of unknown nodes only: the links touching one make them
+        near = ~known[frm] | ~known[to]
+        fu, tu = frm[near], to[near]
+        adj = coo_matrix((np.ones(2 * len(fu)), (np.r_[fu, tu], np.r_[tu, fu])),
                          shape=(nn, nn)).tocsr()
     e = _harmonic_fill(np.where(known, elev, 0.0), known, adj)
     e[standin] = elev[standin]
@@ -53,7 +56,8 @@ def fill_elevations(ctx: Context, nt: NodeTable, lt: LinkTable,
 
 def _harmonic_fill(e: np.ndarray, known: np.ndarray, adj) -> np.ndarray:
     """Unknown values as the mean of their neighbours' (harmonic interpolation on the graph;
-    ``adj`` may be None when every value or none is known).
+    ``adj``, the adjacency, is read at the rows of unknown nodes only; it may be None when
+    every value or none is known).
 
     Notes
     -----
@@ -68,16 +72,21 @@ def _harmonic_fill(e: np.ndarray, known: np.ndarray, adj) -> np.ndarray:
     from scipy.sparse.csgraph import connected_components
     from scipy.sparse.linalg import spsolve
 
-    _, comp = connected_components(adj, directed=False)
+    # the unknown nodes of parts holding a known node: those joined through unknown nodes
+    # to a neighbour of a known node (the graph of the unknown nodes alone is small)
+    unk = np.flatnonzero(~known)
+    rows = adj[unk]
+    touch = (rows @ known.astype(float)) > 0
+    _, comp = connected_components(rows[:, unk], directed=False)
     has = np.zeros(comp.max() + 1, bool)
-    has[comp[known]] = True
-    u = np.flatnonzero(~known & has[comp])
+    has[comp[touch]] = True
+    u = unk[has[comp]]
     if len(u) == 0:
         return out
     k = np.flatnonzero(known)
-    a = (adj > 0).astype(float).tocsr()
-    deg = np.asarray(a.sum(axis=1)).ravel()
-    auu = (diags(deg[u]) - a[u][:, u]).tocsc()
-    rhs = a[u][:, k] @ e[k]
+    au = (adj[u] > 0).astype(float)
+    deg = np.asarray(au.sum(axis=1)).ravel()
+    auu = (diags(deg) - au[:, u]).tocsc()
+    rhs = au[:, k] @ e[k]
     out[u] = spsolve(auu, rhs)
     return out

@@ -43,7 +43,7 @@ def suffixed(ids: np.ndarray, k: np.ndarray, sep: str = ".") -> np.ndarray:
 
 def numbered(prefix: str, n: int):
     """``prefix1`` ... ``prefix<n>`` as an Arrow ``large_string`` array, its bytes written
-    by array arithmetic (digit by digit over all numbers at once), not one str per number.
+    by array arithmetic (all numbers of one length at once), not one str per number.
 
     Examples
     --------
@@ -52,20 +52,26 @@ def numbered(prefix: str, n: int):
     """
     import pyarrow as pa
 
-    head = prefix.encode()
-    i = np.arange(1, n + 1, dtype=np.int64)
-    tens = 10 ** np.arange(1, 19, dtype=np.int64)
-    digits = np.searchsorted(tens, i, side="right") + 1  # decimal digits of each number
+    head = np.frombuffer(prefix.encode(), dtype=np.uint8)
+    h = len(head)
+    # 1 ... n in ascending order: the numbers of d digits are one block, 10**(d-1) up to
+    # 10**d - 1, each written as a (numbers, h + d) table of bytes; the tables laid end to
+    # end are the text
+    blocks, widths, sizes = [], [], []
+    lo, d = 1, 1
+    while lo <= n:
+        hi = min(n, 10**d - 1)
+        i = np.arange(lo, hi + 1, dtype=np.int64)
+        table = np.empty((len(i), h + d), dtype=np.uint8)
+        table[:, :h] = head
+        table[:, h:] = 48 + (i[:, None] // 10 ** np.arange(d - 1, -1, -1, dtype=np.int64)) % 10
+        blocks.append(table.ravel())
+        widths.append(h + d)
+        sizes.append(len(i))
+        lo, d = hi + 1, d + 1
     offsets = np.zeros(n + 1, dtype=np.int64)
-    np.cumsum(len(head) + digits, out=offsets[1:])
-    data = np.empty(int(offsets[-1]), dtype=np.uint8)
-    start = offsets[:-1]
-    for j, byte in enumerate(head):
-        data[start + j] = byte
-    for k in range(int(digits.max()) if n else 0):  # the k-th digit from the left
-        has = digits > k
-        power = 10 ** (digits[has] - 1 - k)
-        data[start[has] + len(head) + k] = 48 + (i[has] // power) % 10
+    np.cumsum(np.repeat(np.asarray(widths, dtype=np.int64), sizes), out=offsets[1:])
+    data = np.concatenate(blocks) if blocks else np.zeros(0, dtype=np.uint8)
     return pa.LargeStringArray.from_buffers(n, pa.py_buffer(offsets), pa.py_buffer(data))
 
 

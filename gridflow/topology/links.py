@@ -49,7 +49,7 @@ _EPS = 1e-3  # [m] shortest pipe length kept
 def link_table(ctx: Context, sn: Snapped, at: Attached, sp: Split, nt: NodeTable) -> LinkTable:
     """Stage 6: the columns of every link (see :data:`COLUMNS`), ids unique."""
     df, pl = sn.frame, sp.line
-    glen = shapely.length(sn.geoms)
+    glen = shapely.length(sn.geoms) if sn.length_m is None else sn.length_m
     plen = shapely.length(sp.pieces)
     attr_len = df["length"].to_numpy(dtype=float)[pl]
     frac = plen / np.maximum(glen[pl], 1e-12)

@@ -97,11 +97,12 @@ def prepare_pipes(ctx: Context) -> Pipes:
                "drawn with a length of 0 m in the GIS (its vertices are one point); dropped",
                df["geom"].to_numpy()[zero])
     df = df[~zero].reset_index(drop=True)
+    glen = glen[~zero]
     if len(df) == 0:
         ab = (gdf["status"] == "abandoned").to_numpy() if "status" in gdf else empty & False
         _no_pipes_left(ctx, ids, {"abandoned": ab, "without geometry": empty & ~ab,
                                   "not lines": notline & ~ab})
-    return Pipes(frame=df, layer=layer, drawn_length_m=shapely.length(df["geom"].to_numpy()))
+    return Pipes(frame=df, layer=layer, drawn_length_m=glen)
 
 def _objects(values: np.ndarray) -> pd.Series:
     """A column of Python objects as they are (no inference of pandas' text type)."""
@@ -150,7 +151,7 @@ def _check_diameter(ctx: Context, df: pd.DataFrame, layer: str) -> pd.DataFrame:
     f.add_many("diameter_missing", "warning", layer, ids[bad],
                [f"{w}: default {default / INCH:.4g} in used" for w in what[bad]],
                geoms[bad])
-    df = df.copy()
+    df = df.copy(deep=False)  # copy on write: only the column changed is copied
     df.loc[bad, "diameter"] = default
     return df
 
@@ -208,7 +209,7 @@ def _roughness(ctx: Context, df: pd.DataFrame, layer: str) -> pd.DataFrame:
         f.add_many("roughness_implausible", "warning", layer, df["pipe_id"].to_numpy()[bad],
                    [f"Hazen-Williams C {x:g} outside {C_RANGE[0]:g}-{C_RANGE[1]:g}; kept"
                     for x in r[bad]], df["geom"].to_numpy()[bad])
-    df = df.copy()
+    df = df.copy(deep=False)  # copy on write: the other columns are shared, not copied
     df["roughness"] = r
     return df
 

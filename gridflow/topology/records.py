@@ -70,6 +70,8 @@ class Snapped:
     nodes: Any  # the junction-point frame (usable rows) or None
     level: np.ndarray  # grade-separation level of each main (text; "0" where not mapped)
     cluster_pts: np.ndarray | None = None  # Points at ``cxy``, made once for every stage
+    length_m: np.ndarray | None = None  # length of each main [m] (None: measure ``geoms``)
+    vertices: Any = None  # ``geoms``' vertices (gridflow.topology.lines.Vertices) or None
 
 
 @dataclass(frozen=True)

@@ -13,7 +13,13 @@ import pyarrow as pa
 import shapely
 
 from gridflow.topology.idtext import joined, two_decimals
-from gridflow.topology.lines import end_points, set_end_points, snap_labels
+from gridflow.topology.lines import (
+    Vertices,
+    end_points,
+    set_end_points,
+    snap_labels,
+    vertices,
+)
 from gridflow.topology.records import Context, Pipes, Snapped
 
 __all__ = ["snap_ends"]
@@ -29,7 +35,8 @@ def snap_ends(ctx: Context, pipes: Pipes) -> Snapped:
     ids = df["pipe_id"].to_numpy(dtype=object)
     n = len(df)
     # --- snapping ends to each other and to junction points
-    start, end = end_points(geoms)
+    vert = vertices(geoms)
+    start, end = end_points(geoms, vert)
     nodes = ctx.read.layers.get("nodes")
     if nodes is not None:
         ng = np.asarray(nodes.geometry.values)
@@ -83,7 +90,7 @@ def snap_ends(ctx: Context, pipes: Pipes) -> Snapped:
             msgs = [f"{c} pipe ends joined; an end moved {d:.2f} m" for c, d in
                     zip(k[cl].tolist(), dmax[cl].tolist())]
         f.add_many("end_snapped", "info", layer, ids[first[cl]], msgs, cpts[cl])
-        geoms = set_end_points(geoms, cxy[lab_s], cxy[lab_e])
+        geoms = set_end_points(geoms, cxy[lab_s], cxy[lab_e], vert)
     # z at clusters, for elevation source z
     cluster_z = np.full(len(cxy), np.nan)
     if "z0" in df:
@@ -123,6 +130,12 @@ def snap_ends(ctx: Context, pipes: Pipes) -> Snapped:
                     "parallel mains" for x in ids[i[ov]]], geoms[j[ov]])
     keep = ~zero & ~dup
     df, geoms, ids = df[keep].reset_index(drop=True), geoms[keep], ids[keep]
+    if not keep.all():  # the vertices of the mains kept, for the later stages
+        count = vert.n[keep]
+        last = np.cumsum(count) - 1
+        vert = Vertices(vert.coords[np.repeat(keep, vert.n)], count, last - count + 1,
+                        last)
     return Snapped(frame=df, geoms=geoms, ids=ids, layer=layer, lab_s=lab_s[keep],
                    lab_e=lab_e[keep], cxy=cxy, cluster_node=cluster_node, cluster_z=cluster_z,
-                   nodes=nodes, level=df["level"].to_numpy(dtype=object), cluster_pts=cpts)
+                   nodes=nodes, level=df["level"].to_numpy(dtype=object), cluster_pts=cpts,
+                   length_m=glen[keep], vertices=vert)

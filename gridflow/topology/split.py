@@ -17,7 +17,8 @@ def split_mains(sn: Snapped, at: Attached) -> Split:
     """Stage 4: pieces of each main between its events; a split main's pieces carry its id
     with a suffix (``<id>.1``, ``<id>.2`` ...), as Arrow text."""
     n = len(sn.geoms)
-    pieces, p_line, p_k = split_lines(sn.geoms, at.ev_line, at.ev_s, at.ev_xy)
+    pieces, p_line, p_k = split_lines(sn.geoms, at.ev_line, at.ev_s, at.ev_xy,
+                                      verts=sn.vertices, lengths=sn.length_m)
     n_ev = np.bincount(at.ev_line, minlength=n)
     ev_before = np.concatenate([[0], np.cumsum(n_ev)[:-1]])
     last = p_k == n_ev[p_line]
