@@ -113,7 +113,9 @@ def write_layers(path: str | Path, layers: Mapping[str, object], *,
     from gridflow.memory import release_memory
 
     tmp = str(path)
-    packed = rtree.available()
+    # the spatial indexes built so far, by their layers' boxes: a layer with the boxes of one
+    # written before (the scenarios' layers share the network's geometry) gets a copy
+    packed: dict | None = {} if rtree.available() else None
     with gdal_config(GPKG_WRITE_OPTIONS):
         for name, layer in layers.items():
             _write_layer(pyogrio, tmp, name, layer, packed)
@@ -137,8 +139,9 @@ def _fsync(path: str) -> None:
         os.close(fd)
 
 
-def _write_layer(pyogrio, tmp: str, name: str, layer, packed: bool = False) -> None:
-    """One layer into ``tmp``. With ``packed``, a layer streamed in batches is written
+def _write_layer(pyogrio, tmp: str, name: str, layer, packed: dict | None = None) -> None:
+    """One layer into ``tmp``. With ``packed`` (the indexes of ``tmp`` built so far, see
+    :func:`gridflow.io.rtree.add_spatial_indexes`), a layer streamed in batches is written
     without its spatial index, which is then built packed from the rows' boxes
     (:mod:`gridflow.io.rtree`)."""
     import geopandas as gpd
@@ -226,7 +229,7 @@ def _simple_columns(attrs) -> bool:
 
 def _write_batched(pyogrio, tmp: str, name: str, attrs, geometry, crs, geometry_type: str, *,
                    position: int | None = None, geometry_name: str = "geometry",
-                   packed: bool = False) -> None:
+                   packed: dict | None = None) -> None:
     """One layer (at least one row) from its attributes (a DataFrame, or a ``pyarrow.Table``
     of them) and its geometry by rows (``geometry[start:stop]``), as a stream of batches.
 
@@ -255,7 +258,7 @@ def _write_batched(pyogrio, tmp: str, name: str, attrs, geometry, crs, geometry_
 
     from gridflow.io import rtree
 
-    boxes = rtree.IndexedLayer(name) if packed else None
+    boxes = rtree.IndexedLayer(name) if packed is not None else None
 
     def batches():
         for a in range(0, n, BATCH_ROWS):
@@ -278,7 +281,7 @@ def _write_batched(pyogrio, tmp: str, name: str, attrs, geometry, crs, geometry_
     if boxes is not None:
         if boxes.rows != n:
             raise RuntimeError(f"layer {name}: {boxes.rows} boxes for {n} rows")
-        rtree.add_spatial_indexes(tmp, [boxes])
+        rtree.add_spatial_indexes(tmp, [boxes], built=packed)
 
 
 def _crs_text(crs) -> str | None:
