@@ -108,9 +108,12 @@ class IndexedLayer:
     def add(self, bounds: np.ndarray) -> None:
         """The next rows' boxes (``shapely.bounds``: minx, miny, maxx, maxy per row), kept as
         the index's 4-byte floats (:func:`round_boxes`: minx, maxx, miny, maxy)."""
-        part = round_boxes(np.asarray(bounds, dtype=float).reshape(-1, 4))
-        self._parts.append(part)
-        self._rows += len(part)
+        self.add_rounded(round_boxes(np.asarray(bounds, dtype=float).reshape(-1, 4)))
+
+    def add_rounded(self, boxes: np.ndarray) -> None:
+        """The next rows' boxes, already rounded (:func:`round_boxes`)."""
+        self._parts.append(boxes)
+        self._rows += len(boxes)
 
     @property
     def rows(self) -> int:
