@@ -180,11 +180,65 @@ def immediate_dominators(n: int, a: np.ndarray, b: np.ndarray, root: int) -> np.
     dominator of ``w`` is then the parent of the nearest such ``c`` at or above ``w``.
     Parallel edges (two valves between the same segments) count as two ways.
 
+    Notes
+    -----
+    The search is ``scipy.sparse.csgraph.depth_first_order`` (every edge not in its tree
+    joins a vertex to one of its ancestors). A vertex's own low value is the smallest entry
+    time among its neighbours other than its parent (an edge parallel to the tree edge is
+    left out too: it cannot lower ``low[c]`` below ``disc[v]``, so the test above gives the
+    same answer); the low points are those minima carried up the tree (one pass over the
+    vertices in reverse order of entry), and the nearest separated child above each vertex
+    is found by pointer jumping (O(log depth) array passes). That search scans a vertex's
+    neighbours again each time it returns to it (O(degree^2) a vertex): where vertices of
+    high degree would make that cost more than a few passes over the edges, the same
+    algorithm runs as an iterative search in Python (O(vertices + edges)).
+
     Returns
     -------
     ndarray of int64
         ``idom[w]`` for every vertex (``root`` for the root itself; -1 where unreachable).
     """
+    from scipy.sparse.csgraph import depth_first_order
+
+    heads = np.concatenate([a, b]).astype(np.int64)
+    tails = np.concatenate([b, a]).astype(np.int64)
+    deg = np.bincount(heads, minlength=n).astype(float)
+    if float(deg @ deg) > 16.0 * len(heads) + 2.0**20:
+        return _dominators_by_search(n, a, b, root)
+    g = sp.csr_matrix((np.ones(len(heads)), (heads, tails)), shape=(n, n))
+    order, pred = depth_first_order(g, root, directed=True, return_predecessors=True)
+    order = order.astype(np.int64)
+    parent = pred.astype(np.int64)  # negative at the root and where unreachable
+    disc = np.full(n, -1, dtype=np.int64)
+    disc[order] = np.arange(len(order))
+    low = disc.copy()
+    back = (disc[heads] >= 0) & (tails != parent[heads])
+    np.minimum.at(low, heads[back], disc[tails[back]])
+    low_l, parent_l = low.tolist(), parent.tolist()
+    for v in order[:0:-1].tolist():  # children before parents
+        p = parent_l[v]
+        if low_l[v] < low_l[p]:
+            low_l[p] = low_l[v]
+    low = np.asarray(low_l, dtype=np.int64)
+    idom = np.full(n, -1, dtype=np.int64)
+    idom[root] = root
+    w = order[1:]
+    if len(w):
+        p = parent[w]
+        top = np.arange(n, dtype=np.int64)  # the nearest separated child at or above
+        top[w] = np.where((p == root) | (low[w] >= disc[p]), w, p)
+        while True:
+            nxt = top[top]
+            if np.array_equal(nxt, top):
+                break
+            top = nxt
+        idom[w] = parent[top[w]]
+    return idom
+
+
+def _dominators_by_search(n: int, a: np.ndarray, b: np.ndarray, root: int) -> np.ndarray:
+    """:func:`immediate_dominators` by an iterative depth-first search in Python: linear in
+    the edges whatever the vertices' degrees."""
     m = len(a)
     heads = np.concatenate([a, b]).astype(np.int64)
     tails = np.concatenate([b, a]).astype(np.int64)
@@ -233,38 +287,42 @@ def immediate_dominators(n: int, a: np.ndarray, b: np.ndarray, root: int) -> np.
     return idom
 
 
+
+
 def _descendants(idom: np.ndarray, n: int) -> tuple[np.ndarray, np.ndarray]:
     """Descendants of every vertex of the dominator tree (root ``n``), as CSR lists.
 
-    An iterative depth-first walk (on Python lists: one step per vertex) gives each vertex an
-    entry time and its subtree's size; a vertex's descendants are then the contiguous run of
-    the walk after it, as long as its subtree. Each run is put in ascending order by one sort
-    of all runs at once (keyed by owner, then segment).
+    A depth-first walk of the tree gives each vertex an entry time, and one pass in reverse
+    its subtree's size; a vertex's descendants are then the contiguous run of the walk after
+    it, as long as its subtree. Each run is put in ascending order by one sort of all runs at
+    once (keyed by owner, then segment).
+
+    The walk is ``scipy.sparse.csgraph.depth_first_order`` on the tree with each vertex's
+    children hung from a chain of stand-in vertices (``v -> x1``, ``x1 -> c1``, ``x1 -> x2``,
+    ``x2 -> c2`` ...), so no vertex has more than two children (that search scans a vertex's
+    children again each time it returns to it); left out of the walk, the stand-ins leave a
+    walk of the tree itself.
     """
+    from scipy.sparse.csgraph import depth_first_order
+
     sup = np.flatnonzero(idom >= 0)
-    parent = idom[sup]
-    kids_ptr, kids = _csr_groups(np.where(parent == n, n, parent), sup, n + 1)
-    ptr_l, kids_l, idom_l = kids_ptr.tolist(), kids.tolist(), idom.tolist()
-    walk_l: list[int] = []
-    size = [0] * (n + 1)
-    stack = [n]
-    visited = [False] * (n + 1)
-    post: list[int] = []
-    while stack:
-        u = stack[-1]
-        if not visited[u]:
-            visited[u] = True
-            if u != n:
-                walk_l.append(u)
-            stack.extend(reversed(kids_l[ptr_l[u]:ptr_l[u + 1]]))
-        else:
-            stack.pop()
-            post.append(u)
-    for u in post:  # children before parents
-        if u != n:
-            size[u] += 1
-            size[idom_l[u]] += size[u]
-    walk = np.asarray(walk_l, dtype=np.int64)
+    par = idom[sup]
+    k = len(sup)
+    # children grouped by parent; stand-in j (vertex n + 1 + j) holds the j-th child
+    order = np.argsort(par, kind="stable")
+    child, cpar = sup[order], par[order]
+    x = n + 1 + np.arange(k, dtype=np.int64)
+    first = np.ones(k, dtype=bool)
+    first[1:] = cpar[1:] != cpar[:-1]
+    src = np.concatenate([cpar[first], x, x[:-1][~first[1:]]])
+    dst = np.concatenate([x[first], child, x[1:][~first[1:]]])
+    tree = sp.csr_matrix((np.ones(len(src)), (src, dst)), shape=(n + 1 + k, n + 1 + k))
+    walk = depth_first_order(tree, n, directed=True, return_predecessors=False)
+    walk = walk[walk < n].astype(np.int64)  # without the root and the stand-ins
+    size = [1] * (n + 1)
+    idom_l = idom.tolist()
+    for u in walk[::-1].tolist():  # children before parents
+        size[idom_l[u]] += size[u]
     pos = np.full(n, -1, dtype=np.int64)
     pos[walk] = np.arange(walk.size)
     cut_ptr = np.zeros(n + 1, dtype=np.int64)

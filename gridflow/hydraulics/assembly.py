@@ -96,19 +96,27 @@ class Residuals:
 
 def residuals(headloss, q: np.ndarray, h: np.ndarray, *, fr: np.ndarray, to: np.ndarray,
               free: np.ndarray, conducting: np.ndarray, delivered: np.ndarray,
-              hl: np.ndarray | None = None) -> Residuals:
+              hl: np.ndarray | None = None, outflow: np.ndarray | None = None,
+              gap: np.ndarray | None = None) -> Residuals:
     """Mass and head-loss residuals of ``(q, h)``.
 
     ``headloss(q) -> (h, dh/dq)`` is the links' law (:meth:`LinkLaws.headloss`); ``hl`` its
-    value at ``q`` if already known; ``delivered`` the demand delivered per node.
+    value at ``q`` if already known; ``delivered`` the demand delivered per node. If already
+    known (the Newton iteration needs them too): ``outflow``, the links' net outflow per node
+    at ``q`` (:func:`net_outflow` without demand), and ``gap``, ``hl - (h[fr] - h[to])``.
     """
     nn = len(h)
-    m = net_outflow(q, fr, to, nn, delivered)
+    if outflow is None:
+        m = net_outflow(q, fr, to, nn, delivered)
+    else:
+        m = outflow + delivered
     m = np.where(free, m, 0.0)
-    if hl is None:
-        hl = headloss(q)[0]
-    with np.errstate(invalid="ignore"):
-        e = np.where(conducting, hl - (h[fr] - h[to]), 0.0)
+    if gap is None:
+        if hl is None:
+            hl = headloss(q)[0]
+        with np.errstate(invalid="ignore"):
+            gap = hl - (h[fr] - h[to])
+    e = np.where(conducting, gap, 0.0)
     am, ae = np.abs(m), np.abs(e)
     wn = int(np.argmax(am)) if nn else 0
     wl = int(np.argmax(ae)) if len(e) else 0

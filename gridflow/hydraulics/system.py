@@ -353,24 +353,33 @@ class HydraulicSystem:
         data = np.zeros(pat.nnz)
         # what stays the same through these iterations: the ends' freedom, the total demand,
         # and (demand-driven) the demand delivered
-        free_ends = (free[fr], free[to])
+        free_ends = (free[fr].astype(float), free[to].astype(float))
         demand_total = float(np.sum(np.abs(demand)))
         fixed_delivered = None if pdd else self.delivered(h, demand, supplied)
         status = "running"
+        # head-loss gap hl - (H_from - H_to) and the links' net outflow per node at (q, h):
+        # made for the residuals of one iteration, used again by the next one's assembly
+        # (the outflow only where flows are zero off the conducting links, so that
+        # cond_f * q is q: no regulating valve sets its own flow)
+        with np.errstate(invalid="ignore"):
+            gap = hl - (h[fr] - h[to])
+        outflow = None
         it = 0
         for it in range(1, max_iter + 1):
             # Newton in correction form: the head change dH, not the heads, is solved for, so
             # rounding scales with the change (small near the solution), not with the heads
             w = cond_f / g
-            we = w * (cond_f * (hl - (h[fr] - h[to])))
+            we = w * (cond_f * gap)
+            if outflow is None:
+                outflow = net_outflow(cond_f * q, fr, to, nn)
             extra = None
             if pdd:
                 dq, ddq = delivered_share(h - elev, demand, opt.pdd_min_pressure,
                                           opt.pdd_required_pressure)
                 extra = np.where(free, ddq, 0.0)
-                m = net_outflow(cond_f * q, fr, to, nn, dq)
+                m = outflow + dq
             else:
-                m = net_outflow(cond_f * q, fr, to, nn, demand)
+                m = outflow + demand
             rhs = (np.bincount(fr, weights=we, minlength=nn)
                    - np.bincount(to, weights=we, minlength=nn) - m)
             data = head_matrix(pat, fr, to, w, known, extra, out=data, free_ends=free_ends)
@@ -392,10 +401,15 @@ class HydraulicSystem:
                                                w)
             h, q = h_new, q_new
             hl, g = laws.headloss(q)  # reused by the next iteration's assembly
+            with np.errstate(invalid="ignore"):
+                gap = hl - (h[fr] - h[to])
+            flows_out = net_outflow(q, fr, to, nn)
+            outflow = None if any_reg else flows_out
             delivered = (fixed_delivered if fixed_delivered is not None
                          else self.delivered(h, demand, supplied))
             res = residuals(laws.headloss, q, h, fr=fr, to=to, free=free_chk,
-                            conducting=conducting, delivered=delivered, hl=hl)
+                            conducting=conducting, delivered=delivered, hl=hl,
+                            outflow=flows_out, gap=gap)
             mtol = self.mass_tolerance(q, demand, demand_total=demand_total)
             if res.max_mass <= mtol and res.max_error <= opt.head_tolerance and it > 1:
                 status = "converged"

@@ -26,17 +26,24 @@ nodes are written straight into the R*Tree's own tables in SQLite's node format:
 The triggers and the ``gpkg_extensions`` row are the ones GDAL writes for the index (the
 tests compare them with GDAL's), so the file is the same to any reader, and to a GIS that
 edits it later.
+
+Layers whose rows have the same boxes (a run's scenario layers share the network's geometry)
+have the same index entry for entry: the first is built, the others get a copy of its tables
+made by SQLite (:func:`copy_index`; found by a digest of the rounded boxes).
 """
 
 from __future__ import annotations
 
+import hashlib
+import json
 import logging
 import sqlite3
 from collections.abc import Sequence
 
 import numpy as np
 
-__all__ = ["add_spatial_indexes", "available", "IndexedLayer", "pack_boxes", "round_boxes"]
+__all__ = ["add_spatial_indexes", "available", "IndexedLayer", "pack_boxes", "round_boxes",
+           "copy_index"]
 
 log = logging.getLogger("gridflow")
 
@@ -101,9 +108,12 @@ class IndexedLayer:
     def add(self, bounds: np.ndarray) -> None:
         """The next rows' boxes (``shapely.bounds``: minx, miny, maxx, maxy per row), kept as
         the index's 4-byte floats (:func:`round_boxes`: minx, maxx, miny, maxy)."""
-        part = round_boxes(np.asarray(bounds, dtype=float).reshape(-1, 4))
-        self._parts.append(part)
-        self._rows += len(part)
+        self.add_rounded(round_boxes(np.asarray(bounds, dtype=float).reshape(-1, 4)))
+
+    def add_rounded(self, boxes: np.ndarray) -> None:
+        """The next rows' boxes, already rounded (:func:`round_boxes`)."""
+        self._parts.append(boxes)
+        self._rows += len(boxes)
 
     @property
     def rows(self) -> int:
@@ -115,7 +125,15 @@ class IndexedLayer:
 
     def boxes(self) -> np.ndarray:
         """Every row's rounded box (float32 minx, maxx, miny, maxy)."""
-        return np.concatenate(self._parts) if self._parts else np.zeros((0, 4), np.float32)
+        if len(self._parts) > 1:
+            self._parts = [np.concatenate(self._parts)]  # once, however often asked
+        return self._parts[0] if self._parts else np.zeros((0, 4), np.float32)
+
+    def key(self) -> tuple[int, bytes]:
+        """The rows' count and a digest of their boxes: two layers with the same key (ids
+        1..n in the same order) have the same index, entry for entry."""
+        return self._rows, hashlib.blake2b(np.ascontiguousarray(self.boxes()).tobytes(),
+                                           digest_size=32).digest()
 
 
 def round_boxes(boxes: np.ndarray) -> np.ndarray:
@@ -214,7 +232,7 @@ def _quote(name: str) -> str:
 def build_index(con: sqlite3.Connection, layer: IndexedLayer) -> int:
     """Create and fill the spatial index of one layer whose rows have ids 1..n in the order
     their boxes were collected. Returns the entries written."""
-    t, c, i = layer.table, layer.column, layer.fid
+    t, c = layer.table, layer.column
     r = f"rtree_{t}_{c}"
     con.execute(f"CREATE VIRTUAL TABLE {_quote(r)} USING rtree(id, minx, maxx, miny, maxy)")
     boxes = layer.boxes()
@@ -255,7 +273,29 @@ def build_index(con: sqlite3.Connection, layer: IndexedLayer) -> int:
                "WHERE value > 0")
         for a in range(0, len(node_of), _ROW_CHUNK):
             part = node_of[a:a + _ROW_CHUNK].tolist()
-            con.execute(sql, (a + 1, "[" + ",".join(map(str, part)) + "]"))
+            con.execute(sql, (a + 1, json.dumps(part, separators=(",", ":"))))
+    _finish(con, layer)
+    return len(ok)
+
+
+def copy_index(con: sqlite3.Connection, layer: IndexedLayer, source: str) -> None:
+    """Give ``layer`` a copy of the spatial index ``source`` (an R*Tree of the same file, of
+    rows with the same boxes and ids: the same :meth:`IndexedLayer.key`): its tables copied
+    row for row, then the layer's own triggers and catalogue entry."""
+    r = f"rtree_{layer.table}_{layer.column}"
+    src = source
+    con.execute(f"CREATE VIRTUAL TABLE {_quote(r)} USING rtree(id, minx, maxx, miny, maxy)")
+    layer.clear()
+    con.execute(f"DELETE FROM {_quote(r + '_node')}")
+    for shadow in ("_node", "_parent", "_rowid"):
+        con.execute(f"INSERT INTO {_quote(r + shadow)} SELECT * FROM {_quote(src + shadow)}")
+    _finish(con, layer)
+
+
+def _finish(con: sqlite3.Connection, layer: IndexedLayer) -> None:
+    """The index's triggers and its ``gpkg_extensions`` row, as GDAL writes them."""
+    t, c, i = layer.table, layer.column, layer.fid
+    r = f"rtree_{t}_{c}"
     for sql in _TRIGGERS:
         con.execute(sql.format(t=t.replace('"', '""'), c=c.replace('"', '""'),
                                i=i.replace('"', '""'), r=r.replace('"', '""')))
@@ -263,7 +303,6 @@ def build_index(con: sqlite3.Connection, layer: IndexedLayer) -> int:
     con.execute("INSERT INTO gpkg_extensions VALUES (?, ?, 'gpkg_rtree_index', "
                 "'http://www.geopackage.org/spec120/#extension_rtree', 'write-only')",
                 (t, c))
-    return len(ok)
 
 
 def _has_table(con: sqlite3.Connection, name: str) -> bool:
@@ -298,10 +337,16 @@ def available() -> bool:
 _AVAILABLE: bool | None = None
 
 
-def add_spatial_indexes(path: str, layers: Sequence[IndexedLayer]) -> None:
+def add_spatial_indexes(path: str, layers: Sequence[IndexedLayer],
+                        built: dict[tuple[int, bytes], str] | None = None) -> None:
     """Build the spatial index of each of ``layers`` in the GeoPackage at ``path`` (written
     without them), in one transaction; the file is left without journal or sync, as the rest
-    of the write (the caller syncs it)."""
+    of the write (the caller syncs it).
+
+    ``built``: the indexes of this file already built, by :meth:`IndexedLayer.key`; a layer
+    whose rows have the boxes of one of them (a run's scenario layers share the network's
+    geometry) gets a copy of that index (:func:`copy_index`), and each layer indexed here is
+    added to it."""
     con = sqlite3.connect(path, isolation_level=None)
     try:
         con.execute("PRAGMA journal_mode=OFF")
@@ -326,7 +371,13 @@ def add_spatial_indexes(path: str, layers: Sequence[IndexedLayer]) -> None:
             if count[0] != n or (n and (lo != 1 or hi != n)):
                 raise RuntimeError(f"layer {layer.table}: {count[0]} rows with ids {lo}..{hi}, "
                                    f"expected 1..{n}")
-            build_index(con, layer)
+            key = layer.key() if built is not None else None
+            if key is not None and built is not None and key in built:
+                copy_index(con, layer, built[key])
+            else:
+                build_index(con, layer)
+            if key is not None and built is not None:
+                built.setdefault(key, f"rtree_{layer.table}_{layer.column}")
         con.execute("COMMIT")
     except BaseException:
         if con.in_transaction:

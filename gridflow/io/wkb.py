@@ -84,10 +84,17 @@ def _encode(g: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
     offsets = np.zeros(len(g) + 1, dtype=np.int32)
     np.cumsum(row_size, out=offsets[1:])
     # each geometry: its header, then its coordinates' bytes (in the order shapely gives them)
-    is_head = np.zeros(total, dtype=bool)
-    start = offsets[:-1][valid].astype(np.int64)
-    is_head[(start[:, None] + np.arange(head_len)).ravel()] = True
+    coords = np.ascontiguousarray(xyz, dtype="<f8").view(np.uint8).ravel()
+    if not line:  # points: rows of one size, header and coordinates side by side
+        data = np.empty((len(geo), size[0] if len(geo) else 0), dtype=np.uint8)
+        data[:, :head_len] = header.view(np.uint8).reshape(len(geo), head_len)
+        data[:, head_len:] = coords.reshape(len(geo), -1)
+        return data.ravel(), offsets, valid
+    runs = np.empty((len(geo), 2), dtype=np.int64)  # per geometry: header bytes, coordinates'
+    runs[:, 0] = head_len
+    runs[:, 1] = size - head_len
+    is_head = np.repeat(np.tile(np.array([True, False]), len(geo)), runs.ravel())
     data = np.empty(total, dtype=np.uint8)
     data[is_head] = header.view(np.uint8)
-    data[~is_head] = np.ascontiguousarray(xyz, dtype="<f8").view(np.uint8).ravel()
+    data[~is_head] = coords
     return data, offsets, valid

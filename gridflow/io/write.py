@@ -46,6 +46,36 @@ GPKG_WRITE_OPTIONS: dict[str, str] = {"OGR_SQLITE_SYNCHRONOUS": "OFF",
                                       "OGR_SQLITE_CACHE": "32"}
 #: rows per Arrow record batch handed to GDAL (the WKB of one batch exists at a time)
 BATCH_ROWS = 262_144
+#: WKB kept during one write for layers that share a geometry array (a run's scenario layers
+#: share the network's nodes and links), so that it is encoded once [bytes]; batches beyond
+#: this are encoded again for each layer
+SHARED_WKB_BYTES = 256 * 2**20
+
+
+class _SharedGeometry:
+    """The WKB and rounded boxes of geometry batches already written in this file, by the
+    identity of the geometry array (held, so the identity stays its own) and the batch's
+    first row, up to :data:`SHARED_WKB_BYTES`."""
+
+    def __init__(self) -> None:
+        self.held: dict[int, tuple[object, dict[tuple[int, int], tuple]]] = {}
+        self.nbytes = 0
+
+    def get(self, geometry, a: int, b: int):
+        hit = self.held.get(id(geometry))
+        if hit is None or hit[0] is not geometry:
+            return None
+        return hit[1].get((a, b))
+
+    def put(self, geometry, a: int, b: int, wkb, boxes) -> None:
+        size = wkb.nbytes + (0 if boxes is None else boxes.nbytes)
+        if self.nbytes + size > SHARED_WKB_BYTES:
+            return
+        hit = self.held.get(id(geometry))
+        if hit is None or hit[0] is not geometry:
+            hit = self.held[id(geometry)] = (geometry, {})
+        hit[1][(a, b)] = (wkb, boxes)
+        self.nbytes += size
 
 
 @contextlib.contextmanager
@@ -113,10 +143,13 @@ def write_layers(path: str | Path, layers: Mapping[str, object], *,
     from gridflow.memory import release_memory
 
     tmp = str(path)
-    packed = rtree.available()
+    # the spatial indexes built so far, by their layers' boxes: a layer with the boxes of one
+    # written before (the scenarios' layers share the network's geometry) gets a copy
+    packed: dict | None = {} if rtree.available() else None
+    shared = _SharedGeometry()
     with gdal_config(GPKG_WRITE_OPTIONS):
         for name, layer in layers.items():
-            _write_layer(pyogrio, tmp, name, layer, packed)
+            _write_layer(pyogrio, tmp, name, layer, packed, shared)
             if isinstance(layer, DeferredLayer):  # its frame and Arrow buffers are free now
                 release_memory()
             log.debug("wrote layer %s", name)
@@ -137,10 +170,13 @@ def _fsync(path: str) -> None:
         os.close(fd)
 
 
-def _write_layer(pyogrio, tmp: str, name: str, layer, packed: bool = False) -> None:
-    """One layer into ``tmp``. With ``packed``, a layer streamed in batches is written
+def _write_layer(pyogrio, tmp: str, name: str, layer, packed: dict | None = None,
+                 shared: _SharedGeometry | None = None) -> None:
+    """One layer into ``tmp``. With ``packed`` (the indexes of ``tmp`` built so far, see
+    :func:`gridflow.io.rtree.add_spatial_indexes`), a layer streamed in batches is written
     without its spatial index, which is then built packed from the rows' boxes
-    (:mod:`gridflow.io.rtree`)."""
+    (:mod:`gridflow.io.rtree`). ``shared``: the WKB of geometry arrays written before in
+    ``tmp``, reused for a layer of the same geometry array."""
     import geopandas as gpd
     import pandas as pd
 
@@ -153,7 +189,7 @@ def _write_layer(pyogrio, tmp: str, name: str, layer, packed: bool = False) -> N
     if isinstance(layer, DeferredLayer) and layer.parts is not None and layer.rows > 0:
         fields, geometry, geometry_type = layer.parts()
         _write_batched(pyogrio, tmp, name, fields, geometry, layer.crs, geometry_type,
-                       packed=packed)
+                       packed=packed, shared=shared)
         return
     df = materialize(layer)
     if isinstance(df, gpd.GeoDataFrame) and df.geometry.name in df:
@@ -226,7 +262,8 @@ def _simple_columns(attrs) -> bool:
 
 def _write_batched(pyogrio, tmp: str, name: str, attrs, geometry, crs, geometry_type: str, *,
                    position: int | None = None, geometry_name: str = "geometry",
-                   packed: bool = False) -> None:
+                   packed: dict | None = None, shared: _SharedGeometry | None = None
+                   ) -> None:
     """One layer (at least one row) from its attributes (a DataFrame, or a ``pyarrow.Table``
     of them) and its geometry by rows (``geometry[start:stop]``), as a stream of batches.
 
@@ -255,15 +292,26 @@ def _write_batched(pyogrio, tmp: str, name: str, attrs, geometry, crs, geometry_
 
     from gridflow.io import rtree
 
-    boxes = rtree.IndexedLayer(name) if packed else None
+    boxes = rtree.IndexedLayer(name) if packed is not None else None
 
     def batches():
         for a in range(0, n, BATCH_ROWS):
             b = min(a + BATCH_ROWS, n)
-            part = np.asarray(geometry[a:b], dtype=object)
-            wkb = wkb_array(part)
-            if boxes is not None:
-                boxes.add(shapely.bounds(part))  # NaN where missing or empty
+            hit = shared.get(geometry, a, b) if shared is not None else None
+            if hit is not None and (boxes is None or hit[1] is not None):
+                wkb = hit[0]
+                if boxes is not None:
+                    boxes.add_rounded(hit[1])
+            else:
+                part = np.asarray(geometry[a:b], dtype=object)
+                wkb = wkb_array(part)
+                rounded = None
+                if boxes is not None:
+                    rounded = rtree.round_boxes(shapely.bounds(part))  # NaN: missing, empty
+                    boxes.add_rounded(rounded)
+                if shared is not None:
+                    shared.put(geometry, a, b, wkb, rounded)
+                del part
             done = 0
             for batch in table.slice(a, b - a).to_batches():
                 cols = list(batch.columns)
@@ -278,7 +326,7 @@ def _write_batched(pyogrio, tmp: str, name: str, attrs, geometry, crs, geometry_
     if boxes is not None:
         if boxes.rows != n:
             raise RuntimeError(f"layer {name}: {boxes.rows} boxes for {n} rows")
-        rtree.add_spatial_indexes(tmp, [boxes])
+        rtree.add_spatial_indexes(tmp, [boxes], built=packed)
 
 
 def _crs_text(crs) -> str | None:

@@ -39,10 +39,12 @@ def _text(values: np.ndarray, take: np.ndarray | None = None):
     hit = _TEXT.get(key)
     if hit is not None and hit[0] is values and hit[1] is take:
         return hit[2]
-    v = values if take is None else values[take]
-    col = pd.array(v, dtype="str") if v.dtype == object else None
-    if col is None or bool(col.isna().any()):
-        col = pd.array(v.astype(str), dtype="str")  # not all text: as astype(str) spells it
+    if take is not None:  # a take of the values' own column (one Arrow take, no strings made)
+        col = _text(values).take(np.asarray(take, dtype=np.intp))
+    else:
+        col = pd.array(values, dtype="str") if values.dtype == object else None
+        if col is None or bool(col.isna().any()):
+            col = pd.array(values.astype(str), dtype="str")  # not all text: as astype(str)
     while len(_TEXT) >= 8:
         _TEXT.pop(next(iter(_TEXT)))
     _TEXT[key] = (values, take, col)

@@ -310,6 +310,29 @@ def test_dominators_agree_with_networkx_on_random_segment_graphs(seed):
         assert got[v] == want.get(v, -1), (v, got[v], want.get(v))
 
 
+@pytest.mark.parametrize("seed", range(3))
+def test_dominators_around_a_vertex_of_high_degree_agree_with_networkx(seed):
+    """A segment with 1,200 valves (the search that is linear whatever the degrees) and the
+    same graph thinned below that degree (the array route): both against networkx."""
+    import networkx as nx
+
+    from gridflow.analysis.segments import immediate_dominators
+
+    rng = np.random.default_rng(100 + seed)
+    n, hub = 1500, 7
+    spokes = rng.choice(np.setdiff1d(np.arange(n), [hub]), 1200, replace=False)
+    a = np.concatenate([np.full(1200, hub), rng.integers(0, n, 700)])
+    b = np.concatenate([spokes, rng.integers(0, n, 700)])
+    for keep in (np.ones(len(a), bool), np.arange(len(a)) % 4 == 0):
+        got = immediate_dominators(n, a[keep], b[keep], 0)
+        g = nx.MultiGraph()
+        g.add_nodes_from(range(n))
+        g.add_edges_from(zip(a[keep].tolist(), b[keep].tolist()))
+        want = nx.immediate_dominators(nx.DiGraph(g.to_directed()), 0)
+        assert got[0] == 0
+        assert [int(got[v]) for v in range(1, n)] == [want.get(v, -1) for v in range(1, n)]
+
+
 @pytest.mark.parametrize("seed", range(6))
 def test_cut_off_lists_are_the_dominator_tree_descendants(seed):
     """Per segment, the segments it cuts off are those whose chain of immediate dominators

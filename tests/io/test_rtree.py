@@ -190,3 +190,36 @@ def test_index_of_real_street_layers_equals_gdals(tmp_path):
                                 use_arrow=True, promote_to_multi=False)
         assert _rows(tmp_path / "ours.gpkg", name) == _rows(tmp_path / "ref.gpkg", name), name
         assert _check(tmp_path / "ours.gpkg", name) == "ok"
+
+
+def test_layers_with_the_same_boxes_get_the_same_index(tmp_path, monkeypatch):
+    """Two layers of the same geometry (a run's scenario layers share the network's): the
+    second gets a copy of the first's index; both equal the index GDAL builds for each, and
+    SQLite's check passes on both. A third layer with other boxes gets its own index."""
+    layer = _lines(6000, seed=12)
+    other = layer.copy()
+    other["flow_gpm"] = -other["flow_gpm"]
+    moved = layer.copy()
+    moved["geometry"] = moved.geometry.translate(5.0, 0.0)
+    ours, ref = tmp_path / "ours.gpkg", tmp_path / "ref.gpkg"
+    copied = []
+    real = rtree.copy_index
+    monkeypatch.setattr(rtree, "copy_index", lambda con, lay, src: (copied.append(
+        (lay.table, src)), real(con, lay, src))[1])
+    write_layers(ours, {"a": layer, "b": other, "c": moved})
+    assert copied == [("b", "rtree_a_geom")]
+    for name, df in (("a", layer), ("b", other), ("c", moved)):
+        pyogrio.write_dataframe(df, ref, layer=name, driver="GPKG", use_arrow=True)
+        assert _rows(ours, name) == _rows(ref, name), name
+        assert _check(ours, name) == "ok"
+    assert _rows(ours, "a") != _rows(ours, "c")
+    con = sqlite3.connect(ours)
+    q = "SELECT extension_name FROM gpkg_extensions WHERE table_name = ?"
+    assert [con.execute(q, (t,)).fetchall() for t in "abc"] == [[("gpkg_rtree_index",)]] * 3
+    con_ref = sqlite3.connect(ref)
+    m = ("SELECT type, name, tbl_name, sql FROM sqlite_master WHERE name LIKE 'rtree_%' "
+         "ORDER BY name")
+    assert con.execute(m).fetchall() == con_ref.execute(m).fetchall()
+    con.close(), con_ref.close()
+    got = pyogrio.read_dataframe(ours, layer="b", bbox=(2000, 3000, 6000, 5000))
+    assert len(got) == len(pyogrio.read_dataframe(ref, layer="b", bbox=(2000, 3000, 6000, 5000)))

@@ -144,6 +144,37 @@ def test_deferred_layer_with_row_geometry_writes_the_built_layer(tmp_path, monke
     assert asked == [slice(a, min(a + 10, 57)) for a in range(0, 57, 10)]
 
 
+@pytest.mark.parametrize("budget", [0, 4000, 2**28])
+def test_layers_sharing_a_geometry_array_write_as_each_alone(tmp_path, monkeypatch, budget):
+    """Layers written in parts whose geometry is one array (a run's scenario layers): each
+    equals pyogrio's default write of it (the reference), whether its WKB is encoded again or
+    reused (the byte budget for reuse: none, a few batches, all); reused batches are not
+    encoded again."""
+    import pyarrow as pa
+
+    from gridflow.io import wkb
+
+    monkeypatch.setattr(w, "BATCH_ROWS", 10)
+    monkeypatch.setattr(w, "SHARED_WKB_BYTES", budget)
+    encoded = []
+    real = wkb.wkb_array
+    monkeypatch.setattr(wkb, "wkb_array", lambda g: (encoded.append(len(g)), real(g))[1])
+    pipes = _layers()["pipes_x"]
+    geoms = np.asarray(pipes.geometry.values)
+    frames = {f"pipes_{k}": pipes.assign(flow_gpm=pipes["flow_gpm"] * k) for k in (1, 2, 3)}
+    layers = {name: DeferredLayer(lambda df=df: df, len(df), parts=lambda df=df: (
+        pa.Table.from_pandas(pd.DataFrame(df.drop(columns="geometry")), preserve_index=False),
+        geoms, "LineString Z"), crs=CRS) for name, df in frames.items()}
+    write_layers(tmp_path / "ours.gpkg", layers)
+    _reference(tmp_path / "ref.gpkg", frames)
+    _assert_same_file(tmp_path / "ours.gpkg", tmp_path / "ref.gpkg")
+    kept = {0: 0, 4000: None, 2**28: 57}[budget]
+    if kept is not None:
+        assert sum(encoded) == 3 * 57 - 2 * kept
+    else:
+        assert 57 < sum(encoded) < 3 * 57
+
+
 def _config_now() -> dict:
     return {k: pyogrio.get_gdal_config_option(k) for k in GPKG_WRITE_OPTIONS}
 
