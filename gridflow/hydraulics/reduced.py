@@ -55,6 +55,7 @@ import time
 import numpy as np
 
 from gridflow.hydraulics.draw import DrawSolver
+from gridflow.hydraulics.extremes import DrawExtremes
 from gridflow.hydraulics.links import G_FLOOR
 from gridflow.hydraulics.reduction import Reduction
 from gridflow.hydraulics.results import CLOSED, DRAW_MODES, OPEN, DrawOutcome, HydraulicResult
@@ -105,6 +106,11 @@ class _LazyResult(HydraulicResult):
             if name in d:
                 return d[name]
         raise AttributeError(name)
+
+    @property
+    def arrays_pending(self) -> bool:
+        """True until the whole-network arrays are made."""
+        return "_make" in self.__dict__
 
     @classmethod
     def of(cls, make, more, **scalars) -> _LazyResult:
@@ -191,6 +197,7 @@ class ReducedDrawSolver:
         self._keep = keep
         self._root: ReducedDrawSolver = self
         self._variants: dict[bytes, ReducedDrawSolver] = {}
+        self._extremes: dict[tuple, DrawExtremes] = {}
         self._state_key = np.asarray(base.link_state, dtype=np.int8).tobytes()
         self._changed: np.ndarray | None = None
         self.refactor_ratio = float(refactor_ratio)
@@ -308,6 +315,22 @@ class ReducedDrawSolver:
         self._g.pop("work", None)
         for v in self._variants.values():
             v.reset()
+
+    def extremes(self, check: np.ndarray, zone: np.ndarray, main_pipe: np.ndarray
+                 ) -> DrawExtremes | None:
+        """The lowest-pressure and fastest-pipe finder for this solver's solutions (made once
+        per set of arrays; None where it does not apply)."""
+        key = (id(check), id(zone), id(main_pipe))
+        got = self._extremes.get(key)
+        if got is None:
+            got = self._extremes[key] = DrawExtremes(self, check, zone, main_pipe)
+        return got if got.usable else None
+
+    @staticmethod
+    def no_entry() -> _Entry:
+        """An entry that draws nothing (a rebuild of the base state)."""
+        z = np.zeros(0, dtype=np.int64)
+        return _Entry(-1, -1, -1, -1, 0, 0, 0, z, np.zeros(0), np.zeros(0), None)
 
     def full(self) -> DrawSolver:
         """The whole-network draw solver (built when first needed)."""
@@ -710,7 +733,7 @@ class ReducedDrawSolver:
             mass_tolerance_m3s=opt.flow_tolerance, seconds=time.perf_counter() - t0,
             factorizations=self._root.factorizations - f0, message=msg,
             extra={"draw_m3s": d, "factor_token": None, "reduced": (Q, H, d),
-                   "reduced_by": self,
+                   "reduced_by": self, "solved": (ent, hg),
                    "node": ent.k, "node_head_m": hk})
         return DrawOutcome(success=True, status=0, message=msg, result=r,
                            draw_m3s=float(d), nit=it)

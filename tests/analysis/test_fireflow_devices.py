@@ -61,3 +61,41 @@ def test_status_changes_answered_on_the_reduced_network_equal_full_newton(proble
         a, b = fast.residual_at_required, full.residual_at_required
         assert (np.isnan(a) and np.isnan(b)) or a == pytest.approx(b, abs=1e-4), (j, a, b)
         assert fast.achievable == full.achievable
+
+
+@pytest.mark.parametrize("minimum_psi", [20.0, 45.0])
+def test_system_wide_check_without_the_rebuild_changes_no_figure(problem, monkeypatch,
+                                                                  minimum_psi):
+    # the lowest pressure and fastest pipe of each draw come from bounds and a partial
+    # rebuild of the reduced solution; every figure of every third hydrant must be what the
+    # whole rebuilt solution gives, with the system minimum at 20 psi (common practice) and
+    # raised to 45 psi so that other nodes limit many draws
+    import dataclasses
+
+    from gridflow.analysis.fireflow.problem import FireflowProblem
+    from gridflow.units import M_HEAD_PER_PSI
+
+    p = dataclasses.replace(problem, minimum_m=minimum_psi * M_HEAD_PER_PSI)
+    rows = np.flatnonzero(p.in_service)[::3]
+    used = []
+    real = FireflowProblem._extremes
+
+    def counted(self, r):
+        got = real(self, r)
+        used.append(got is not None)
+        return got
+
+    run_rows(p, rows[:3])  # what the first solves of a process make once
+    monkeypatch.setattr(FireflowProblem, "_extremes", counted)
+    fast = run_rows(p, rows)
+    monkeypatch.setattr(FireflowProblem, "_extremes", lambda self, r: None)
+    slow = run_rows(p, rows)
+    assert sum(used) >= len(rows) // 2  # the bounds answered most draws
+    for name, a in fast.items():
+        b = slow[name]
+        if a.dtype.kind == "f":
+            np.testing.assert_allclose(a, b, rtol=1e-12, atol=1e-12, err_msg=name)
+        else:
+            assert np.array_equal(a, b), name
+    if minimum_psi > 20:
+        assert (fast["limit"] == 1).sum() >= 10  # held at another node's pressure

@@ -245,3 +245,75 @@ def test_status_variants_kept_within_their_memory(monkeypatch):
             rs.solve(int(k), "head", base.head_m[k] - drop)
     assert len(rs._variants) == 1
     assert rs.fallbacks >= 1 and rs.variant_solves >= 1
+
+
+def test_lowest_pressure_and_fastest_pipe_without_the_rebuild():
+    # the system-wide check's answers from bounds and a partial rebuild: the same node and
+    # link as the whole rebuilt solution (ties to the lowest position), for draws at core,
+    # chain and tree nodes, checked nodes and zones drawn at random (zones that cut through
+    # chains and trees too); the whole rebuild is itself checked for mass balance and head
+    # loss against the published formulas, and against full Newton solves, above
+    from gridflow.hydraulics.extremes import DrawExtremes
+
+    kinds, compared = set(), 0
+    for seed in range(40):
+        network = stringy_network(seed, 14)
+        system = HydraulicSystem(network, TIGHT)
+        base = system.solve(raise_on_failure=False)
+        if not base.converged:
+            continue
+        rs = ReducedDrawSolver(system, base)
+        red = rs.red
+        rng = np.random.default_rng(seed)
+        check = rng.random(network.n_nodes) < 0.8
+        zone = rng.integers(0, 2, network.n_nodes) if seed % 2 else np.zeros(network.n_nodes,
+                                                                             dtype=np.int64)
+        main = rng.random(network.n_links) < 0.9
+        ex = DrawExtremes(rs, check, zone, main)
+        assert ex.usable
+        free = np.flatnonzero(~network.is_fixed)
+        for k, share in zip(free[:: max(1, len(free) // 6)], [0.5, 0.01] * len(free)):
+            # a large draw (its chain or tree holds the extremes) and a small one (they stay
+            # where the base flows put them)
+            k = int(k)
+            head = base.head_m[k] - share * (base.head_m[k] - network.elevation_m[k])
+            out = rs.solve(k, "head", head)
+            if not out.success:
+                continue
+            r = out.result
+            Q, H, d = r.extra["reduced"]
+            ent, hg = r.extra["solved"]
+            got_v = ex.fastest(Q, d, ent)
+            for z in np.unique(zone):
+                for exclude in (k, int(free[0])):
+                    got = ex.lowest(Q, H, d, ent, hg, int(z), exclude)
+                    mask = check & base.supplied & (zone == z)
+                    mask[exclude] = False
+                    idx = np.flatnonzero(mask)
+                    p = r.pressure_m[idx]
+                    assert got[1] == int(idx[np.argmin(p)]), (seed, k)
+                    assert got[0] == pytest.approx(float(p.min()), abs=1e-9)
+            idx = np.flatnonzero(main & np.isfinite(r.velocity_ms))
+            v = np.abs(r.velocity_ms[idx])
+            assert got_v == (float(v.max()), int(idx[np.argmax(v)]))
+            # the bounds themselves: no unit's checked node below its pressure bound, no
+            # chain's main pipe above its speed bound (the draw's own unit aside)
+            unit = np.full(network.n_nodes, -1)
+            unit[red.inner_exit] = red.chain_of_link[red.inner_links]
+            tn = red.tree_child
+            root = red.tree_root[tn]
+            unit[tn] = np.where(red.core_pos[root] >= 0, ex.C + red.core_pos[root],
+                                red.node_chain[root])
+            own = ex._entry_unit(ent)
+            for z in np.unique(zone):
+                lb = ex.pressure_bounds(H, int(z))
+                at = np.flatnonzero(check & base.supplied & (zone == z) & (unit >= 0)
+                                    & (unit != own))
+                assert np.all(lb[unit[at]] <= r.pressure_m[at]), (seed, k)
+            ub = ex.speed_bounds(Q)
+            at = red.chain_links[main[red.chain_links]]
+            ch = red.chain_of_link[main[red.chain_links]]
+            assert np.all(np.abs(r.velocity_ms[at]) <= np.where(ch == ent.chain, np.inf, ub[ch]))
+            compared += 1
+            kinds.add("tree" if red.gone[k] else "core" if red.core_pos[k] >= 0 else "chain")
+    assert compared >= 100 and kinds == {"tree", "core", "chain"}, (compared, kinds)

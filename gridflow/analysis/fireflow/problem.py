@@ -227,7 +227,14 @@ class FireflowProblem:
         the lowest other checked node of the hydrant's zone against the system minimum, the
         fastest checked pipe against the velocity limit (``inf``, -1 where not checked)."""
         pm, pn, vm, vl = np.inf, -1, np.inf, -1
-        if self.system_wide:
+        fast = self._extremes(r)
+        if self.system_wide and fast is not None:
+            finder, (Q, H, d), (ent, hg) = fast
+            low, node = finder.lowest(Q, H, d, ent, hg, int(self.zone_code[j]),
+                                      int(self.main_idx[j]))
+            if node >= 0:
+                pm, pn = low - self.minimum_m, node
+        elif self.system_wide:
             mask = self.check_node & (self.node_zone_code == self.zone_code[j])
             mask[self.main_idx[j]] = False
             idx = np.flatnonzero(mask & r.supplied)
@@ -243,8 +250,27 @@ class FireflowProblem:
                 vm, vl = float(self.max_velocity_ms - v[a]), int(idx[a])
         return pm, pn, vm, vl
 
+    def _extremes(self, r: HydraulicResult):
+        """``(finder, (Q, H, d), (entry, group losses))`` of a reduced draw solution whose
+        whole-network arrays are not made yet (the lowest pressure and fastest pipe then come
+        without them, :class:`gridflow.hydraulics.extremes.DrawExtremes`); None otherwise."""
+        if not getattr(r, "arrays_pending", False):
+            return None
+        extra = r.extra
+        state, solved, by = extra.get("reduced"), extra.get("solved"), extra.get("reduced_by")
+        if state is None or solved is None or by is None:
+            return None
+        finder = by.extremes(self.check_node, self.node_zone_code, self.main_pipe)
+        return None if finder is None else (finder, state, solved)
+
     def fastest_pipe(self, r: HydraulicResult) -> tuple[float, int]:
         """(highest pipe velocity [m/s], its link position) of a solution; laterals excluded."""
+        fast = self._extremes(r)
+        if fast is not None:
+            finder, (Q, _, d), (ent, _) = fast
+            got = finder.fastest(Q, d, ent)
+            if got is not None:
+                return got
         idx = np.flatnonzero(self.main_pipe & np.isfinite(r.velocity_ms))
         if not idx.size:
             return np.nan, -1
