@@ -16,6 +16,7 @@ from gridflow.topology.idtext import joined, two_decimals
 from gridflow.topology.lines import (
     Vertices,
     end_points,
+    flat,
     set_end_points,
     snap_labels,
     vertices,
@@ -90,7 +91,9 @@ def snap_ends(ctx: Context, pipes: Pipes) -> Snapped:
             msgs = [f"{c} pipe ends joined; an end moved {d:.2f} m" for c, d in
                     zip(k[cl].tolist(), dmax[cl].tolist())]
         f.add_many("end_snapped", "info", layer, ids[first[cl]], msgs, cpts[cl])
-        geoms = set_end_points(geoms, cxy[lab_s], cxy[lab_e], vert)
+        geoms = set_end_points(geoms, cxy[lab_s], cxy[lab_e], vert)  # 2-D
+    else:  # no end moved: the mains as prepared, drawn in 2-D
+        geoms = flat(geoms)
     # z at clusters, for elevation source z
     cluster_z = np.full(len(cxy), np.nan)
     if "z0" in df:
