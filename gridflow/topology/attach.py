@@ -21,6 +21,8 @@ Split events on a main, all found with one STRtree over the mains (applied by
 
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
 import shapely
 
@@ -245,12 +247,14 @@ def _hydrant_events(ctx, sn, tree, glen, keys, hyd, t_line, t_key, t_s, lr):
                [f"no main within {sd:g} m (nearest {x:.2f} m); hydrant left out of the "
                 "fire-flow analysis" for x in full[un]], pts[un])
     far = dist > tol
-    text = two_decimals(dist[far])  # every row's message by array work where it can be
-    msgs = None if text is None else joined("attached to main ", sn.ids[li[far]], " ", text,
-                                            " m away")
-    if msgs is None:
-        msgs = [f"attached to main {m} {x:.2f} m away" for m, x in
-                zip(sn.ids[li[far]].tolist(), dist[far].tolist())]
+    msgs: Any = ""  # only counted (a run's log): no message written
+    if f.keeps("info"):  # every row's message, by array work where it can be
+        text = two_decimals(dist[far])
+        msgs = None if text is None else joined("attached to main ", sn.ids[li[far]], " ",
+                                                text, " m away")
+        if msgs is None:
+            msgs = [f"attached to main {m} {x:.2f} m away" for m, x in
+                    zip(sn.ids[li[far]].tolist(), dist[far].tolist())]
     f.add_many("hydrant_attached", "info", layer, ids[pi[far]], msgs, pts[pi[far]])
     s = lr.locate(li, shapely.get_coordinates(pts[pi]))
     L = glen[li]
