@@ -57,6 +57,11 @@ class Findings:
         """Add one finding."""
         self.add_many(kind, severity, layer, [feature_id], [message], [geometry])
 
+    def keeps(self, severity: Severity) -> bool:
+        """True when findings of ``severity`` are kept as rows (their messages are read);
+        False when they are only counted, so a caller may skip writing their messages."""
+        return self.keep_routine or severity != ROUTINE_SEVERITY
+
     def add_many(self, kind: str, severity: Severity, layer: str,
                  feature_ids: Sequence | np.ndarray,
                  messages: Sequence[str] | np.ndarray | str,

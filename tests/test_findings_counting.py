@@ -41,3 +41,22 @@ def test_extend_keeps_the_counts():
     lean.extend(_fill(Findings(keep_routine=False)))
     assert lean.routine_counts() == {"end_snapped": 6, "hydrant_attached": 4}
     assert lean.count(severity="warning") == 2 and len(lean.kind) == 4
+
+
+def test_cleaning_with_a_counting_log_counts_what_a_full_log_keeps():
+    """The stages skip writing routine messages a counting log would drop: the counts, the
+    kept rows and the network are what a full log's build gives."""
+    from pathlib import Path
+
+    from gridflow.config import load_config
+    from gridflow.topology import build_network
+
+    cfg = load_config(Path(__file__).resolve().parents[1] / "sample_gis" / "millbrook.toml")
+    full, lean = Findings(), Findings(keep_routine=False)
+    a, b = build_network(cfg, full), build_network(cfg, lean)
+    counts = full.routine_counts()
+    assert counts["end_snapped"] > 0 and counts["hydrant_attached"] > 0
+    assert lean.routine_counts() == counts
+    pd.testing.assert_frame_equal(pd.DataFrame(full.to_geodataframe(routine=False)),
+                                  pd.DataFrame(lean.to_geodataframe(routine=False)))
+    assert list(a.network.link_id) == list(b.network.link_id)

@@ -21,10 +21,13 @@ Split events on a main, all found with one STRtree over the mains (applied by
 
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
 import shapely
 
 from gridflow.topology.idtext import joined, two_decimals
+from gridflow.topology.lines import distance, interpolate, locate, measures, vertices
 from gridflow.topology.nearest import box_query, nearest_lines
 from gridflow.topology.points import column, point_layer, text_in
 from gridflow.topology.records import Attached, Context, Device, PointLayer, Snapped
@@ -57,11 +60,12 @@ def attach_points(ctx: Context, sn: Snapped) -> Attached:
     f = ctx.findings
     glen = shapely.length(sn.geoms) if sn.length_m is None else sn.length_m
     tree = shapely.STRtree(sn.geoms)
+    lr = _Referencing(sn)
     keys = _Keys(sn.cxy, sn.cluster_pts)
-    t_line, t_key, t_s = t_events(ctx, sn, tree, glen)
+    t_line, t_key, t_s = t_events(ctx, sn, tree, glen, lr)
     hyd = point_layer(ctx, "hydrants")
     hyd_key, ev_line, ev_key, ev_s, ev_xy = _hydrant_events(ctx, sn, tree, glen, keys, hyd,
-                                                            t_line, t_key, t_s)
+                                                            t_line, t_key, t_s, lr)
     # split events gathered in parts (hydrants and T-junctions, rings, each device role),
     # joined once at the end
     ev: dict[str, list] = {"line": [ev_line], "s": [ev_s], "xy": [ev_xy], "up": [ev_key],
@@ -77,15 +81,14 @@ def attach_points(ctx: Context, sn: Snapped) -> Attached:
         _add(ev, line=ring, s=rs, xy=rxy, up=rk, down=rk)
     start_key, end_key = sn.lab_s.copy(), sn.lab_e.copy()
     devices = []
-    for pl, li, s, end in _device_events(ctx, sn, tree, glen):
+    for pl, li, s, end in _device_events(ctx, sn, tree, glen, lr):
         m = len(li)
         up, down = np.empty(m, int), np.empty(m, int)
         inner = end < 0
-        ppts = shapely.line_interpolate_point(sn.geoms[li], s)
-        pxy = shapely.get_coordinates(ppts)
+        pxy = lr.interpolate(li, s)  # a point made only where a device cuts its main
         if inner.any():
             k = keys.new(np.repeat(pxy[inner], 2, axis=0),
-                         np.repeat(ppts[inner], 2)).reshape(-1, 2)
+                         np.repeat(shapely.points(pxy[inner]), 2)).reshape(-1, 2)
             up[inner], down[inner] = k[:, 0], k[:, 1]
             _add(ev, line=li[inner], s=s[inner], xy=pxy[inner], up=up[inner],
                  down=down[inner])
@@ -140,7 +143,27 @@ def _add(ev: dict[str, list], **parts) -> None:
         ev[name].append(part)
 
 
-def t_events(ctx: Context, sn: Snapped, tree, glen: np.ndarray):
+class _Referencing:
+    """Distances along the snapped mains and points at distances along them, from their
+    coordinates: ``shapely.line_locate_point`` and ``shapely.line_interpolate_point``'s
+    answers to the last bit (see :func:`gridflow.topology.lines.locate`), without a point
+    geometry per question or answer."""
+
+    def __init__(self, sn: Snapped):
+        self.lines = sn.geoms
+        self.v = vertices(sn.geoms) if sn.vertices is None else sn.vertices
+        self.m = measures(self.v)
+
+    def locate(self, line: np.ndarray, xy: np.ndarray) -> np.ndarray:
+        """Distance [m] along each main ``line`` to the point on it nearest ``xy``."""
+        return locate(self.lines, self.v, self.m, line, xy)
+
+    def interpolate(self, line: np.ndarray, s: np.ndarray) -> np.ndarray:
+        """The point ``(k, 2)`` [m] at distance ``s`` along each main ``line``."""
+        return interpolate(self.lines, self.v, self.m, line, s)
+
+
+def t_events(ctx: Context, sn: Snapped, tree, glen: np.ndarray, lr: _Referencing | None = None):
     """T-junctions: (main, key, distance along the main) of each dangling end joined; every
     T-join and every near miss not joined is a finding."""
     f, tol = ctx.findings, ctx.tol
@@ -153,10 +176,11 @@ def t_events(ctx: Context, sn: Snapped, tree, glen: np.ndarray):
     pi, li = box_query(tree, cpts, tol)
     own = (sn.lab_s[li] == pi) | (sn.lab_e[li] == pi)
     pi, li = pi[~own], li[~own]
-    d = shapely.distance(sn.geoms[li], cpts[pi])
+    lr = _Referencing(sn) if lr is None else lr
+    d = distance(sn.geoms, lr.v, li, sn.cxy[pi])
     near = d <= tol
     pi, li, d = pi[near], li[near], d[near]
-    s = shapely.line_locate_point(sn.geoms[li], cpts[pi])
+    s = lr.locate(li, sn.cxy[pi])
     inside = (s > _EPS) & (s < glen[li] - _EPS)
     pi, li, s, d = pi[inside], li[inside], s[inside], d[inside]
     if len(pi) == 0:
@@ -191,12 +215,13 @@ def t_events(ctx: Context, sn: Snapped, tree, glen: np.ndarray):
     return li[take], pi[take], s[take]
 
 
-def _nearest(tree, geoms, pts, sd):
-    """(point idx, line idx, distance) of the nearest main within ``sd``; and all distances."""
+def _nearest(tree, geoms, pts, sd, verts=None):
+    """(point idx, line idx, distance) of the nearest main within ``sd``; and all distances
+    (``verts``: the mains' vertices, to measure from them)."""
     if len(pts) == 0 or len(geoms) == 0:
         return (np.zeros(0, int),) * 2 + (np.zeros(0),), np.full(len(pts), np.inf)
     pts = shapely.force_2d(pts) if shapely.has_z(pts).any() else pts
-    pi, li, dist = nearest_lines(tree, geoms, pts, sd)
+    pi, li, dist = nearest_lines(tree, geoms, pts, sd, verts=verts)
     full = np.full(len(pts), np.inf)
     full[pi] = dist
     un = np.flatnonzero(~np.isfinite(full))
@@ -206,7 +231,7 @@ def _nearest(tree, geoms, pts, sd):
     return (pi, li, dist), full
 
 
-def _hydrant_events(ctx, sn, tree, glen, keys, hyd, t_line, t_key, t_s):
+def _hydrant_events(ctx, sn, tree, glen, keys, hyd, t_line, t_key, t_s, lr):
     """Hydrant nodes; merges hydrant and T events within the tolerance of each other."""
     nh = 0 if hyd is None else len(hyd.frame)
     hyd_key = np.full(nh, -1)
@@ -215,29 +240,30 @@ def _hydrant_events(ctx, sn, tree, glen, keys, hyd, t_line, t_key, t_s):
     f, tol, layer, pts = ctx.findings, ctx.tol, hyd.layer, hyd.pts
     ids = hyd.ids
     sd = ctx.search_distance("hydrants")
-    (pi, li, dist), full = _nearest(tree, sn.geoms, pts, sd)
+    (pi, li, dist), full = _nearest(tree, sn.geoms, pts, sd, lr.v)
     un = np.ones(nh, bool)
     un[pi] = False
     f.add_many("hydrant_unattached", "warning", layer, ids[un],
                [f"no main within {sd:g} m (nearest {x:.2f} m); hydrant left out of the "
                 "fire-flow analysis" for x in full[un]], pts[un])
     far = dist > tol
-    text = two_decimals(dist[far])  # every row's message by array work where it can be
-    msgs = None if text is None else joined("attached to main ", sn.ids[li[far]], " ", text,
-                                            " m away")
-    if msgs is None:
-        msgs = [f"attached to main {m} {x:.2f} m away" for m, x in
-                zip(sn.ids[li[far]].tolist(), dist[far].tolist())]
+    msgs: Any = ""  # only counted (a run's log): no message written
+    if f.keeps("info"):  # every row's message, by array work where it can be
+        text = two_decimals(dist[far])
+        msgs = None if text is None else joined("attached to main ", sn.ids[li[far]], " ",
+                                                text, " m away")
+        if msgs is None:
+            msgs = [f"attached to main {m} {x:.2f} m away" for m, x in
+                    zip(sn.ids[li[far]].tolist(), dist[far].tolist())]
     f.add_many("hydrant_attached", "info", layer, ids[pi[far]], msgs, pts[pi[far]])
-    s = shapely.line_locate_point(sn.geoms[li], pts[pi])
+    s = lr.locate(li, shapely.get_coordinates(pts[pi]))
     L = glen[li]
     at0, at1 = s <= tol, s >= L - tol
     hyd_key[pi[at0]] = sn.lab_s[li[at0]]
     hyd_key[pi[at1 & ~at0]] = sn.lab_e[li[at1 & ~at0]]
     mid = ~at0 & ~at1
     h_pi, h_li, h_s = pi[mid], li[mid], s[mid]
-    h_pts = shapely.line_interpolate_point(sn.geoms[h_li], h_s)
-    h_xy = shapely.get_coordinates(h_pts)
+    h_xy = lr.interpolate(h_li, h_s)
     # merge with T events on the same main within the tolerance
     line = np.concatenate([t_line, h_li])
     s_all = np.concatenate([t_s, h_s])
@@ -256,9 +282,8 @@ def _hydrant_events(ctx, sn, tree, glen, keys, hyd, t_line, t_key, t_s):
     g_h[gid[hpos]] = hpos
     hk = np.full(len(order), -1)
     lead = ~it & (g_t[gid] < 0) & (g_h[gid] == np.arange(len(order)))
-    hk[lead] = keys.new(np.concatenate([np.zeros((len(t_line), 2)), h_xy])[order][lead],
-                        np.concatenate([np.full(len(t_line), None, dtype=object),
-                                        h_pts])[order][lead])
+    lead_row = order[lead] - len(t_line)  # lead events are hydrant rows: points made there
+    hk[lead] = keys.new(h_xy[lead_row], shapely.points(h_xy[lead_row]))
     joint = ~it & (g_t[gid] >= 0)
     hk[joint] = g_t[gid[joint]]
     follow = ~it & ~lead & ~joint
@@ -274,7 +299,7 @@ def _hydrant_events(ctx, sn, tree, glen, keys, hyd, t_line, t_key, t_s):
     return hyd_key, ev_line, ev_key, ev_s, ev_xy
 
 
-def _device_events(ctx: Context, sn: Snapped, tree, glen):
+def _device_events(ctx: Context, sn: Snapped, tree, glen, lr: _Referencing):
     """Valves and pumps: (points, main, distance along it, end: 0 / 1 / -1 inside)."""
     out = []
     for role in ("valves", "pumps"):
@@ -283,13 +308,13 @@ def _device_events(ctx: Context, sn: Snapped, tree, glen):
             continue
         f, layer, fr, pts = ctx.findings, pl.layer, pl.frame, pl.pts
         sd = ctx.search_distance(role)
-        (pi, li, dist), full = _nearest(tree, sn.geoms, pts, sd)
+        (pi, li, dist), full = _nearest(tree, sn.geoms, pts, sd, lr.v)
         un = np.ones(len(fr), bool)
         un[pi] = False
         f.add_many(f"{role[:-1]}_unattached", "warning", layer, _ids_at(fr, un),
                    [f"no main within {sd:g} m (nearest {x:.2f} m); {role[:-1]} left out"
                     for x in full[un]], pts[un])
-        s = shapely.line_locate_point(sn.geoms[li], pts[pi])
+        s = lr.locate(li, shapely.get_coordinates(pts[pi]))
         L = glen[li]
         end = np.where(s <= ctx.tol, 0, np.where(s >= L - ctx.tol, 1, -1))
         # one device per main end

@@ -42,8 +42,14 @@ def suffixed(ids: np.ndarray, k: np.ndarray, sep: str = ".") -> np.ndarray:
 
 
 def numbered(prefix: str, n: int):
-    """``prefix1`` ... ``prefix<n>`` as an Arrow ``large_string`` array, its bytes written
-    by array arithmetic (all numbers of one length at once), not one str per number.
+    """``prefix1`` ... ``prefix<n>`` as an Arrow ``large_string`` array, made by Arrow's
+    cast of the numbers to text and one row-wise join, not one str per number.
+
+    Notes
+    -----
+    Arrow writes an integer as its decimal digits, a minus sign for negatives, no leading
+    zeros: the text of ``f"{i}"`` for each ``i`` (about 4x faster than writing the digits
+    with numpy array arithmetic at two million numbers).
 
     Examples
     --------
@@ -51,28 +57,11 @@ def numbered(prefix: str, n: int):
     ['N10', 'N11', 'N12']
     """
     import pyarrow as pa
+    import pyarrow.compute as pc
 
-    head = np.frombuffer(prefix.encode(), dtype=np.uint8)
-    h = len(head)
-    # 1 ... n in ascending order: the numbers of d digits are one block, 10**(d-1) up to
-    # 10**d - 1, each written as a (numbers, h + d) table of bytes; the tables laid end to
-    # end are the text
-    blocks, widths, sizes = [], [], []
-    lo, d = 1, 1
-    while lo <= n:
-        hi = min(n, 10**d - 1)
-        i = np.arange(lo, hi + 1, dtype=np.int64)
-        table = np.empty((len(i), h + d), dtype=np.uint8)
-        table[:, :h] = head
-        table[:, h:] = 48 + (i[:, None] // 10 ** np.arange(d - 1, -1, -1, dtype=np.int64)) % 10
-        blocks.append(table.ravel())
-        widths.append(h + d)
-        sizes.append(len(i))
-        lo, d = hi + 1, d + 1
-    offsets = np.zeros(n + 1, dtype=np.int64)
-    np.cumsum(np.repeat(np.asarray(widths, dtype=np.int64), sizes), out=offsets[1:])
-    data = np.concatenate(blocks) if blocks else np.zeros(0, dtype=np.uint8)
-    return pa.LargeStringArray.from_buffers(n, pa.py_buffer(offsets), pa.py_buffer(data))
+    num = pa.array(np.arange(1, n + 1, dtype=np.int64)).cast(pa.large_string())
+    return pc.binary_join_element_wise(pa.scalar(prefix, pa.large_string()), num,
+                                       pa.scalar("", pa.large_string()))
 
 
 #: largest value :func:`two_decimals` writes (its cents stay exact in 64-bit integers)

@@ -57,30 +57,28 @@ def link_table(ctx: Context, sn: Snapped, at: Attached, sp: Split, nt: NodeTable
     length = np.maximum(length, _EPS)
     # closed per main, then spread to its pieces (the text work once per main, not per piece)
     closed = text_in(df, "status", CLOSED_WORDS)[pl]
-    m = len(pl)
-    ids: list = [sp.pipe_id]
-    cols: dict[str, list] = {
-        "from": [nt.idx_of_key[sp.from_key]],
-        "to": [nt.idx_of_key[sp.to_key]], "kind": [np.full(m, LINK_PIPE)],
-        "length": [length], "diameter": [df["diameter"].to_numpy(dtype=float)[pl]],
-        "rough": [df["roughness"].to_numpy(dtype=float)[pl]],
-        "mk": [np.nan_to_num(df["minor_loss_k"].to_numpy(dtype=float)[pl], nan=0.0)],
-        "status": [np.where(closed, STATUS_CLOSED, STATUS_OPEN)],
-        "vt": [np.zeros(m, int)], "vs": [np.full(m, np.nan)], "pa": [np.full(m, np.nan)],
-        "pb": [np.full(m, np.nan)], "pc": [np.full(m, np.nan)], "speed": [np.ones(m)],
-        "geom": [sp.pieces], "material": [df["material"].to_numpy(dtype=object)[pl]],
-        "year": [df["install_year"].to_numpy(dtype=float)[pl]],
-        "rating": [df["pressure_rating"].to_numpy(dtype=float)[pl]],
-        "zone": [df["zone"].to_numpy(dtype=object)[pl]],
-    }
-    for d in at.devices:
-        dev_ids, dev_cols = _device_columns(ctx, sn, d, nt)
-        ids.append(dev_ids)
-        for k, v in dev_cols.items():
-            cols[k].append(v)
-    # each column joined, and its parts let go before the next is made (their memory is
-    # used again instead of fresh pages for every column)
-    c = {k: np.concatenate(cols.pop(k)) for k in list(cols)}
+    devices = [_device_columns(ctx, sn, d, nt) for d in at.devices]  # a few: small parts
+    ids: list = [sp.pipe_id] + [dev_ids for dev_ids, _ in devices]
+    cols = _Columns(len(pl), [dev_cols for _, dev_cols in devices])
+    cols.put("from", nt.idx_of_key[sp.from_key])
+    cols.put("to", nt.idx_of_key[sp.to_key])
+    cols.fill("kind", LINK_PIPE)
+    cols.put("length", length)
+    del plen, attr_len, frac, length
+    cols.put("diameter", df["diameter"].to_numpy(dtype=float)[pl])
+    cols.put("rough", df["roughness"].to_numpy(dtype=float)[pl])
+    cols.put("mk", np.nan_to_num(df["minor_loss_k"].to_numpy(dtype=float)[pl], nan=0.0))
+    cols.put("status", np.where(closed, STATUS_CLOSED, STATUS_OPEN))
+    cols.fill("vt", 0)
+    for name in ("vs", "pa", "pb", "pc"):
+        cols.fill(name, np.nan)
+    cols.fill("speed", 1.0)
+    cols.put("geom", sp.pieces)
+    cols.put("material", df["material"].to_numpy(dtype=object)[pl])
+    cols.put("year", df["install_year"].to_numpy(dtype=float)[pl])
+    cols.put("rating", df["pressure_rating"].to_numpy(dtype=float)[pl])
+    cols.put("zone", df["zone"].to_numpy(dtype=object)[pl])
+    c = cols.done
     text = arrow.concat_arrays(ids)
     c["link_id"] = text.to_numpy(zero_copy_only=False)
     if all_distinct(c["link_id"]):  # the usual case: one hash pass, every id a str
@@ -175,6 +173,45 @@ def _device_columns(ctx: Context, sn: Snapped, dev: Device, nt: NodeTable) -> tu
             "speed": speed, "geom": geom, "material": np.full(m, None, dtype=object),
             "year": np.full(m, np.nan), "rating": np.full(m, np.nan),
             "zone": df["zone"].to_numpy(dtype=object)[li]}
+
+
+class _Columns:
+    """The link columns, each made once at its full length: the pipes' part written into
+    its head, the devices' parts after it.
+
+    Notes
+    -----
+    What ``np.concatenate`` of each column's parts gives (the same values and dtype), without
+    holding every pipe part at once until the columns are joined: each pipe part is a
+    temporary let go as soon as it is written (or a constant filled in place), so its memory
+    is used again by the next column instead of fresh pages (a page fault each; at a million
+    mains these parts are hundreds of megabytes).
+    """
+
+    def __init__(self, m: int, devices: list[dict]):
+        self.m = m
+        self.devices = devices
+        self.n = m + sum(len(d["kind"]) for d in devices)
+        self.done: dict[str, np.ndarray] = {}
+
+    def _column(self, name: str, pipe_dtype) -> np.ndarray:
+        parts = [d[name] for d in self.devices]
+        out = np.empty(self.n, dtype=np.result_type(pipe_dtype, *(p.dtype for p in parts)))
+        at = self.m
+        for p in parts:
+            out[at:at + len(p)] = p
+            at += len(p)
+        self.done[name] = out
+        return out
+
+    def put(self, name: str, pipe: np.ndarray) -> None:
+        """The column ``name``: ``pipe`` for the pipes, then each device part."""
+        self._column(name, pipe.dtype)[:self.m] = pipe
+
+    def fill(self, name: str, value) -> None:
+        """The column ``name``: ``value`` for every pipe (``np.full``'s dtype for it), then
+        each device part."""
+        self._column(name, np.asarray(value).dtype)[:self.m] = value
 
 
 class _Lazy:

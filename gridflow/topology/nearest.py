@@ -14,6 +14,8 @@ from __future__ import annotations
 import numpy as np
 import shapely
 
+from gridflow.topology.lines import Vertices, distance
+
 __all__ = ["nearest_lines", "widened_boxes", "box_query"]
 
 #: points measured with ``query_nearest`` to choose the first search radius
@@ -29,8 +31,8 @@ BLOCK = 1 << 15
 
 def nearest_lines(tree: shapely.STRtree, lines: np.ndarray, pts: np.ndarray,
                   max_distance: float | None = None, *,
-                  first_radius: float | None = None) -> tuple[np.ndarray, np.ndarray,
-                                                              np.ndarray]:
+                  first_radius: float | None = None,
+                  verts: Vertices | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Each point's nearest line, as ``tree.query_nearest(pts, max_distance=max_distance,
     return_distance=True, all_matches=False)`` gives it.
 
@@ -45,6 +47,11 @@ def nearest_lines(tree: shapely.STRtree, lines: np.ndarray, pts: np.ndarray,
     first_radius : float, optional
         First search radius [m]; default: reaching 90 % of an evenly spaced sample of the
         points (their nearest distances measured with ``query_nearest``).
+    verts : Vertices, optional
+        The :func:`~gridflow.topology.lines.vertices` of ``lines`` (simple lines), when
+        taken: each pair is then measured from the coordinates
+        (:func:`~gridflow.topology.lines.distance`, ``shapely.distance``'s numbers to the
+        last bit, without a GEOS call per pair).
 
     Returns
     -------
@@ -70,8 +77,13 @@ def nearest_lines(tree: shapely.STRtree, lines: np.ndarray, pts: np.ndarray,
         first_radius = _first_radius(tree, pts, max_distance)
     limit = np.inf if max_distance is None else max_distance
     r = min(first_radius, MAX_RADIUS_M, limit)
+    xy = None
+    if verts is not None and n and (shapely.get_type_id(pts) == 0).all():
+        xy = shapely.get_coordinates(pts)
+        xy = xy if len(xy) == n else None  # an empty point: measured by GEOS
     while todo.size:
-        q, t, d = _pairs_within(tree, lines, pts[todo], r)
+        q, t, d = _pairs_within(tree, lines, pts[todo], r,
+                                None if xy is None or verts is None else (verts, xy[todo]))
         if q.size:
             head, tie = _least(q, d)
             sure = head[~tie]
@@ -187,8 +199,9 @@ def _box_blocks(tree: shapely.STRtree, geoms: np.ndarray, r: float):
         yield a, block, q, t
 
 
-def _pairs_within(tree: shapely.STRtree, lines: np.ndarray, pts: np.ndarray,
-                  r: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def _pairs_within(tree: shapely.STRtree, lines: np.ndarray, pts: np.ndarray, r: float,
+                  coords: tuple[Vertices, np.ndarray] | None = None,
+                  ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """(point, line, distance) of every pair within ``r`` [m] of each other.
 
     Notes
@@ -197,11 +210,15 @@ def _pairs_within(tree: shapely.STRtree, lines: np.ndarray, pts: np.ndarray,
     predicate), and each such pair is measured once with ``shapely.distance``; the same pairs
     as ``query(predicate="dwithin")``, which measures them too, but with one distance per
     pair instead of two (about 25 % less time). Block by block (see :func:`box_query`): only
-    the pairs within ``r`` are kept past their block.
+    the pairs within ``r`` are kept past their block. ``coords``: the lines' vertices and
+    the points' coordinates, to measure the pairs from them instead.
     """
     qs, ts, ds = [], [], []
     for a, block, q, t in _box_blocks(tree, pts, r):
-        d = shapely.distance(block[q], lines[t])
+        if coords is None:
+            d = shapely.distance(block[q], lines[t])
+        else:
+            d = distance(lines, coords[0], t, coords[1][q + a])
         ok = d <= r
         qs.append(q[ok] + a)
         ts.append(t[ok])

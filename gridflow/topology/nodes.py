@@ -250,7 +250,7 @@ def _split_point_elevations(sn: Snapped, at: Attached, elev: np.ndarray, idx_of_
         return
     z0 = sn.frame["z0"].to_numpy(dtype=float)[at.ev_line]
     z1 = sn.frame["z1"].to_numpy(dtype=float)[at.ev_line]
-    length = shapely.length(sn.geoms[at.ev_line])
+    length = (shapely.length(sn.geoms) if sn.length_m is None else sn.length_m)[at.ev_line]
     t = np.clip(at.ev_s / np.maximum(length, 1e-12), 0.0, 1.0)
     z = z0 + (z1 - z0) * t
     for keys in (at.ev_up, at.ev_down):

@@ -22,6 +22,7 @@ import shapely
 from gridflow.config.layers import unit_factor
 from gridflow.errors import InputError, TopologyError
 from gridflow.topology.idtext import suffixed
+from gridflow.topology.lines import flat
 from gridflow.topology.records import Context, Pipes
 from gridflow.units import INCH
 
@@ -80,7 +81,8 @@ def prepare_pipes(ctx: Context) -> Pipes:
         last = np.cumsum(cnt) - 1
         df["z0"] = c3[last - cnt + 1, 2] * z_factor(cfg)
         df["z1"] = c3[last, 2] * z_factor(cfg)
-    parts = shapely.force_2d(parts)
+    # the parts as read (with Z, if drawn so): only the findings below take them flattened
+    # one by one, and snapping makes the 2-D lines of the network from their coordinates
     df["geom"] = parts
     for col in ("diameter", "roughness", "length", "pressure_rating", "minor_loss_k",
                 "install_year"):
@@ -95,7 +97,7 @@ def prepare_pipes(ctx: Context) -> Pipes:
     zero = glen <= 0
     f.add_many("zero_length_dropped", "warning", layer, df["pipe_id"].to_numpy()[zero],
                "drawn with a length of 0 m in the GIS (its vertices are one point); dropped",
-               df["geom"].to_numpy()[zero])
+               flat(df["geom"].to_numpy()[zero]))
     df = df[~zero].reset_index(drop=True)
     glen = glen[~zero]
     if len(df) == 0:
@@ -131,7 +133,7 @@ def _check_diameter(ctx: Context, df: pd.DataFrame, layer: str) -> pd.DataFrame:
                [f"diameter {x / INCH:.3g} in is below {MIN_DIAMETER_M / INCH:g} in, "
                 "implausible for a main; kept (check the value and "
                 "layers.pipes.units.diameter)" for x in d[small]],
-               df["geom"].to_numpy()[small])
+               flat(df["geom"].to_numpy()[small]))
     missing = ~np.isfinite(d) | (d <= 0)
     big = np.isfinite(d) & (d > MAX_DIAMETER_M)
     bad = missing | big
@@ -146,11 +148,11 @@ def _check_diameter(ctx: Context, df: pd.DataFrame, layer: str) -> pd.DataFrame:
     if default is None:
         f.add_many("diameter_missing", "error", layer, ids[bad],
                    [f"{w}: pipe left out (set layers.pipes.default_diameter to use a "
-                    "default instead)" for w in what[bad]], geoms[bad])
+                    "default instead)" for w in what[bad]], flat(geoms[bad]))
         return df[~bad].reset_index(drop=True)
     f.add_many("diameter_missing", "warning", layer, ids[bad],
                [f"{w}: default {default / INCH:.4g} in used" for w in what[bad]],
-               geoms[bad])
+               flat(geoms[bad]))
     df = df.copy(deep=False)  # copy on write: only the column changed is copied
     df.loc[bad, "diameter"] = default
     return df
@@ -193,7 +195,7 @@ def _roughness(ctx: Context, df: pd.DataFrame, layer: str) -> pd.DataFrame:
         if miss.any():
             f.add_many("roughness_missing", "warning", layer, df["pipe_id"].to_numpy()[miss],
                        f"roughness missing: default {rs.default:g} used",
-                       df["geom"].to_numpy()[miss])
+                       flat(df["geom"].to_numpy()[miss]))
     if rs.source == "table" or (~np.isfinite(r)).any():
         mat = df["material"].to_numpy(dtype=object)
         year = df["install_year"].to_numpy(dtype=float)
@@ -208,7 +210,7 @@ def _roughness(ctx: Context, df: pd.DataFrame, layer: str) -> pd.DataFrame:
         bad = (r < C_RANGE[0]) | (r > C_RANGE[1])
         f.add_many("roughness_implausible", "warning", layer, df["pipe_id"].to_numpy()[bad],
                    [f"Hazen-Williams C {x:g} outside {C_RANGE[0]:g}-{C_RANGE[1]:g}; kept"
-                    for x in r[bad]], df["geom"].to_numpy()[bad])
+                    for x in r[bad]], flat(df["geom"].to_numpy()[bad]))
     df = df.copy(deep=False)  # copy on write: the other columns are shared, not copied
     df["roughness"] = r
     return df

@@ -25,6 +25,8 @@ def column(frame, name: str, dtype=float) -> np.ndarray:
 def text_in(frame, name: str, words) -> np.ndarray:
     """``np.isin(column(frame, name, object).astype(str), words)``: True where the column's
     text is one of ``words``; a column Arrow holds is compared there (no str per row)."""
+    if (frame is None or name not in frame) and "None" not in words:
+        return np.zeros(0 if frame is None else len(frame), bool)  # unmapped: every "None"
     arr = _arrow_strings(frame[name]) if frame is not None and name in frame else None
     if arr is None or "None" in words:  # None's text is "None": the general way
         return np.isin(column(frame, name, object).astype(str), list(words))

@@ -47,7 +47,8 @@ class Context:
 
 @dataclass(frozen=True)
 class Pipes:
-    """Usable mains, one row per part: ``pipe_id``, ``geom``, attributes in SI, ``level``."""
+    """Usable mains, one row per part: ``pipe_id``, ``geom`` (as read: with Z where drawn so),
+    attributes in SI, ``level``."""
 
     frame: pd.DataFrame
     layer: str

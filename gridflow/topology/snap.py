@@ -8,6 +8,8 @@ end nodes, same diameter, within the tolerance of each other).
 
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
 import pyarrow as pa
 import shapely
@@ -16,6 +18,7 @@ from gridflow.topology.idtext import joined, two_decimals
 from gridflow.topology.lines import (
     Vertices,
     end_points,
+    flat,
     set_end_points,
     snap_labels,
     vertices,
@@ -82,15 +85,19 @@ def snap_ends(ctx: Context, pipes: Pipes) -> Snapped:
         k = np.bincount(lab2, minlength=len(cxy))
         first = np.full(len(cxy), n)
         np.minimum.at(first, lab2, np.arange(2 * n) % n)
-        text = two_decimals(dmax[cl])  # every row's message by array work where it can be
-        msgs = None if text is None else joined(
-            pa.array(k[cl]).cast(pa.large_string()), " pipe ends joined; an end moved ", text,
-            " m")
-        if msgs is None:
-            msgs = [f"{c} pipe ends joined; an end moved {d:.2f} m" for c, d in
-                    zip(k[cl].tolist(), dmax[cl].tolist())]
+        msgs: Any = ""  # only counted (a run's log): no message written
+        if f.keeps("info"):  # every row's message, by array work where it can be
+            text = two_decimals(dmax[cl])
+            msgs = None if text is None else joined(
+                pa.array(k[cl]).cast(pa.large_string()), " pipe ends joined; an end moved ",
+                text, " m")
+            if msgs is None:
+                msgs = [f"{c} pipe ends joined; an end moved {d:.2f} m" for c, d in
+                        zip(k[cl].tolist(), dmax[cl].tolist())]
         f.add_many("end_snapped", "info", layer, ids[first[cl]], msgs, cpts[cl])
-        geoms = set_end_points(geoms, cxy[lab_s], cxy[lab_e], vert)
+        geoms = set_end_points(geoms, cxy[lab_s], cxy[lab_e], vert)  # 2-D
+    else:  # no end moved: the mains as prepared, drawn in 2-D
+        geoms = flat(geoms)
     # z at clusters, for elevation source z
     cluster_z = np.full(len(cxy), np.nan)
     if "z0" in df:

@@ -1,8 +1,8 @@
 """Array-at-a-time paths of the topology checked against the general way they replace.
 
 Each check compares with a reference outside the code under test: numpy's ``lexsort`` and
-``isin``, scipy's ``connected_components``, Python's own string formatting and pyproj's
-transformation of every corner.
+``isin``, scipy's ``connected_components``, Python's own string formatting, pyproj's
+transformation of every corner and shapely's (GEOS's) distance and linear referencing.
 """
 
 from __future__ import annotations
@@ -11,6 +11,7 @@ import numpy as np
 import pandas as pd
 import pyarrow as pa
 import pytest
+import shapely
 from pyproj import CRS, Transformer
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
@@ -20,6 +21,7 @@ from gridflow.io.read import CRS_AREA_MARGIN_DEG, _box_well_inside, _outside_crs
 from gridflow.network import LINK_PIPE, LINK_VALVE
 from gridflow.topology import build_network
 from gridflow.topology.idtext import joined, numbered, two_decimals
+from gridflow.topology.lines import distance, interpolate, locate, measures, vertices
 from gridflow.topology.nodes import _xy_order
 from gridflow.topology.points import column, text_in
 from gridflow.topology.zones import components, merged_components, network_parts
@@ -185,3 +187,42 @@ def test_joined_rows():
                  two_decimals(np.array([1.005, 8.0])), " m")
     assert list(out) == [f"main {m} {x:.2f} m" for m, x in (("A", 1.005), ("B", 8.0))]
     assert joined("x", np.array([1, 2], dtype=object)) is None  # not text: the caller's way
+
+
+def _street_lines(rng, n):
+    """Lines of 2 to 7 vertices, some with a repeated vertex (a zero-length segment), some
+    closing on themselves."""
+    k = rng.integers(2, 8, n)
+    xy = 500_000.0 + np.cumsum(rng.normal(0.0, 40.0, (int(k.sum()), 2)), axis=0)
+    xy = np.round(xy, 3)
+    at = np.r_[0, np.cumsum(k)[:-1]]
+    xy[at[::9] + 1] = xy[at[::9]]  # a repeated vertex
+    ring = at[3::11][k[3::11] > 3]
+    xy[ring + k[3::11][k[3::11] > 3] - 1] = xy[ring]  # ends that meet
+    return shapely.linestrings(xy, indices=np.repeat(np.arange(n), k))
+
+
+@pytest.mark.parametrize("seed", [3, 17])
+def test_linear_referencing_is_geos(seed):
+    """Distance, location along and point along a line from the coordinates: shapely's
+    (GEOS's) numbers to the last bit, on and off the lines, at vertices and ends."""
+    rng = np.random.default_rng(seed)
+    lines = _street_lines(rng, 400)
+    v = vertices(lines)
+    m = measures(v)
+    line = rng.integers(0, len(lines), 3_000)
+    xy = np.round(v.coords[rng.integers(0, len(v.coords), len(line))]
+                  + rng.normal(0.0, 30.0, (len(line), 2)), 3)
+    xy[::5] = v.coords[v.first[line[::5]] + 1]  # on a vertex
+    pts = shapely.points(xy)
+    np.testing.assert_array_equal(distance(lines, v, line, xy),
+                                  shapely.distance(lines[line], pts))
+    s = locate(lines, v, m, line, xy)
+    np.testing.assert_array_equal(s, shapely.line_locate_point(lines[line], pts))
+    length = shapely.length(lines[line])
+    s = np.concatenate([s, np.zeros(50), length[:50], length[:50] * 2, m.start[v.first[line] + 1],
+                        rng.uniform(0.0, 1.0, 200) * length[:200], [-3.0, np.nan]])
+    at = np.concatenate([line, line[:50], line[:50], line[:50], line, line[:200], line[:2]])
+    ref = shapely.line_interpolate_point(lines[at], s)
+    np.testing.assert_array_equal(interpolate(lines, v, m, at, s),
+                                  np.column_stack([shapely.get_x(ref), shapely.get_y(ref)]))
