@@ -7,7 +7,9 @@ size; a fresh process then measures, in the same run:
 - the floor: a bare ``pyogrio.read_dataframe(use_arrow=True)`` of every mapped layer (median
   of ``--repeat``);
 - ``read_inputs`` (the mapped layers read, checked, renamed, converted) and
-  ``build_network`` on what it read (the topology stages);
+  ``build_network`` on what it read (the topology stages), with the findings log a run keeps
+  (routine facts counted, not listed); ``--full-log`` keeps every routine row, as
+  ``gridflow check`` does;
 - their ratio to the floor, and peak memory (ru_maxrss);
 - the wall time of each topology stage (``build_network(timings=...)``), and the machine's
   1-minute load average when the run ended (the machine is shared: compare ratios).
@@ -47,7 +49,7 @@ def bare_read(gis: Path) -> float:
     return time.perf_counter() - t0
 
 
-def one(gis: Path, repeat: int) -> dict:
+def one(gis: Path, repeat: int, full_log: bool = False) -> dict:
     from synthetic_utility import config_text
 
     from gridflow.config import load_config
@@ -59,7 +61,7 @@ def one(gis: Path, repeat: int) -> dict:
     cfg_path.write_text(config_text(gis, fireflow=False, report=False))
     cfg = load_config(cfg_path)
     bare = float(np.median([bare_read(gis) for _ in range(repeat)]))
-    f = Findings()
+    f = Findings(keep_routine=full_log)
     stages: dict[str, float] = {}
     t0 = time.perf_counter()
     rr = read_inputs(cfg, f)
@@ -69,7 +71,8 @@ def one(gis: Path, repeat: int) -> dict:
     rss = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
     return {"links": clean.network.n_links, "nodes": clean.network.n_nodes, "bare_s": bare,
             "read_s": t1 - t0, "clean_s": t2 - t1, "findings": len(f), "peak_mb": rss,
-            "stages": stages, "load": os.getloadavg()[0]}
+            "stages": stages, "load": os.getloadavg()[0],
+            "log": "full" if full_log else "run"}
 
 
 def main() -> None:
@@ -77,9 +80,11 @@ def main() -> None:
     ap.add_argument("sizes", nargs="*", type=int, default=[100_000])
     ap.add_argument("--repeat", type=int, default=3, help="bare reads (median)")
     ap.add_argument("--one", type=Path, help=argparse.SUPPRESS)
+    ap.add_argument("--full-log", action="store_true",
+                    help="keep every routine finding row (as gridflow check does)")
     args = ap.parse_args()
     if args.one:
-        print(json.dumps(one(args.one, args.repeat)))
+        print(json.dumps(one(args.one, args.repeat, args.full_log)))
         return
     from synthetic_utility import write_utility
 
@@ -91,7 +96,8 @@ def main() -> None:
             gis = Path(d) / "utility.gpkg"
             write_utility(gis, n)
             out = subprocess.run([sys.executable, __file__, "--one", str(gis), "--repeat",
-                                  str(args.repeat)], capture_output=True, text=True)
+                                  str(args.repeat)] + (["--full-log"] if args.full_log else []),
+                                 capture_output=True, text=True)
             if out.returncode:
                 print(out.stderr[-2000:])
                 continue
