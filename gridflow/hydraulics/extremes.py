@@ -177,12 +177,7 @@ class DrawExtremes:
         ht = hr - self.depth[tn]
         if drawn and len(ent.path) and len(tn):
             hs[tn] = ht
-            new = DrawSolver._fused_law(ent.path_flow + d, ent.path_r, ent.path_m)[0]
-            extra = new - s.tree_drop0[red.tree_index[ent.path]]
-            for lk, dx in zip(ent.path, extra):
-                v = red.tree_child[red.tree_index[lk]]
-                lo = red.pre_pos[v]
-                hs[red.preorder[lo:lo + red.sub_size[v]]] -= dx
+            s.below_path(hs, ent, d)
             ht = hs[tn]
         return np.concatenate([nodes_in, tn]), np.concatenate([heads_in, ht])
 

@@ -860,13 +860,19 @@ class ReducedDrawSolver:
         tn = red.tree_child
         h[tn] = h[red.tree_root[tn]] - self.tree_depth_drop
         if len(ent.path):
-            new = DrawSolver._fused_law(ent.path_flow + d, ent.path_r, ent.path_m)[0]
-            extra = new - self.tree_drop0[red.tree_index[ent.path]]
-            for lk, dx in zip(ent.path, extra):
-                v = red.tree_child[red.tree_index[lk]]
-                lo = red.pre_pos[v]
-                h[red.preorder[lo:lo + red.sub_size[v]]] -= dx
+            self.below_path(h, ent, d)
         return q, h
+
+    def below_path(self, h: np.ndarray, ent: _Entry, d: float) -> None:
+        """Lower, in place, the heads ``h`` of the nodes below the draw's path by what draw
+        ``d`` adds to the head loss of each path link above them."""
+        red = self.red
+        new = DrawSolver._fused_law(ent.path_flow + d, ent.path_r, ent.path_m)[0]
+        extra = new - self.tree_drop0[red.tree_index[ent.path]]
+        for lk, dx in zip(ent.path, extra):
+            v = red.tree_child[red.tree_index[lk]]
+            lo = red.pre_pos[v]
+            h[red.preorder[lo:lo + red.sub_size[v]]] -= dx
 
     def _arrays(self, q, h) -> dict:
         """The whole-network arrays a fire-flow search reads, of flows ``q``, heads ``h``."""
