@@ -224,6 +224,11 @@ def test_fire_draws_on_the_reduced_street_town_equal_full_newton(town, cleaned):
     from gridflow.units import M_HEAD_PER_PSI
 
     picks = hyd_nodes[np.linspace(0, len(hyd_nodes) - 1, 30).astype(int)]
+    from gridflow.network import NODE_JUNCTION
+
+    check = (net.node_kind == NODE_JUNCTION) & base.supplied
+    zone_code = np.unique(net.zone.astype(str), return_inverse=True)[1].astype(np.int64)
+    main = net.link_kind == LINK_PIPE
     compared, zones, changed = 0, set(), 0
     for k in picks:
         if not base.supplied[k] or net.is_fixed[k]:
@@ -245,6 +250,21 @@ def test_fire_draws_on_the_reduced_street_town_equal_full_newton(town, cleaned):
         np.testing.assert_allclose(r.head_m[r.supplied], full.head_m[r.supplied], atol=1e-5)
         np.testing.assert_allclose(r.flow_m3s, full.flow_m3s, atol=1e-7)
         assert_physics(net, with_draw(r, k, r.extra["draw_m3s"]), mass_tol=1e-7, head_tol=1e-5)
+        # the fire-flow search's system-wide check from bounds and a partial rebuild: the same
+        # lowest node of the zone and fastest main as the rebuilt solution
+        finder = r.extra["reduced_by"].extremes(check, zone_code, main)
+        Q, H, d = r.extra["reduced"]
+        ent, hg = r.extra["solved"]
+        z = int(zone_code[k])
+        low, node = finder.lowest(Q, H, d, ent, hg, z, int(k))
+        mask = check & r.supplied & (zone_code == z)
+        mask[k] = False
+        idx = np.flatnonzero(mask)
+        assert node == int(idx[np.argmin(r.pressure_m[idx])])
+        assert low == pytest.approx(float(r.pressure_m[idx].min()), abs=1e-9)
+        idx = np.flatnonzero(main & np.isfinite(r.velocity_ms))
+        v = np.abs(r.velocity_ms[idx])
+        assert finder.fastest(Q, d, ent) == (float(v.max()), int(idx[np.argmax(v)]))
         compared += 1
         zones.add(str(net.zone[k]))
     # half the draws here open or shut a device (the town's PRVs and booster)
