@@ -126,12 +126,12 @@ class DrawExtremes:
         area = np.asarray(sysm.laws.area, dtype=float)
         with np.errstate(divide="ignore", invalid="ignore"):
             inv = np.where(area > 0, 1.0 / area, np.inf)
+            v0 = np.abs(q0 / area)  # read only where the area is positive
         self.area = area
         main_ok = np.asarray(main_pipe, dtype=bool) & np.isfinite(inv)
         self.main_ok = main_ok
         cl = red.chain_links
         on = main_ok[cl]
-        v0 = np.abs(q0 / area) if len(q0) else np.zeros(0)
         self.v_base = np.full(C, -np.inf)
         self.inv_area = np.zeros(C)
         np.maximum.at(self.v_base, red.chain_of_link[on], v0[cl[on]])
