@@ -204,6 +204,10 @@ class ReducedDrawSolver:
         self.chord_within = float(chord_within)
         self._w: dict[str, np.ndarray] = {}
         self._g: dict[str, np.ndarray] = {}
+        #: a slot factorized with a pinned draw's border folded in: ``[nz, b[nz], gamma,
+        #: F^-1 b]`` (the matrix is ``A + b b' / gamma``, ``b`` nonzero at ``nz`` only;
+        #: ``F^-1 b`` made when first needed)
+        self._border: dict[str, list] = {}
         self._episode = 0
         self._work_owner: tuple[int, int] = (-1, -1)
         opt, laws = system.opt, system.laws
@@ -313,6 +317,7 @@ class ReducedDrawSolver:
         self._work_owner = (-1, -1)
         self._w.pop("work", None)
         self._g.pop("work", None)
+        self._border.pop("work", None)
         for v in self._variants.values():
             v.reset()
 
@@ -414,9 +419,15 @@ class ReducedDrawSolver:
             self._factor(_sum_at(red.group_chain, gg, red.n_chains), gg,
                          "base")
 
-    def _factor(self, G: np.ndarray, gg: np.ndarray, slot: str) -> None:
+    def _factor(self, G: np.ndarray, gg: np.ndarray, slot: str,
+                border: tuple[np.ndarray, np.ndarray, float, int] | None = None
+                ) -> np.ndarray:
         """Factorize the core matrix of chain derivatives ``G`` (group derivatives ``gg``)
-        into ``slot``."""
+        into ``slot``; with ``border = (nz, values, gamma, chain)`` the matrix ``A + b b' /
+        gamma`` (a pinned draw's bordered step folded in, see :meth:`_solve`; ``b`` holds
+        ``values`` at core positions ``nz``, the ends of ``chain``). Returns the chain
+        conductances
+        ``1 / G``."""
         red, pat = self.red, self.pattern
         w = 1.0 / G
         diag = _sum_at(red.ca, w * self._fa, self.K)
@@ -429,11 +440,41 @@ class ReducedDrawSolver:
         else:
             data = _sum_at(pat.off_pos, off, pat.nnz)
         diag[self._known] = 1.0
+        if border is not None:
+            nz, bv, gamma, bchain = border
+            diag[nz] += bv * bv / gamma
         data[pat.diag_pos] = diag
+        if border is not None and len(nz) == 2:
+            # the border's two nodes are the ends of the draw's chain: their entry exists
+            j = int(np.searchsorted(self.links2, bchain))
+            data[pat.off_pos[j]] += bv[0] * bv[1] / gamma
         pat.factor(data, slot)
         self._w[slot] = w
         self._g[slot] = gg
+        if border is None:
+            self._border.pop(slot, None)
+        else:
+            self._border[slot] = [nz, bv, gamma, None]
         self._root.factorizations += 1
+        return w
+
+    def _plain_solve(self, rhs: np.ndarray, slot: str) -> np.ndarray:
+        """``A^-1 rhs`` with the core matrix ``A`` factorized in ``slot``, a border folded in
+        there taken out again (Sherman-Morrison: ``A^-1 = F^-1 + F^-1 b b' F^-1 / (gamma -
+        b' F^-1 b)`` for ``F = A + b b' / gamma``)."""
+        x = self.pattern.solve(rhs, slot)
+        got = self._border.get(slot)
+        if got is None:
+            return x
+        # (the products with b over its two entries: no BLAS call on whole vectors, whose
+        # threads would take the other core)
+        nz, bv, gamma, fb = got
+        if fb is None:
+            b = np.zeros(self.K)
+            b[nz] = bv
+            fb = got[3] = self.pattern.solve(b, slot)
+        x += fb * (float(np.sum(bv * x[nz])) / (gamma - float(np.sum(bv * fb[nz]))))
+        return x
 
     # ------------------------------------------------------------------ the solve
     def solve(self, node: int, mode: str, value: float, *, limit_node: int | None = None,
@@ -639,9 +680,15 @@ class ReducedDrawSolver:
             # `chord_within` times the tolerance and the last chord step shrank it enough
             fresh = slot is None or (it > 0 and (
                 score > self.chord_within or (chord and score > self.refactor_ratio * prev)))
+            folded = False
             if fresh:
                 slot = "work"
-                self._factor(_sum_at(gc, gg, C), gg, "work")
+                G = _sum_at(gc, gg, C)
+                border = None
+                if pin:
+                    border = self._pin_border(ent, G, gg, dP, bvec)
+                self._factor(G, gg, "work", border)
+                folded = border is not None
                 self._work_owner = (ent.k, self._episode)
             chord = not fresh
             prev = score
@@ -652,10 +699,20 @@ class ReducedDrawSolver:
             rhs -= _sum_at(cb, we, K)
             rhs -= m
             rhs *= free_f
-            x = self.pattern.solve(rhs, slot)
             dd = 0.0
             D = float(np.sum(gk[ent.gs:ent.g1])) if inside else 0.0
-            if pin or held:
+            if folded:
+                # the pinned outlet's condition b' dH - gamma dd = s is in the matrix: one
+                # solve gives the heads, the draw follows (the bordered step's exact
+                # equivalent)
+                nz, bv, gamma, _ = border
+                sgap = (target - hk) - ((1.0 - D * w[c]) * e[c] if inside else 0.0)
+                rhs[nz] += bv * (sgap / gamma)
+                x = self.pattern.solve(rhs, slot)
+                dd = (float(np.sum(bv * x[nz])) - sgap) / gamma
+            else:
+                x = self._plain_solve(rhs, slot)
+            if (pin or held) and not folded:
                 bvec[:] = 0.0
                 if inside:
                     alpha = D * w[c]
@@ -663,12 +720,12 @@ class ReducedDrawSolver:
                     bvec[ca[c]] += alpha
                     bvec[cb[c]] += beta
                     bvec *= free_f
-                    u = self.pattern.solve(bvec, slot)
+                    u = self._plain_solve(bvec, slot)
                     num = alpha * x[ca[c]] + beta * x[cb[c]] + beta * e[c] - (target - hk)
                     den = alpha * u[ca[c]] + beta * u[cb[c]] + beta * D + dP
                 elif self.free_core[ent.core]:
                     bvec[ent.core] = 1.0
-                    u = self.pattern.solve(bvec, slot)
+                    u = self._plain_solve(bvec, slot)
                     num = x[ent.core] - (target - hk)
                     den = u[ent.core] + dP
                 else:
@@ -737,6 +794,32 @@ class ReducedDrawSolver:
                    "node": ent.k, "node_head_m": hk})
         return DrawOutcome(success=True, status=0, message=msg, result=r,
                            draw_m3s=float(d), nit=it)
+
+    def _pin_border(self, ent: _Entry, G: np.ndarray, gg: np.ndarray, dP: float,
+                    bvec: np.ndarray) -> tuple[np.ndarray, np.ndarray, float, int] | None:
+        """The border ``(nz, b[nz], gamma, chain)`` of a pinned draw's Newton step at chain
+        derivatives ``G`` (group derivatives ``gg``), to fold into its factorization; None
+        where the outlet's head is the entry node's (no path: a node of known head then)."""
+        bvec[:] = 0.0
+        if ent.chain >= 0:
+            c = ent.chain
+            D = float(np.sum(gg[ent.gs:ent.g1]))
+            alpha = D / float(G[c])
+            beta = 1.0 - alpha
+            bvec[self.red.ca[c]] += alpha
+            bvec[self.red.cb[c]] += beta
+            bvec *= self.free_core_f
+            gamma = beta * D + dP
+            chain = c
+        elif self.free_core[ent.core]:
+            bvec[ent.core] = 1.0
+            gamma, chain = dP, -1
+        else:
+            return None
+        nz = np.flatnonzero(bvec)
+        if not gamma > 0 or not len(nz):
+            return None
+        return nz, bvec[nz], gamma, chain
 
     def _held_head(self, pr: _Probe, H: np.ndarray, hg: np.ndarray) -> float:
         """The held node's head at core heads ``H`` and group losses ``hg``."""

@@ -317,3 +317,54 @@ def test_lowest_pressure_and_fastest_pipe_without_the_rebuild():
             compared += 1
             kinds.add("tree" if red.gone[k] else "core" if red.core_pos[k] >= 0 else "chain")
     assert compared >= 100 and kinds == {"tree", "core", "chain"}, (compared, kinds)
+
+
+def test_the_pinned_draw_folded_into_the_factorization_is_the_bordered_step():
+    # a pinned draw's Newton step solved with its border in the matrix (A + b b' / gamma, one
+    # solve) equals the bordered solve on A (two solves); the slot's plain solves (Sherman-
+    # Morrison) equal solves with A factorized alone
+    rng = np.random.default_rng(5)
+    kinds = set()
+    for seed in range(12):
+        network = stringy_network(seed, 14)
+        system = HydraulicSystem(network, TIGHT)
+        base = system.solve(raise_on_failure=False)
+        if not base.converged:
+            continue
+        rs = ReducedDrawSolver(system, base)
+        red = rs.red
+        phi = rs.Q0[red.group_chain] - red.group_off
+        phi += rng.uniform(-0.02, 0.02, len(phi))
+        _, gg = rs._law(phi)
+        G = np.bincount(red.group_chain, weights=gg, minlength=red.n_chains)
+        bvec = np.zeros(rs.K)
+        for k in np.flatnonzero(~network.is_fixed):
+            ent = rs._entry(int(k))
+            if ent is None:
+                continue
+            dP = 0.3 if len(ent.path) else 0.0
+            border = rs._pin_border(ent, G, gg, dP, bvec)
+            if border is None:
+                continue
+            kinds.add("chain" if ent.chain >= 0 else "core")
+            nz, bv, gamma, _ = border
+            rs._factor(G, gg, "plain")
+            rs._factor(G, gg, "fold", border)
+            b = np.zeros(rs.K)
+            b[nz] = bv
+            r = rng.normal(size=rs.K) * rs.free_core_f
+            s = float(rng.normal())
+            x0 = rs.pattern.solve(r, "plain")
+            u = rs.pattern.solve(b, "plain")
+            dd = (b @ x0 - s) / (b @ u + gamma)
+            dH = x0 - dd * u
+            dH2 = rs.pattern.solve(r + b * (s / gamma), "fold")
+            dd2 = (b @ dH2 - s) / gamma
+            scale = np.max(np.abs(dH)) + 1e-12
+            assert np.max(np.abs(dH2 - dH)) <= 1e-8 * scale
+            assert dd2 == pytest.approx(dd, rel=1e-8, abs=1e-12)
+            assert np.allclose(rs._plain_solve(r, "fold"), x0, rtol=1e-8,
+                               atol=1e-10 * np.max(np.abs(x0)))
+            # and the folded matrix is not the plain one (the border is really in it)
+            assert np.max(np.abs(rs.pattern.solve(r, "fold") - x0)) > 1e-10 * np.max(np.abs(x0))
+    assert kinds == {"chain", "core"}
