@@ -208,6 +208,7 @@ class ReducedDrawSolver:
         #: F^-1 b]`` (the matrix is ``A + b b' / gamma``, ``b`` nonzero at ``nz`` only;
         #: ``F^-1 b`` made when first needed)
         self._border: dict[str, list] = {}
+        self._base_eval: tuple[np.ndarray, ...] | None = None
         self._episode = 0
         self._work_owner: tuple[int, int] = (-1, -1)
         opt, laws = system.opt, system.laws
@@ -410,14 +411,43 @@ class ReducedDrawSolver:
         included, valves not yet): each passes what its outlet node sends on."""
         return self.prv_pass @ out[self.prv_out]
 
+    def _finish_mass(self, out: np.ndarray) -> np.ndarray:
+        """The mass residuals of the free core nodes from their link outflows ``out`` (the
+        draw included; changed in place): loads added, the regulating valves' flows drawn
+        from their inlets."""
+        out += self.load_all_core
+        if len(self.prv_links):
+            flows = self._valve_flows(out)
+            out += _sum_at(self.prv_in, flows, self.K)
+        out *= self.free_core_f
+        return out
+
+    def _base_residuals(self) -> tuple[np.ndarray, ...]:
+        """``(group losses, group derivatives, chain residuals, mass residuals)`` at the base
+        state with no draw (made once, read-only: every solve from the base state starts
+        there)."""
+        got = self._base_eval
+        if got is None:
+            red = self.red
+            hg, gg = self._law(self.Q0[red.group_chain] - red.group_off)
+            e = _sum_at(red.group_chain, hg, red.n_chains)
+            e -= self.h_core0[red.ca]
+            e += self.h_core0[red.cb]
+            out = _sum_at(red.ca, self.Q0, self.K)
+            out -= _sum_at(red.cb, self.Q0 - red.tot, self.K)
+            got = (hg, gg, e, self._finish_mass(out))
+            for a in got:
+                a.setflags(write=False)
+            self._base_eval = got
+        return got
+
     def _ensure_base(self) -> None:
         """The core matrix at the base flows, kept for the first step of every solve from
         the base state (made once)."""
         if "base" not in self._w:
             red = self.red
-            _, gg = self._law(self.Q0[red.group_chain] - red.group_off)
-            self._factor(_sum_at(red.group_chain, gg, red.n_chains), gg,
-                         "base")
+            gg = self._base_residuals()[1]
+            self._factor(_sum_at(red.group_chain, gg, red.n_chains), gg, "base")
 
     def _factor(self, G: np.ndarray, gg: np.ndarray, slot: str,
                 border: tuple[np.ndarray, np.ndarray, float, int] | None = None
@@ -635,28 +665,27 @@ class ReducedDrawSolver:
         hg: np.ndarray = np.zeros(0)
         prev = np.inf
         chord = False
+        # from the base state with no draw yet, the first residuals are the base state's
+        from_base = start is None and d == 0.0
         for it in range(opt.max_iter + 1):
-            phi = Q[gc] - goff
-            if inside:
-                phi[ent.gs:ent.g1] -= d
-            hg, gg = self._law(phi)
-            e = _sum_at(gc, hg, C)
-            e -= H[ca]
-            e += H[cb]
-            out: np.ndarray = _sum_at(ca, Q, K)
-            out -= _sum_at(cb, Q - tot, K)
-            if inside:
-                out[cb[c]] += d
-                hx = H[ca[c]] - float(np.sum(hg[ent.g0:ent.gs]))
+            if it == 0 and from_base:
+                hg, gg, e, m = self._base_residuals()
             else:
-                out[ent.core] += d
-                hx = H[ent.core]
-            out += self.load_all_core
-            if len(self.prv_links):
-                flows = self._valve_flows(out)
-                out += _sum_at(self.prv_in, flows, K)
-            out *= free_f
-            m = out
+                phi = Q[gc] - goff
+                if inside:
+                    phi[ent.gs:ent.g1] -= d
+                hg, gg = self._law(phi)
+                e = _sum_at(gc, hg, C)
+                e -= H[ca]
+                e += H[cb]
+                out: np.ndarray = _sum_at(ca, Q, K)
+                out -= _sum_at(cb, Q - tot, K)
+                if inside:
+                    out[cb[c]] += d
+                else:
+                    out[ent.core] += d
+                m = self._finish_mass(out)
+            hx = H[ca[c]] - float(np.sum(hg[ent.g0:ent.gs])) if inside else H[ent.core]
             if len(ent.path):
                 hp, gp = DrawSolver._fused_law(ent.path_flow + d, ent.path_r, ent.path_m)
                 P, dP = float(np.sum(hp)), float(np.sum(gp))
