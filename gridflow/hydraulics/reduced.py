@@ -709,15 +709,13 @@ class ReducedDrawSolver:
             # `chord_within` times the tolerance and the last chord step shrank it enough
             fresh = slot is None or (it > 0 and (
                 score > self.chord_within or (chord and score > self.refactor_ratio * prev)))
-            folded = False
+            border: tuple[np.ndarray, np.ndarray, float, int] | None = None
             if fresh:
                 slot = "work"
                 G = _sum_at(gc, gg, C)
-                border = None
                 if pin:
                     border = self._pin_border(ent, G, gg, dP, bvec)
                 self._factor(G, gg, "work", border)
-                folded = border is not None
                 self._work_owner = (ent.k, self._episode)
             chord = not fresh
             prev = score
@@ -730,7 +728,8 @@ class ReducedDrawSolver:
             rhs *= free_f
             dd = 0.0
             D = float(np.sum(gk[ent.gs:ent.g1])) if inside else 0.0
-            if folded:
+            folded = border is not None
+            if border is not None:
                 # the pinned outlet's condition b' dH - gamma dd = s is in the matrix: one
                 # solve gives the heads, the draw follows (the bordered step's exact
                 # equivalent)
