@@ -20,6 +20,17 @@ from .netbuild import assert_physics, stringy_network, with_draw
 TIGHT = SolveOptions(head_tolerance=1e-9, flow_tolerance=1e-9)
 
 
+def solved(seeds, n):
+    """``(seed, network, system, base)`` of the stringy networks of ``seeds`` whose base
+    state converges (at the tight tolerances)."""
+    for seed in seeds:
+        network = stringy_network(seed, n)
+        system = HydraulicSystem(network, TIGHT)
+        base = system.solve(raise_on_failure=False)
+        if base.converged:
+            yield seed, network, system, base
+
+
 def setup(seed, n):
     network = stringy_network(seed, n)
     system = HydraulicSystem(network, TIGHT)
@@ -64,12 +75,7 @@ def test_hands_over_what_it_does_not_hold():
     from gridflow.hydraulics import DrawSolver
 
     handed = 0
-    for seed in range(30):
-        network = stringy_network(seed, 12)
-        system = HydraulicSystem(network, TIGHT)
-        base = system.solve(raise_on_failure=False)
-        if not base.converged:
-            continue
+    for _seed, network, system, base in solved(range(30), 12):
         rs = ReducedDrawSolver(system, base)
         free = np.flatnonzero(~network.is_fixed)
         k = int(free[-1])
@@ -104,12 +110,7 @@ def test_limit_on_nodes_of_every_kind_without_falling_back():
     from gridflow.hydraulics import DrawSolver
 
     seen = set()
-    for seed in range(40):
-        network = stringy_network(seed, 14)
-        system = HydraulicSystem(network, TIGHT)
-        base = system.solve(raise_on_failure=False)
-        if not base.converged:
-            continue
+    for _seed, network, system, base in solved(range(40), 14):
         rs = ReducedDrawSolver(system, base)
         ds = DrawSolver(system, base)
         red = rs.red
@@ -256,12 +257,7 @@ def test_lowest_pressure_and_fastest_pipe_without_the_rebuild():
     from gridflow.hydraulics.extremes import DrawExtremes
 
     kinds, compared = set(), 0
-    for seed in range(40):
-        network = stringy_network(seed, 14)
-        system = HydraulicSystem(network, TIGHT)
-        base = system.solve(raise_on_failure=False)
-        if not base.converged:
-            continue
+    for seed, network, system, base in solved(range(40), 14):
         rs = ReducedDrawSolver(system, base)
         red = rs.red
         rng = np.random.default_rng(seed)
@@ -325,12 +321,7 @@ def test_the_pinned_draw_folded_into_the_factorization_is_the_bordered_step():
     # Morrison) equal solves with A factorized alone
     rng = np.random.default_rng(5)
     kinds = set()
-    for seed in range(12):
-        network = stringy_network(seed, 14)
-        system = HydraulicSystem(network, TIGHT)
-        base = system.solve(raise_on_failure=False)
-        if not base.converged:
-            continue
+    for _seed, network, system, base in solved(range(12), 14):
         rs = ReducedDrawSolver(system, base)
         red = rs.red
         phi = rs.Q0[red.group_chain] - red.group_off
