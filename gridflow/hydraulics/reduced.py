@@ -450,14 +450,11 @@ class ReducedDrawSolver:
             self._factor(_sum_at(red.group_chain, gg, red.n_chains), gg, "base")
 
     def _factor(self, G: np.ndarray, gg: np.ndarray, slot: str,
-                border: tuple[np.ndarray, np.ndarray, float, int] | None = None
-                ) -> np.ndarray:
+                border: tuple[np.ndarray, np.ndarray, float, int] | None = None) -> None:
         """Factorize the core matrix of chain derivatives ``G`` (group derivatives ``gg``)
         into ``slot``; with ``border = (nz, values, gamma, chain)`` the matrix ``A + b b' /
         gamma`` (a pinned draw's bordered step folded in, see :meth:`_solve`; ``b`` holds
-        ``values`` at core positions ``nz``, the ends of ``chain``). Returns the chain
-        conductances
-        ``1 / G``."""
+        ``values`` at core positions ``nz``, the ends of ``chain``)."""
         red, pat = self.red, self.pattern
         w = 1.0 / G
         diag = _sum_at(red.ca, w * self._fa, self.K)
@@ -486,7 +483,6 @@ class ReducedDrawSolver:
         else:
             self._border[slot] = [nz, bv, gamma, None]
         self._root.factorizations += 1
-        return w
 
     def _plain_solve(self, rhs: np.ndarray, slot: str) -> np.ndarray:
         """``A^-1 rhs`` with the core matrix ``A`` factorized in ``slot``, a border folded in
@@ -741,18 +737,14 @@ class ReducedDrawSolver:
             else:
                 x = self._plain_solve(rhs, slot)
             if (pin or held) and not folded:
-                bvec[:] = 0.0
+                alpha = D * w[c] if inside else 0.0
+                self._border_into(bvec, ent, alpha)
                 if inside:
-                    alpha = D * w[c]
                     beta = 1.0 - alpha
-                    bvec[ca[c]] += alpha
-                    bvec[cb[c]] += beta
-                    bvec *= free_f
                     u = self._plain_solve(bvec, slot)
                     num = alpha * x[ca[c]] + beta * x[cb[c]] + beta * e[c] - (target - hk)
                     den = alpha * u[ca[c]] + beta * u[cb[c]] + beta * D + dP
                 elif self.free_core[ent.core]:
-                    bvec[ent.core] = 1.0
                     u = self._plain_solve(bvec, slot)
                     num = x[ent.core] - (target - hk)
                     den = u[ent.core] + dP
@@ -823,31 +815,35 @@ class ReducedDrawSolver:
         return DrawOutcome(success=True, status=0, message=msg, result=r,
                            draw_m3s=float(d), nit=it)
 
+    def _border_into(self, bvec: np.ndarray, ent: _Entry, alpha: float) -> None:
+        """Write into ``bvec`` the border of a draw step at ``ent``: ``alpha`` and ``1 -
+        alpha`` at the ends of its chain (``alpha``: the share of the chain's slope after the
+        draw's split), or 1 at its core node; nothing at nodes of known head."""
+        bvec[:] = 0.0
+        if ent.chain >= 0:
+            bvec[self.red.ca[ent.chain]] += alpha
+            bvec[self.red.cb[ent.chain]] += 1.0 - alpha
+            bvec *= self.free_core_f
+        elif self.free_core[ent.core]:
+            bvec[ent.core] = 1.0
+
     def _pin_border(self, ent: _Entry, G: np.ndarray, gg: np.ndarray, dP: float,
                     bvec: np.ndarray) -> tuple[np.ndarray, np.ndarray, float, int] | None:
         """The border ``(nz, b[nz], gamma, chain)`` of a pinned draw's Newton step at chain
         derivatives ``G`` (group derivatives ``gg``), to fold into its factorization; None
-        where the outlet's head is the entry node's (no path: a node of known head then)."""
-        bvec[:] = 0.0
+        where it does not fold (the entry a node of known head, or a core node with no path
+        below it: the outlet's head is then the node's, ``gamma = 0``)."""
         if ent.chain >= 0:
-            c = ent.chain
             D = float(np.sum(gg[ent.gs:ent.g1]))
-            alpha = D / float(G[c])
-            beta = 1.0 - alpha
-            bvec[self.red.ca[c]] += alpha
-            bvec[self.red.cb[c]] += beta
-            bvec *= self.free_core_f
-            gamma = beta * D + dP
-            chain = c
-        elif self.free_core[ent.core]:
-            bvec[ent.core] = 1.0
-            gamma, chain = dP, -1
+            alpha = D / float(G[ent.chain])
+            gamma = (1.0 - alpha) * D + dP
         else:
-            return None
+            alpha, gamma = 0.0, dP
+        self._border_into(bvec, ent, alpha)
         nz = np.flatnonzero(bvec)
         if not gamma > 0 or not len(nz):
             return None
-        return nz, bvec[nz], gamma, chain
+        return nz, bvec[nz], gamma, ent.chain
 
     def _held_head(self, pr: _Probe, H: np.ndarray, hg: np.ndarray) -> float:
         """The held node's head at core heads ``H`` and group losses ``hg``."""
